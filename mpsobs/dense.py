@@ -85,6 +85,12 @@ def von_neumann_entropy(rho: np.ndarray) -> float:
     return float(-np.sum(w * np.log(w)))
 
 
+def _check_size(tensor: np.ndarray) -> None:
+    if tensor.size > MAX_ELEMENTS:
+        raise InputError(f"coarse_graining: too many outcomes for the dense engine "
+                         f"({tensor.size} intermediate elements, limit {MAX_ELEMENTS})")
+
+
 def _block_probabilities(state: np.ndarray, pure: bool,
                          cg: BlockCoarseGraining) -> np.ndarray:
     """Tensor p[i_1, ..., i_m] of outcome-string probabilities."""
@@ -94,22 +100,26 @@ def _block_probabilities(state: np.ndarray, pure: bool,
     if any(r is None for r in rows):
         raise InputError("coarse_graining: blocks wider than the block-tensor limit are "
                          "evaluated on MPS states only")
-    tensor = state.reshape(dims if pure else dims + dims)
-    for k, readout in enumerate(rows):
-        if pure:
-            tensor = np.moveaxis(np.tensordot(readout, tensor, axes=(1, k)), 0, k)
-        else:
-            t = np.moveaxis(np.tensordot(readout, tensor, axes=(1, k)), 0, k)
-            t = np.moveaxis(np.tensordot(readout.conj(), t, axes=(1, m + k)), 0, m + k)
-            tensor = t
-        if tensor.size > MAX_ELEMENTS:
-            raise InputError(f"coarse_graining: too many outcomes for the dense engine "
-                             f"({tensor.size} intermediate elements)")
     if pure:
+        tensor = state.reshape(dims)
+        for k, readout in enumerate(rows):
+            tensor = np.moveaxis(np.tensordot(readout, tensor, axes=(1, k)), 0, k)
+            _check_size(tensor)
         fine = np.abs(tensor) ** 2
     else:
-        # Diagonal over each (row, row) pair of legs.
-        fine = np.einsum(tensor, list(range(m)) * 2, list(range(m))).real
+        # Axes: rows of blocks done, kets of blocks to do, bras of blocks to do. For each
+        # block only the diagonal sum_{a,b} B[r,a] conj(B[r,b]) rho[..a.., ..b..] is formed.
+        tensor = state.reshape(dims + dims)
+        for k, readout in enumerate(rows):
+            left = m - k
+            t = np.moveaxis(tensor, [k, k + left], [0, 1])
+            rest = t.shape[2:]
+            pair = (readout[:, :, None] * readout.conj()[:, None, :]).reshape(
+                readout.shape[0], -1)
+            t = (pair @ t.reshape(dims[k] ** 2, -1)).reshape((readout.shape[0],) + rest)
+            tensor = np.moveaxis(t, 0, k)
+            _check_size(tensor)
+        fine = tensor.real
     probs = fine
     for k, block in enumerate(cg.blocks):
         indicator = np.zeros((block.readout.shape[0], block.n_outcomes))
