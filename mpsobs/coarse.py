@@ -270,7 +270,8 @@ def _block_from_stages(stages: Sequence[_Stage], k: int, start: int, stop: int) 
         macro = []
         for j, value in enumerate(values):
             cols = basis[:, outcome == j]
-            macro.append(Macrostate((value,), cols @ cols.conj().T, float(cols.shape[1])))
+            macro.append(Macrostate((float(value),), cols @ cols.conj().T,
+                                    float(cols.shape[1])))
         return Block(start, stop, tuple(macro), basis.conj().T.copy(), outcome.copy())
     # Sequence: build K = P_in ... P_i1 outcome by outcome, dropping empty branches.
     d = 2 ** (stop - start)
@@ -280,7 +281,7 @@ def _block_from_stages(stages: Sequence[_Stage], k: int, start: int, stop: int) 
         projs = []
         for j, value in enumerate(values):
             cols = basis[:, outcome == j]
-            projs.append((value, cols @ cols.conj().T))
+            projs.append((float(value), cols @ cols.conj().T))
         branches = [(label + (value,), proj @ kraus)
                     for label, kraus in branches for value, proj in projs]
         branches = [(lab, K) for lab, K in branches
@@ -288,13 +289,19 @@ def _block_from_stages(stages: Sequence[_Stage], k: int, start: int, stop: int) 
     macro, rows, group = [], [], []
     for j, (label, kraus) in enumerate(branches):
         povm = kraus.conj().T @ kraus
-        volume = float(np.trace(povm).real)
+        volume = _snap(float(np.trace(povm).real))
         macro.append(Macrostate(label, kraus, volume))
         w, v = np.linalg.eigh(povm)
         keep = w > EMPTY_VOLUME * max(1.0, w.max())
         rows.append(np.sqrt(w[keep])[:, None] * v[:, keep].conj().T)
         group.append(np.full(int(keep.sum()), j))
     return Block(start, stop, tuple(macro), np.concatenate(rows), np.concatenate(group))
+
+
+def _snap(volume: float) -> float:
+    """Round a volume to an integer when it is one up to round-off (commuting stages)."""
+    nearest = round(volume)
+    return float(nearest) if abs(volume - nearest) < 1e-9 else volume
 
 
 def _assemble(L: int, regions, stages: tuple[_Stage, ...], label: str) -> BlockCoarseGraining:
