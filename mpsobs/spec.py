@@ -547,10 +547,11 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
         entry.pop("path")
     params = {k: p[k] for k in ("seed", "model", "state", "evolution", "times", "coarse",
                                 "estimator")}
+    columns = _columns(params)
     digest = _digest(params)
     label = " ".join(f"{path}={value}" for path, value in values.items())
     return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
-                 params=params, columns=_columns(params), label=label or "single point")
+                 params=params, columns=columns, label=label or "single point")
 
 
 def _check_state(state: dict, L: int) -> None:
@@ -581,9 +582,12 @@ def _check_state(state: dict, L: int) -> None:
         if number > size:
             raise _fail("state.number", f"{number} particles do not fit in a box of {size} "
                         f"sites (state.box {[start, stop]}, model.L = {L})")
+    state["columns"] = ({"box_start": start, "box_stop": stop} if state["box"] is not None
+                        else dict(zip(("box_from", "box_to"), state["box_fraction"],
+                                      strict=True)))
+    state["columns"].update({"number": number} if state["filling"] is None
+                            else {"filling": state["filling"]})
     state.update(box=[start, stop], number=number)
-    state.pop("box_fraction")
-    state.pop("filling")
 
 
 def _check_coarse(entries: list[dict], model: dict, L: int) -> None:
@@ -621,11 +625,10 @@ def _columns(params: dict) -> dict:
     for name, key in _FIELD.items():
         cols[key.column] = model["field"][name]
     cols["state"] = state["kind"]
-    if state["kind"] == "gas":
-        cols.update(box_start=state["box"][0], box_stop=state["box"][1],
-                    number=state["number"], fill=state["fill"])
-    for name, key in _STATE_KEYS[state["kind"]].items():
-        if key.column and name in state:
+    if state["kind"] == "gas":  # the box and number as given: constant along an L scan
+        cols.update(state.pop("columns"), fill=state["fill"])
+    else:
+        for name, key in _STATE_KEYS[state["kind"]].items():
             cols[key.column] = state[name]
     if state["kind"] == "ground":
         pre = state["prequench"]

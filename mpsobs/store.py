@@ -1,0 +1,334 @@
+"""The run directory: resolved spec, one Parquet file per finished point, checkpoints,
+the merged results table and the lock.
+
+Layout of a run directory::
+
+    spec.json                 resolved spec, run id, mpsobs version, list of points
+    points/<point_id>.parquet rows of one finished point (written once, atomically)
+    checkpoints/<point_id>.npz  MPS tensors and progress of an unfinished point
+    results.parquet           all finished points merged, in point order
+    figures/                  plots of the results (mpsobs.plots)
+    run.log                   what the command line did (appended)
+    run.lock                  present while a run works on the directory ("pid host")
+
+Every file is written to a temporary name in the same directory, flushed with fsync and
+moved into place with :func:`os.replace`, so a reader (or a run killed at any moment)
+sees either the old file or the complete new one, never part of one. A point file
+exists only for a finished point; it is the point's finished flag. Its Parquet schema
+metadata (key ``mpsobs.point``) holds the point's resolved parameters.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import logging
+import os
+import socket
+import time
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from mpsobs import __version__
+from mpsobs.errors import InputError
+from mpsobs.spec import Point, RunSpec
+
+__all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
+           "read_results", "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
+
+log = logging.getLogger(__name__)
+
+SPEC_FILE = "spec.json"
+RESULTS_FILE = "results.parquet"
+LOCK_FILE = "run.lock"
+LOG_FILE = "run.log"
+POINTS_DIR = "points"
+CHECKPOINTS_DIR = "checkpoints"
+FIGURES_DIR = "figures"
+#: A lock file left empty for longer than this (seconds) is treated as stale.
+EMPTY_LOCK_AGE = 10.0
+_META_KEY = b"mpsobs.point"
+
+
+class RunDirError(InputError):
+    """The run directory cannot be used: another run's directory, or in use."""
+
+
+# --------------------------------------------------------------------------- atomic files
+
+
+def _fsync_dir(path: Path) -> None:
+    with contextlib.suppress(OSError):  # not every file system lets a directory be synced
+        fd = os.open(path, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+
+
+@contextlib.contextmanager
+def atomic_write(path: Path) -> Iterator[Path]:
+    """Yield a temporary path next to ``path``; on success fsync it and move it into
+    place with os.replace (readers see the old or the whole new file), else remove it.
+
+    The temporary name starts with a dot and ends with ``.tmp``, so globs for the final
+    suffix never see it.
+    """
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.{time.monotonic_ns()}.tmp")
+    try:
+        yield tmp
+        fd = os.open(tmp, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        os.replace(tmp, path)
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+    _fsync_dir(path.parent)
+
+
+def _write_json(path: Path, obj) -> None:
+    with atomic_write(path) as tmp:
+        tmp.write_text(json.dumps(obj, indent=1) + "\n", encoding="utf-8")
+
+
+def _write_parquet(path: Path, frame: pd.DataFrame, metadata: dict | None = None) -> None:
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    if metadata:
+        merged = dict(table.schema.metadata or {})
+        merged.update({k.encode() if isinstance(k, str) else k: v.encode()
+                       for k, v in metadata.items()})
+        table = table.replace_schema_metadata(merged)
+    with atomic_write(path) as tmp:
+        pq.write_table(table, tmp)
+
+
+# --------------------------------------------------------------------------- identity
+
+
+def _read_spec_file(root: Path) -> dict | None:
+    file = root / SPEC_FILE
+    if not file.exists():
+        return None
+    try:
+        return json.loads(file.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError) as exc:
+        raise RunDirError(f"--out: {file} is unreadable ({exc}); it is not a usable mpsobs "
+                          f"run directory") from None
+
+
+def check_target(root: Path, spec: RunSpec) -> None:
+    """Raise RunDirError unless ``root`` is absent, empty, or a run of this same spec.
+
+    Reads only; writes nothing.
+    """
+    root = Path(root)
+    if not root.exists():
+        return
+    if not root.is_dir():
+        raise RunDirError(f"--out: {root} exists and is not a directory")
+    stored = _read_spec_file(root)
+    if stored is None:
+        if any(entry.name != LOCK_FILE for entry in root.iterdir()):
+            raise RunDirError(f"--out: {root} is not empty and holds no mpsobs run "
+                              f"({SPEC_FILE} missing); choose an empty or new directory")
+        return
+    if stored.get("run_id") != spec.run_id:
+        raise RunDirError(
+            f"--out: {root} holds another run (spec {stored.get('name')!r} from "
+            f"{stored.get('source')}); its results would mix with this spec's. Choose "
+            f"another directory (--out or output.dir) or delete that run")
+
+
+# --------------------------------------------------------------------------- lock
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _take_lock(path: Path) -> None:
+    """Create the lock file exclusively with "pid host"; replace it if it is stale."""
+    me = f"{os.getpid()} {socket.gethostname()}\n"
+    for _ in range(2):
+        try:
+            fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+        except FileExistsError:
+            if not _stale(path):
+                holder = path.read_text(errors="replace").strip() or "unknown"
+                raise RunDirError(
+                    f"--out: {path.parent} is in use by another mpsobs run (process "
+                    f"{holder}); wait for it to finish. If that process is gone, remove "
+                    f"{path}") from None
+            log.warning("removing stale lock %s", path)
+            with contextlib.suppress(FileNotFoundError):
+                path.unlink()
+            continue
+        with os.fdopen(fd, "w") as handle:
+            handle.write(me)
+            handle.flush()
+            os.fsync(handle.fileno())
+        return
+    raise RunDirError(f"--out: could not take the lock {path}; another run started at the "
+                      f"same moment")
+
+
+def _stale(path: Path) -> bool:
+    """A lock is stale if it names a dead process on this host, or stayed empty."""
+    try:
+        text = path.read_text(errors="replace").split()
+        age = time.time() - path.stat().st_mtime
+    except FileNotFoundError:
+        return True
+    if len(text) < 2 or not text[0].isdigit():
+        return age > EMPTY_LOCK_AGE
+    pid, host = int(text[0]), text[1]
+    return host == socket.gethostname() and not _pid_alive(pid)
+
+
+# --------------------------------------------------------------------------- store
+
+
+class RunStore:
+    """Files of one run directory. Workers use it too (point files and checkpoints);
+    only the client that holds the lock writes the spec and the merged table."""
+
+    def __init__(self, root: str | Path):
+        self.root = Path(root)
+
+    @property
+    def points_dir(self) -> Path:
+        return self.root / POINTS_DIR
+
+    @property
+    def checkpoints_dir(self) -> Path:
+        return self.root / CHECKPOINTS_DIR
+
+    @property
+    def figures_dir(self) -> Path:
+        return self.root / FIGURES_DIR
+
+    @property
+    def results_path(self) -> Path:
+        return self.root / RESULTS_FILE
+
+    def point_path(self, point_id: str) -> Path:
+        return self.points_dir / f"{point_id}.parquet"
+
+    def checkpoint_path(self, point_id: str) -> Path:
+        return self.checkpoints_dir / f"{point_id}.npz"
+
+    # points ------------------------------------------------------------------------
+
+    def finished(self, point_id: str) -> bool:
+        return self.point_path(point_id).exists()
+
+    def write_point(self, point: Point, frame: pd.DataFrame) -> Path:
+        """Write a finished point's rows atomically (with its parameters as metadata)."""
+        self.points_dir.mkdir(parents=True, exist_ok=True)
+        meta = {"point_id": point.point_id, "index": point.index, "seed": point.seed,
+                "label": point.label, "params": point.params, "mpsobs_version": __version__}
+        path = self.point_path(point.point_id)
+        _write_parquet(path, frame, {_META_KEY.decode(): json.dumps(meta)})
+        log.debug("point %s written (%d rows)", point.point_id, len(frame))
+        return path
+
+    def read_point(self, point_id: str) -> pd.DataFrame:
+        return pd.read_parquet(self.point_path(point_id))
+
+    # checkpoints -------------------------------------------------------------------
+
+    def save_checkpoint(self, point_id: str, tensors: Sequence[np.ndarray], meta: dict) -> None:
+        """Atomically store an unfinished point's MPS tensors and its progress ``meta``
+        (JSON-serialisable: time, cumulative discarded weight, initial energy, rows)."""
+        self.checkpoints_dir.mkdir(parents=True, exist_ok=True)
+        arrays = {f"tensor_{i:05d}": np.asarray(t) for i, t in enumerate(tensors)}
+        arrays["meta"] = np.array(json.dumps(meta))
+        with atomic_write(self.checkpoint_path(point_id)) as tmp:
+            with open(tmp, "wb") as handle:
+                np.savez(handle, **arrays)
+
+    def load_checkpoint(self, point_id: str) -> tuple[list[np.ndarray], dict] | None:
+        """The last checkpoint of a point (tensors, meta), or None."""
+        path = self.checkpoint_path(point_id)
+        if not path.exists():
+            return None
+        try:
+            with np.load(path, allow_pickle=False) as data:
+                names = sorted(n for n in data.files if n.startswith("tensor_"))
+                tensors = [data[n] for n in names]
+                meta = json.loads(str(data["meta"]))
+        except (OSError, ValueError, KeyError) as exc:
+            log.warning("ignoring unreadable checkpoint %s (%s)", path, exc)
+            return None
+        return tensors, meta
+
+    def drop_checkpoint(self, point_id: str) -> None:
+        with contextlib.suppress(FileNotFoundError):
+            self.checkpoint_path(point_id).unlink()
+
+    # merged table ------------------------------------------------------------------
+
+    def merge(self, points: Sequence[Point]) -> pd.DataFrame:
+        """Concatenate the finished points (in point order) into results.parquet.
+
+        Returns the merged table (empty if no point has finished).
+        """
+        frames = [self.read_point(p.point_id) for p in points if self.finished(p.point_id)]
+        frames = [f for f in frames if len(f)]
+        merged = (pd.concat(frames, ignore_index=True) if frames else pd.DataFrame())
+        if frames:
+            _write_parquet(self.results_path, merged)
+        return merged
+
+
+def _spec_record(spec: RunSpec) -> dict:
+    return {"run_id": spec.run_id, "name": spec.name, "source": spec.source,
+            "mpsobs_version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "spec": spec.body,
+            "points": [{"index": p.index, "point_id": p.point_id, "seed": p.seed,
+                        "label": p.label} for p in spec.points]}
+
+
+@contextlib.contextmanager
+def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
+    """Create (or reopen) the run directory of ``spec`` and hold its lock.
+
+    Refuses (RunDirError) a directory of another run or one locked by a live process;
+    a lock left by a dead process on this host is replaced. The spec is written once.
+    """
+    root = Path(root)
+    check_target(root, spec)
+    root.mkdir(parents=True, exist_ok=True)
+    lock = root / LOCK_FILE
+    _take_lock(lock)
+    try:
+        check_target(root, spec)  # another run may have claimed it meanwhile
+        if not (root / SPEC_FILE).exists():
+            _write_json(root / SPEC_FILE, _spec_record(spec))
+        yield RunStore(root)
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            lock.unlink()
+
+
+def read_results(root: str | Path) -> pd.DataFrame:
+    """The merged results table of a run directory (InputError if there is none)."""
+    path = Path(root) / RESULTS_FILE
+    if not path.exists():
+        raise InputError(f"RUN_DIR: {path} does not exist; run `mpsobs run` first")
+    return pd.read_parquet(path)

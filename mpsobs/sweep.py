@@ -1,0 +1,270 @@
+"""Run the points of a spec as Dask tasks and merge their rows into one table.
+
+Each unfinished point is one task. The worker that runs it loads the point's last
+checkpoint (if any), calls the kernel, saves checkpoints as the kernel offers them (at
+most every ``checkpoint_seconds``), and writes the finished point's Parquet file itself,
+atomically: a point is on disk the moment it is done, whatever happens to the client
+afterwards. The client only watches (:func:`distributed.as_completed`), shows progress
+and merges the table at the end. A task whose worker dies is rerun by the Dask scheduler
+on another worker and resumes from the checkpoint. Workers must see the run directory
+(same machine or a shared file system).
+
+Execution: a :class:`distributed.LocalCluster` (one worker process per core, one thread
+each, BLAS pinned to one thread per worker through OMP/OPENBLAS/MKL_NUM_THREADS in the
+worker environment), or an existing scheduler given by its address.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+import threading
+import time
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
+from typing import Protocol
+
+import numpy as np
+import pandas as pd
+
+from mpsobs.errors import InputError
+from mpsobs.spec import Point, RunSpec
+from mpsobs.store import RunStore
+
+__all__ = ["Kernel", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
+           "WORKER_ENV", "PROGRESS_TOPIC"]
+
+log = logging.getLogger(__name__)
+
+#: Environment of local worker processes: one BLAS/OpenMP thread each.
+WORKER_ENV = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+#: Dask event topic on which workers report progress inside points.
+PROGRESS_TOPIC = "mpsobs-progress"
+#: Smallest interval (s) between two progress events of one point.
+PROGRESS_INTERVAL = 0.5
+
+Checkpoint = tuple[list[np.ndarray], dict]
+
+
+class Kernel(Protocol):
+    """Computes one point: returns its rows. ``progress(done, total)`` reports work units
+    (time steps) done; ``resume`` is the last checkpoint (tensors, meta) or None;
+    ``save(tensors, meta)`` offers a checkpoint (the caller decides whether to write it).
+    A kernel must be a pure function of the point (same rows whatever runs it)."""
+
+    def __call__(self, point: Point, *, progress: Callable[[int, int], None] | None = None,
+                 resume: Checkpoint | None = None,
+                 save: Callable[[list[np.ndarray], dict], None] | None = None
+                 ) -> pd.DataFrame: ...
+
+
+@dataclass(frozen=True)
+class SweepReport:
+    """What a sweep did: points in the spec, skipped (finished before), computed now,
+    failed (with their error messages), and the merged table."""
+
+    total: int
+    skipped: int
+    computed: int
+    failed: tuple[tuple[Point, str], ...]
+    table: pd.DataFrame = field(repr=False)
+
+
+def _default_kernel() -> Kernel:
+    from mpsobs.point import compute_point
+
+    return compute_point
+
+
+def run_point_task(point: Point, root: str, kernel: Kernel | None,
+                   checkpoint_seconds: float) -> dict:
+    """The task run on a worker: compute one point and write it to the store.
+
+    Returns a small summary (point_id, rows, seconds, resumed, skipped).
+    """
+    kernel = kernel or _default_kernel()
+    store = RunStore(root)
+    if store.finished(point.point_id):  # a rerun of a task whose first run completed
+        return {"point_id": point.point_id, "skipped": True}
+    resume = store.load_checkpoint(point.point_id)
+    if resume is not None:
+        log.info("point %s resumes from its checkpoint", point.point_id)
+    last_save = [time.monotonic()]
+
+    def save(tensors: list[np.ndarray], meta: dict) -> None:
+        now = time.monotonic()
+        if now - last_save[0] >= checkpoint_seconds:
+            store.save_checkpoint(point.point_id, tensors, meta)
+            last_save[0] = now
+
+    start = time.monotonic()
+    frame = kernel(point, progress=_progress_reporter(point), resume=resume, save=save)
+    store.write_point(point, frame)
+    store.drop_checkpoint(point.point_id)
+    return {"point_id": point.point_id, "rows": len(frame), "skipped": False,
+            "resumed": resume is not None, "seconds": time.monotonic() - start}
+
+
+def _progress_reporter(point: Point) -> Callable[[int, int], None] | None:
+    """A progress callback that sends throttled Dask events from the worker."""
+    try:
+        from distributed import get_worker
+
+        worker = get_worker()
+    except ValueError:  # not on a Dask worker
+        return None
+    last = [0.0]
+
+    def report(done: int, total: int) -> None:
+        now = time.monotonic()
+        if done >= total or now - last[0] >= PROGRESS_INTERVAL:
+            last[0] = now
+            worker.log_event(PROGRESS_TOPIC, {"point_id": point.point_id, "done": int(done),
+                                              "total": int(total)})
+
+    return report
+
+
+@contextlib.contextmanager
+def local_cluster(workers: int | None = None):
+    """A LocalCluster with ``workers`` single-threaded worker processes (default: one per
+    core) and BLAS pinned to one thread per worker; yields a connected Client."""
+    from distributed import Client, LocalCluster
+
+    n = workers or os.cpu_count() or 1
+    with LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                      dashboard_address=None, env=dict(WORKER_ENV),
+                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+        yield client
+
+
+@contextlib.contextmanager
+def _client(workers: int | None, scheduler: str | None) -> Iterator:
+    if scheduler is None:
+        with local_cluster(workers) as client:
+            yield client
+        return
+    from distributed import Client
+
+    try:
+        client = Client(scheduler, timeout="30s")
+    except OSError as exc:
+        raise InputError(f"--scheduler: cannot reach {scheduler} ({exc})") from None
+    with client:
+        yield client
+
+
+class _Bars:
+    """Two tqdm bars on the client: points done of total, and time steps done inside the
+    points still running (from the workers' progress events)."""
+
+    def __init__(self, points: Sequence[Point], skipped: int, steps_per_point: dict,
+                 enabled: bool):
+        from tqdm.auto import tqdm
+
+        self._lock = threading.Lock()
+        self._done: dict[str, int] = {}
+        self._totals = steps_per_point
+        self.points = tqdm(total=len(points), initial=skipped, desc="points", unit="pt",
+                           disable=not enabled, position=0, dynamic_ncols=True)
+        self.steps = tqdm(total=sum(steps_per_point.values()), desc="time steps",
+                          unit="step", disable=not enabled, position=1, dynamic_ncols=True,
+                          leave=False)
+
+    def on_event(self, event) -> None:
+        _, msg = event
+        with self._lock:
+            pid = msg.get("point_id")
+            if pid not in self._totals:
+                return
+            new = min(int(msg.get("done", 0)), self._totals[pid])
+            delta = new - self._done.get(pid, 0)
+            if delta > 0:
+                self._done[pid] = new
+                self.steps.update(delta)
+
+    def point_finished(self, point_id: str) -> None:
+        with self._lock:
+            rest = self._totals.get(point_id, 0) - self._done.get(point_id, 0)
+            self._done[point_id] = self._totals.get(point_id, 0)
+            if rest > 0:
+                self.steps.update(rest)
+            self.points.update(1)
+
+    def close(self) -> None:
+        self.steps.close()
+        self.points.close()
+
+
+def _steps(point: Point) -> int:
+    params = point.params
+    try:
+        return max(1, round(params["times"]["values"][-1] / params["evolution"]["dt"]))
+    except (KeyError, IndexError, TypeError):
+        return 1
+
+
+def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
+              scheduler: str | None = None, kernel: Kernel | None = None,
+              progress: bool = False) -> SweepReport:
+    """Compute every unfinished point of ``spec`` into ``store`` and merge the table.
+
+    Parameters
+    ----------
+    spec, store : the validated spec and its open run directory (see
+        :func:`mpsobs.store.open_run`, which holds the lock).
+    workers : local worker processes (default: one per core); not with ``scheduler``.
+    scheduler : address of a running Dask scheduler (e.g. ``tcp://host:8786``).
+    kernel : computes one point (default :func:`mpsobs.point.compute_point`); it must
+        be importable (or picklable) on the workers.
+    progress : show tqdm bars (points, and time steps inside running points).
+
+    Finished points (their Parquet file exists) are skipped; a point that fails is
+    logged and reported, the others go on.
+    """
+    if workers is not None and scheduler is not None:
+        raise InputError("--workers: the workers of an existing scheduler are its own; "
+                         "give --workers or --scheduler, not both")
+    if workers is not None and workers < 1:
+        raise InputError(f"--workers: expected an integer >= 1, got {workers}")
+    from distributed import as_completed
+
+    todo = [p for p in spec.points if not store.finished(p.point_id)]
+    skipped = len(spec.points) - len(todo)
+    if skipped:
+        log.info("%d of %d points finished before; skipping them", skipped, len(spec.points))
+    failed: list[tuple[Point, str]] = []
+    computed = 0
+    if todo:
+        bars = _Bars(spec.points, skipped, {p.point_id: _steps(p) for p in todo}, progress)
+        try:
+            with _client(workers, scheduler) as client:
+                if progress:
+                    client.subscribe_topic(PROGRESS_TOPIC, bars.on_event)
+                futures = {client.submit(run_point_task, p, str(store.root), kernel,
+                                         spec.checkpoint_seconds, pure=False,
+                                         key=f"mpsobs-point-{p.point_id}-{spec.run_id[:8]}"): p
+                           for p in todo}
+                log.info("submitted %d points to %s", len(todo), client.scheduler.address)
+                for future in as_completed(futures):
+                    point = futures[future]
+                    try:
+                        summary = future.result()
+                    except Exception as exc:  # a point's failure must not stop the others
+                        message = f"{type(exc).__name__}: {exc}"
+                        failed.append((point, message))
+                        log.error("point %s (%s) failed: %s", point.point_id, point.label,
+                                  message)
+                    else:
+                        computed += 1
+                        log.info("point %s (%s) done: %s", point.point_id, point.label,
+                                 summary)
+                    bars.point_finished(point.point_id)
+                if progress:
+                    client.unsubscribe_topic(PROGRESS_TOPIC)
+        finally:
+            bars.close()
+    table = store.merge(spec.points)
+    return SweepReport(total=len(spec.points), skipped=skipped, computed=computed,
+                       failed=tuple(failed), table=table)
