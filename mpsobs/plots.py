@@ -1,0 +1,268 @@
+"""Figures of a run: observational entropy per site against time, for a paper.
+
+Every figure is one column wide (PANEL_WIDTH inches) with one panel per coarse-graining
+stacked vertically; each chain length L keeps one colour in every figure of a run
+(:func:`length_colors`). Entropies are per site in nats (natural logarithms), times in
+units of 1/J; shaded bands are +- one standard error. One set of figures is made per
+combination of the parameters other than L. Figures are built on
+:class:`matplotlib.figure.Figure` with the Agg canvas, so no display is ever opened
+and pyplot's global state is left alone.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Callable, Iterable, Mapping
+from pathlib import Path
+
+import matplotlib
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+
+from mpsobs import scaling
+
+__all__ = [
+    "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "entropy_figure",
+    "parts_figure", "knowledge_figure", "collapse_figure", "save_figure", "plot_results",
+    "plot_run",
+]
+
+#: Width of one panel in inches (a single journal column).
+PANEL_WIDTH = 3.4
+#: Height of one panel in inches.
+PANEL_HEIGHT = 2.0
+#: Matplotlib settings used for every figure.
+PAPER_STYLE = {
+    "font.size": 8, "axes.titlesize": 8, "axes.labelsize": 8, "legend.fontsize": 7,
+    "xtick.labelsize": 7, "ytick.labelsize": 7, "lines.linewidth": 1.2,
+    "axes.grid": True, "grid.alpha": 0.3, "grid.linewidth": 0.5,
+    "savefig.dpi": 300, "pdf.fonttype": 42, "legend.frameon": False,
+}
+
+TIME_LABEL = r"time $t$ [$1/J$]"
+BAND_ALPHA = 0.25
+LN2_STYLE = {"color": "0.45", "linestyle": ":", "linewidth": 1.0}
+
+ENTROPY_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo",
+                   "S_ent_half")
+PARTS_COLUMNS = ("t", "coarse_graining", "L", "S_shannon", "S_boltzmann")
+KNOWLEDGE_COLUMNS = ("t", "coarse_graining", "L", "knowledge", "S_obs_err", "S_max",
+                     "S_thermo")
+
+Draw = Callable[[object, pd.DataFrame, int, object], None]
+
+
+def length_colors(lengths: Iterable[int]) -> dict[int, tuple]:
+    """A colour per chain length, ordered along the viridis map (dark = small L)."""
+    unique = sorted({int(L) for L in lengths})
+    cmap = matplotlib.colormaps["viridis"]
+    positions = np.linspace(0.0, 0.85, len(unique)) if len(unique) > 1 else [0.35]
+    return {L: cmap(p) for L, p in zip(unique, positions, strict=True)}
+
+
+def _band(ax, t, y, err, color, linestyle="-") -> None:
+    ax.plot(t, y, color=color, linestyle=linestyle)
+    if err is not None and np.any(np.asarray(err) > 0):
+        ax.fill_between(t, y - err, y + err, color=color, alpha=BAND_ALPHA, linewidth=0)
+
+
+def _column(curve: pd.DataFrame, name: str) -> np.ndarray | None:
+    return curve[name].to_numpy(dtype=float) if name in curve else None
+
+
+def _text(value: str) -> str:
+    """Text shown literally (no mathtext)."""
+    return str(value).replace("$", r"\$")
+
+
+def _legend(fig: Figure, colors: Mapping[int, tuple], styles: list[Line2D]) -> None:
+    """Colours per L above the panels, line styles below them."""
+    lengths = [Line2D([], [], color=c, label=f"$L={L}$") for L, c in colors.items()]
+    fig.legend(handles=lengths, loc="outside upper center", ncols=min(4, len(lengths)),
+               handlelength=1.5, columnspacing=1.0)
+    if styles:
+        fig.legend(handles=styles, loc="outside lower center",
+                   ncols=len(styles) if len(styles) <= 2 else 2,
+                   handlelength=2.2, columnspacing=1.2)
+
+
+def _title(key: Mapping[str, object]) -> str:
+    """Panel title: the coarse-graining, then the other parameter values."""
+    others = [f"{k} = {v}" for k, v in key.items() if k != "coarse_graining"]
+    return _text(str(key["coarse_graining"]) + (f" ({', '.join(others)})" if others else ""))
+
+
+def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None, draw: Draw,
+                  ylabel: str, styles: list[Line2D],
+                  decorate: Callable[[object], None] | None = None) -> Figure:
+    """One panel per coarse-graining (and value of the other parameters), with
+    ``draw(ax, curve, L, colour)`` per chain length, then ``decorate(ax)``."""
+    colors = dict(colors) if colors is not None else length_colors(results["L"])
+    panels = scaling.split(results, scaling.group_columns(results))
+    with matplotlib.rc_context(PAPER_STYLE):
+        fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT * len(panels) + 0.8),
+                     layout="constrained")
+        FigureCanvasAgg(fig)
+        axes = fig.subplots(len(panels), 1, sharex=True, squeeze=False)[:, 0]
+        for ax, (key, rows) in zip(axes, panels, strict=True):
+            for (L,), curve in rows.groupby(["L"], sort=True):
+                draw(ax, curve.sort_values("t"), int(L), colors[int(L)])
+            if decorate is not None:
+                decorate(ax)
+            ax.set_title(_title(key))
+            ax.set_ylabel(ylabel)
+            ax.set_xlim(results["t"].min(), results["t"].max())
+        axes[-1].set_xlabel(TIME_LABEL)
+        _legend(fig, {L: colors[L] for L in sorted(colors) if L in set(results["L"])}, styles)
+    return fig
+
+
+def _style(label: str, **line) -> Line2D:
+    return Line2D([], [], color=line.pop("color", "0.2"), label=label, **line)
+
+
+def entropy_figure(results: pd.DataFrame,
+                   colors: Mapping[int, tuple] | None = None) -> Figure:
+    """S_obs(t)/L per L with error bands, S_thermo/L (dashed), S_ent_half/L (dash-dot)
+    and the maximum ln 2 per site (dotted); one panel per coarse-graining."""
+    scaling.require_columns(results, ENTROPY_COLUMNS, "entropy figure")
+
+    def draw(ax, curve, L, color):
+        t = curve["t"].to_numpy(dtype=float)
+        _band(ax, t, curve["S_obs"].to_numpy(dtype=float) / L,
+              curve["S_obs_err"].to_numpy(dtype=float) / L, color)
+        ax.plot(t, curve["S_thermo"].to_numpy(dtype=float) / L, color=color, linestyle="--",
+                linewidth=0.9)
+        ax.plot(t, curve["S_ent_half"].to_numpy(dtype=float) / L, color=color,
+                linestyle="-.", linewidth=0.8)
+
+    def ln2(ax):
+        ax.axhline(np.log(2.0), **LN2_STYLE)
+
+    styles = [_style(r"$S_\mathrm{obs}/L$"), _style(r"$S_\mathrm{thermo}/L$", linestyle="--"),
+              _style(r"$S_\mathrm{ent}^{L/2}/L$", linestyle="-.", linewidth=0.8),
+              _style(r"$\ln 2$", **LN2_STYLE)]
+    return _panel_figure(results, colors, draw, "entropy per site [nats]", styles, ln2)
+
+
+def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None) -> Figure:
+    """Shannon part H(p)/L (solid) and mean Boltzmann entropy sum p ln V / L (dashed)
+    per L, with error bands where S_shannon_err / S_boltzmann_err are present."""
+    scaling.require_columns(results, PARTS_COLUMNS, "parts figure")
+
+    def draw(ax, curve, L, color):
+        t = curve["t"].to_numpy(dtype=float)
+        for name, linestyle in (("S_shannon", "-"), ("S_boltzmann", "--")):
+            err = _column(curve, f"{name}_err")
+            _band(ax, t, curve[name].to_numpy(dtype=float) / L,
+                  None if err is None else err / L, color, linestyle)
+
+    styles = [_style(r"Shannon $H(p)/L$"),
+              _style(r"Boltzmann $\sum p_i \ln V_i/L$", linestyle="--")]
+    return _panel_figure(results, colors, draw, "entropy per site [nats]", styles)
+
+
+def knowledge_figure(results: pd.DataFrame,
+                     colors: Mapping[int, tuple] | None = None) -> Figure:
+    """Knowledge K/L = (S_max - S_obs)/L per L with error bands (error S_obs_err/L) and
+    its thermodynamic value (S_max - S_thermo)/L (dashed)."""
+    scaling.require_columns(results, KNOWLEDGE_COLUMNS, "knowledge figure")
+
+    def draw(ax, curve, L, color):
+        t = curve["t"].to_numpy(dtype=float)
+        _band(ax, t, curve["knowledge"].to_numpy(dtype=float) / L,
+              curve["S_obs_err"].to_numpy(dtype=float) / L, color)
+        thermal = (curve["S_max"] - curve["S_thermo"]).to_numpy(dtype=float) / L
+        ax.plot(t, thermal, color=color, linestyle="--", linewidth=0.9)
+
+    styles = [_style(r"$K/L$"),
+              _style(r"$(S_\mathrm{max}-S_\mathrm{thermo})/L$", linestyle="--")]
+    return _panel_figure(results, colors, draw, "knowledge per site [nats]", styles)
+
+
+def collapse_figure(collapse: pd.DataFrame,
+                    colors: Mapping[int, tuple] | None = None) -> Figure:
+    """Data collapse: rise fraction against t / L^z, one panel per group of curves.
+
+    ``collapse`` is :func:`mpsobs.scaling.collapse_curves` output. The rise fraction is
+    (S_obs(t) - S_obs(0)) / (S_plateau - S_obs(0)); time is on a log axis (t = 0 left
+    out); the fitted z (+- error) is written in each panel (curves are left out where z
+    is not available); the dotted lines mark 1 and the fraction f used for t_f.
+    """
+    colors = dict(colors) if colors is not None else length_colors(collapse["L"])
+    panels = scaling.split(collapse, scaling.key_columns(collapse))
+    ncols = 1 if len(panels) <= 3 else 2
+    nrows = -(-len(panels) // ncols)
+    with matplotlib.rc_context(PAPER_STYLE):
+        fig = Figure(figsize=(PANEL_WIDTH * ncols, PANEL_HEIGHT * nrows + 0.5),
+                     layout="constrained")
+        FigureCanvasAgg(fig)
+        axes = fig.subplots(nrows, ncols, squeeze=False).ravel()
+        for ax, (key, rows) in zip(axes, panels, strict=False):
+            z, z_err = rows["z"].iloc[0], rows["z_err"].iloc[0]
+            if np.isfinite(z):
+                for (L,), curve in rows[rows["t"] > 0].groupby(["L"], sort=True):
+                    _band(ax, curve["scaled_time"].to_numpy(), curve["rise"].to_numpy(),
+                          curve["rise_err"].to_numpy(), colors[int(L)])
+                ax.set_xscale("log")
+                note = "$z = " + scaling.format_value(z, z_err).replace("+-", r"\pm") + "$"
+            else:
+                note = "z not available"
+            for level in (1.0, rows["saturation_fraction"].iloc[0]):
+                ax.axhline(level, **LN2_STYLE)
+            ax.text(0.97, 0.05, note, transform=ax.transAxes, ha="right", va="bottom")
+            ax.set_title(_title(key))
+            ax.set_xlabel(r"$t/L^z$ [$1/J$]")
+            ax.set_ylabel(r"$\frac{S_\mathrm{obs}(t)-S_\mathrm{obs}(0)}"
+                          r"{S_\mathrm{plat}-S_\mathrm{obs}(0)}$")
+        for ax in axes[len(panels):]:
+            ax.set_visible(False)
+        _legend(fig, {L: colors[L] for L in sorted(colors) if L in set(collapse["L"])}, [])
+    return fig
+
+
+def save_figure(fig: Figure, stem: str | os.PathLike) -> list[Path]:
+    """Write ``stem``.png and ``stem``.pdf (creating the directory); return the paths."""
+    stem = Path(stem)
+    stem.parent.mkdir(parents=True, exist_ok=True)
+    paths = [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
+    with matplotlib.rc_context(PAPER_STYLE):
+        for path in paths:
+            fig.savefig(path)
+    return paths
+
+
+def _suffix(key: Mapping[str, object]) -> str:
+    """File-name part naming the parameter values, e.g. '_Delta=0.5_h=1'."""
+    parts = [f"{name}={value}" for name, value in key.items()]
+    return "".join("_" + re.sub(r"[^A-Za-z0-9.=+-]+", "-", p) for p in parts)
+
+
+def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Path]:
+    """Write the entropy, parts and knowledge figures of a results table to ``directory``.
+
+    One set per combination of the parameters other than L (file names
+    ``entropy_<name>=<value>_....png`` etc., just ``entropy.png`` when L is the only
+    parameter), PNG and PDF each. Colours per L are shared by all figures.
+    """
+    scaling.require_columns(results, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
+                            "figures")
+    colors = length_colors(results["L"])
+    others = scaling.group_columns(results)[1:]
+    paths = []
+    for key, rows in scaling.split(results, others):
+        suffix = _suffix(key)
+        for name, make in (("entropy", entropy_figure), ("parts", parts_figure),
+                           ("knowledge", knowledge_figure)):
+            paths += save_figure(make(rows, colors), Path(directory) / f"{name}{suffix}")
+    return paths
+
+
+def plot_run(run_dir: str | os.PathLike) -> list[Path]:
+    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
+    run_dir = Path(run_dir)
+    return plot_results(scaling.read_results(run_dir), run_dir / "figures")

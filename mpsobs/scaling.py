@@ -1,0 +1,581 @@
+"""Finite-size scaling of observational-entropy curves read from a results table.
+
+A *curve* is S_obs(t) of one chain length L, one coarse-graining and one value of every
+other sweep parameter; a *group* is the set of curves that differ only in L. Entropies
+are reported per site in nats, times in units of 1/J.
+
+Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
+
+- plateau: mean of y_i = S_obs(t_i) / L over the *window*, the last ``window`` fraction
+  of the curve's time range (n points). Its error combines the propagated standard
+  errors and the scatter s (sample standard deviation, ddof = 1) over the window:
+
+      plateau_err = max(s, rms(e)) / sqrt(n),     rms(e) = sqrt(mean(e_i**2)).
+
+  This is the random-effects estimate: with y_i = mu + f_i + eps_i (temporal
+  fluctuation f of variance v, sampling noise eps of variance e_i**2),
+  Var(mean) = v / n + sum(e_i**2) / n**2 and s**2 estimates v + mean(e_i**2); taking
+  v = max(s**2 - mean(e_i**2), 0) gives the formula above. It treats the window's
+  points as independent (time correlations of the fluctuations are not modelled).
+- drift: mean of the second half of the window minus that of the first half, error
+  max(s_w, rms(e)) * sqrt(1/n_1 + 1/n_2) with s_w the pooled scatter about the two
+  half means. A drift beyond 4 errors is logged as a warning (no plateau yet) and then
+  added in quadrature to plateau_err, as a systematic error of an unsaturated curve.
+- deficit: S_thermo / L - plateau, error sqrt(plateau_err**2 + thermo_err**2) with
+  thermo_err = S_thermo_err / L (0 when the column is absent).
+- saturation time t_f: the time at which the curve has covered a fraction f of its
+  change from the first time point, i.e. crosses the level
+  c = S_0 + f (S_plateau - S_0) (with S_0 = 0: the time to reach f S_plateau). It is
+  measured as t_0 plus the time the piecewise-linear interpolant of the curve spends
+  short of c. For a monotone curve this is the linearly interpolated crossing; for a
+  noisy one it does not pick the first noise spike (a first-crossing rule is biased
+  early). Its error is sqrt(level**2 + max(noise**2, grid**2)) with
+    * level = |dt_f/dc| sqrt(f**2 plateau_err**2 + (1 - f)**2 e_0**2), dt_f/dc a
+      central difference of the estimator over +- max(2 rms(e), 1e-3 |change|);
+    * noise**2 = variance of the estimator over BOOTSTRAP_SAMPLES parametric resamples
+      y_i + e_i N(0, 1) of the curve (fixed seed BOOTSTRAP_SEED, so reproducible);
+    * grid = t_f - t_f(every other time point). For a locally quadratic curve |grid| is
+      at least the linear-interpolation error of t_f; its noise part is of the order of
+      noise, hence the max (as for the plateau).
+  It assumes the curve stays beyond c after crossing it, so (1 - f) |change| must be
+  well above the noise.
+
+Per group:
+
+- extrapolation: weighted least squares plateau_per_site = a + b / L (weights
+  1 / plateau_err**2); extrapolated_per_site = a.
+- exponent: weighted least squares ln t_f = ln A + z ln L (errors t_f_err / t_f).
+
+Straight-line fits follow the weighted least-squares formulas of Press et al.,
+Numerical Recipes, 3rd ed. (2007), Sec. 15.2. Parameter errors come from the inverse
+normal matrix; when the reduced chi-square exceeds 1 they are multiplied by
+sqrt(chi2_red) (the scale factor of the Particle Data Group, Review of Particle Physics,
+Introduction, "averaging procedures"). Errors below ERROR_FLOOR are raised to it before
+fitting, so exact, noiseless inputs give a fit whose errors come from the residuals.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from mpsobs.columns import parameter_columns
+from mpsobs.errors import InputError
+
+__all__ = [
+    "ERROR_FLOOR", "LineFit", "fit_line", "read_results", "require_columns",
+    "group_columns", "key_columns", "split", "plateaus", "extrapolate", "saturation_times",
+    "fit_exponent", "scaling_table", "collapse_curves", "scale_run", "format_table", "format_value",
+]
+
+log = logging.getLogger(__name__)
+
+#: Smallest standard error used as a fit weight (nats per site, or relative for t_f).
+ERROR_FLOOR = 1e-12
+#: Parametric resamples of a curve for the noise part of the saturation-time error.
+BOOTSTRAP_SAMPLES = 256
+#: Seed of those resamples (the same for every curve: the table is reproducible).
+BOOTSTRAP_SEED = 20240601
+#: Columns the scaling needs in the results table.
+SCALING_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo")
+
+_PLATEAU_OUT = (
+    "t_first", "t_last", "window_start", "plateau_points", "plateau_per_site",
+    "plateau_err", "plateau_spread", "plateau_drift", "plateau_drift_err",
+    "initial_per_site", "initial_err", "thermo_per_site", "thermo_err",
+    "deficit_per_site", "deficit_err", "discarded_weight_max", "pruned_mass_max",
+)
+_EXTRAPOLATION_OUT = (
+    "extrapolated_per_site", "extrapolated_err", "finite_size_slope",
+    "finite_size_slope_err", "extrapolation_chi2_red", "extrapolation_lengths",
+)
+_SATURATION_OUT = ("saturation_fraction", "saturation_time", "saturation_time_err")
+_EXPONENT_OUT = ("z", "z_err", "z_chi2_red", "saturation_prefactor",
+                 "saturation_prefactor_err", "z_lengths")
+_COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err")
+_OUTPUT = frozenset(("L",) + _PLATEAU_OUT + _EXTRAPOLATION_OUT + _SATURATION_OUT
+                    + _EXPONENT_OUT + _COLLAPSE_OUT)
+
+
+@dataclass(frozen=True)
+class LineFit:
+    """Weighted least-squares fit y = intercept + slope * x.
+
+    ``chi2`` is sum((y - fit) / sigma)**2 with ``dof`` = n - 2 degrees of freedom;
+    ``chi2_red`` = chi2 / dof (NaN when dof = 0). The errors include the scale factor
+    max(1, sqrt(chi2_red)).
+    """
+
+    intercept: float
+    intercept_err: float
+    slope: float
+    slope_err: float
+    chi2: float
+    dof: int
+
+    @property
+    def chi2_red(self) -> float:
+        return self.chi2 / self.dof if self.dof > 0 else float("nan")
+
+
+def fit_line(x: np.ndarray, y: np.ndarray, sigma: np.ndarray) -> LineFit:
+    """Weighted least-squares straight line through (x, y +- sigma).
+
+    Needs at least two distinct x. Cost O(n).
+    Reference: Press et al., Numerical Recipes, 3rd ed. (2007), Sec. 15.2.
+    """
+    x, y = np.asarray(x, dtype=float), np.asarray(y, dtype=float)
+    sigma = np.maximum(np.asarray(sigma, dtype=float), ERROR_FLOOR)
+    if np.unique(x).size < 2:
+        raise InputError(f"fit: a straight line needs at least two distinct x; got {x.tolist()}")
+    design = np.column_stack([np.ones_like(x), x]) / sigma[:, None]
+    normal_inverse = np.linalg.inv(design.T @ design)
+    coef = normal_inverse @ (design.T @ (y / sigma))
+    chi2 = float(np.sum(((y - coef[0] - coef[1] * x) / sigma) ** 2))
+    dof = x.size - 2
+    scale = max(1.0, chi2 / dof) if dof > 0 else 1.0
+    err = np.sqrt(np.diag(normal_inverse) * scale)
+    return LineFit(float(coef[0]), float(err[0]), float(coef[1]), float(err[1]), chi2, dof)
+
+
+def read_results(run_dir: str | os.PathLike) -> pd.DataFrame:
+    """The run table RUN_DIR/results.parquet."""
+    path = Path(run_dir) / "results.parquet"
+    if not path.is_file():
+        raise InputError(f"run_dir: no results table at {path}")
+    return pd.read_parquet(path)
+
+
+def require_columns(results: pd.DataFrame, needed, what: str) -> None:
+    """Raise InputError naming the columns of ``needed`` that ``results`` lacks."""
+    missing = [c for c in needed if c not in results.columns]
+    if missing:
+        raise InputError(f"{what}: the results table lacks the column(s) {', '.join(missing)} "
+                         f"(needs {', '.join(needed)})")
+
+
+def group_columns(results: pd.DataFrame) -> list[str]:
+    """Columns identifying a group of curves that differ only in L: the coarse-graining
+    and every parameter column other than L, in table order."""
+    return ["coarse_graining"] + [c for c in parameter_columns(results.columns) if c != "L"]
+
+
+def key_columns(table: pd.DataFrame) -> list[str]:
+    """The group columns of a table made by this module (every column it did not add)."""
+    return [c for c in table.columns if c not in _OUTPUT]
+
+
+def _describe(key: dict) -> str:
+    return ", ".join(f"{name}={value!r}" for name, value in key.items())
+
+
+def _hashable(results: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
+    """Copy of ``results`` with list or array parameter values replaced by their text."""
+    out = results.copy()
+    for name in columns:
+        if out[name].dtype == object:
+            out[name] = [repr(v.tolist()) if isinstance(v, np.ndarray)
+                         else repr(v) if isinstance(v, list | dict | set) else v
+                         for v in out[name]]
+    return out
+
+
+def split(results: pd.DataFrame, columns: list[str]) -> list[tuple[dict, pd.DataFrame]]:
+    """(values, rows) for each distinct combination of ``columns`` (NaN is a value; list
+    or array values are compared as text); ``[({}, results)]`` for no columns."""
+    if not columns:
+        return [({}, results)]
+    data = _hashable(results, columns)
+    return [(dict(zip(columns, values, strict=True)), rows)
+            for values, rows in data.groupby(columns, dropna=False, sort=True)]
+
+
+def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, pd.DataFrame]]]:
+    """Check the columns and split the table into time-sorted curves."""
+    require_columns(results, needed, "results")
+    keys = group_columns(results)
+    clash = sorted(_OUTPUT.intersection(keys))
+    if clash:
+        raise InputError(f"results: parameter column(s) {', '.join(clash)} clash with "
+                         "columns of the scaling table; rename the parameter")
+    data = results
+    bad = ~np.isfinite(data["S_obs"].to_numpy(dtype=float))
+    if bad.any():
+        log.warning("results: dropping %d rows whose S_obs is not finite", int(bad.sum()))
+        data = data[~bad]
+    if data.empty:
+        raise InputError("results: the table has no rows with a finite S_obs")
+    curves = []
+    for key, curve in split(data, keys + ["L"]):
+        times = curve["t"].to_numpy(dtype=float)
+        if np.unique(times).size != times.size:
+            raise InputError(f"results: several rows share the same t for {_describe(key)}; "
+                             "the parameter columns must identify one point per curve")
+        curves.append((key, curve.sort_values("t")))
+    return keys, curves
+
+
+def _check_options(window: float | None = None, fraction: float | None = None) -> None:
+    if window is not None and not (0.0 < window <= 1.0):
+        raise InputError(f"window: expected a fraction of the time range in (0, 1], got {window!r}")
+    if fraction is not None and not (0.0 < fraction < 1.0):
+        raise InputError(f"fraction: expected a number in (0, 1), got {fraction!r}")
+
+
+def _plateau_row(key: dict, curve: pd.DataFrame, window: float) -> dict:
+    L = key["L"]
+    t = curve["t"].to_numpy(dtype=float)
+    y = curve["S_obs"].to_numpy(dtype=float) / L
+    e = curve["S_obs_err"].to_numpy(dtype=float) / L
+    span = t[-1] - t[0]
+    if span <= 0:
+        raise InputError(f"results: a single time t={t[0]} for {_describe(key)}; "
+                         "a plateau needs a time range")
+    start = t[-1] - window * span
+    inside = t >= start - 1e-12 * span
+    n = int(inside.sum())
+    if n < 2:
+        raise InputError(f"window: the last {window} of the time range holds {n} time point "
+                         f"for {_describe(key)}; a plateau needs at least 2, use a larger window")
+    yw, ew = y[inside], e[inside]
+    spread = float(np.std(yw, ddof=1))
+    rms = float(np.sqrt(np.mean(ew**2)))
+    mean = float(np.mean(yw))
+    first, second = yw[: n // 2], yw[n // 2:]
+    drift = float(np.mean(second) - np.mean(first))
+    if n >= 4:
+        within = np.concatenate([first - first.mean(), second - second.mean()])
+        scatter = float(np.sqrt(np.sum(within**2) / (n - 2)))
+    else:
+        scatter = 0.0
+    drift_err = max(scatter, rms) * np.sqrt(1 / first.size + 1 / second.size)
+    plateau_err = max(spread, rms) / np.sqrt(n)
+    if abs(drift) > 4 * drift_err:
+        log.warning("plateau: S_obs/L still drifts by %.3g +- %.2g over the window for %s; "
+                    "the curve has not saturated (the drift is added to plateau_err)",
+                    drift, drift_err, _describe(key))
+        plateau_err = float(np.hypot(plateau_err, drift))
+    thermo = curve["S_thermo"].to_numpy(dtype=float)[inside] / L
+    thermo_err = (curve["S_thermo_err"].to_numpy(dtype=float)[inside] / L
+                  if "S_thermo_err" in curve else np.zeros(n))
+    thermo_mean, thermo_err_mean = float(np.mean(thermo)), float(np.mean(thermo_err))
+    if not np.isfinite(thermo_mean):
+        log.warning("plateau: S_thermo is not available for %s; its deficit is NaN",
+                    _describe(key))
+    return {
+        **key,
+        "t_first": t[0], "t_last": t[-1], "window_start": start, "plateau_points": n,
+        "plateau_per_site": mean, "plateau_err": plateau_err, "plateau_spread": spread,
+        "plateau_drift": drift, "plateau_drift_err": drift_err,
+        "initial_per_site": y[0], "initial_err": e[0],
+        "thermo_per_site": thermo_mean, "thermo_err": thermo_err_mean,
+        "deficit_per_site": thermo_mean - mean,
+        "deficit_err": float(np.hypot(plateau_err, thermo_err_mean)),
+        "discarded_weight_max": float(curve["discarded_weight"].max())
+        if "discarded_weight" in curve else float("nan"),
+        "pruned_mass_max": float(curve["pruned_mass"].max())
+        if "pruned_mass" in curve else float("nan"),
+    }
+
+
+def plateaus(results: pd.DataFrame, window: float = 0.3) -> pd.DataFrame:
+    """Late-time plateau of S_obs / L per curve, with the deficit from S_thermo / L.
+
+    Parameters
+    ----------
+    results : results table (columns of :data:`SCALING_COLUMNS` at least).
+    window : last fraction of each curve's time range taken as the plateau window.
+
+    Returns
+    -------
+    One row per (coarse_graining, other parameters, L): the group columns, ``L``,
+    ``plateau_per_site``, ``plateau_err`` (formula in the module docstring),
+    ``plateau_spread``, ``plateau_drift`` (+ ``_err``), ``plateau_points``, ``t_first``,
+    ``t_last``, ``window_start``, ``initial_per_site`` (+ ``initial_err``),
+    ``thermo_per_site`` (+ ``thermo_err``), ``deficit_per_site`` (+ ``deficit_err``),
+    ``discarded_weight_max`` and ``pruned_mass_max`` (NaN when the column is absent).
+    Entropies per site in nats.
+    """
+    _check_options(window=window)
+    _, curves = _curves(results, SCALING_COLUMNS)
+    return pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+
+
+def _groups(table: pd.DataFrame, what: str):
+    """Yield (group key dict, group rows sorted by L), requiring two or more lengths."""
+    for key, group in split(table, key_columns(table)):
+        lengths = np.unique(group["L"].to_numpy())
+        if lengths.size < 2:
+            raise InputError(f"{what}: only one chain length (L={lengths.tolist()}) for "
+                             f"{_describe(key)}; the fit needs at least two lengths")
+        yield key, group.sort_values("L")
+
+
+def extrapolate(plateaus_df: pd.DataFrame) -> pd.DataFrame:
+    """Extrapolate the plateaus to L -> infinity by plateau = a + b / L.
+
+    Parameters
+    ----------
+    plateaus_df : output of :func:`plateaus`.
+
+    Returns
+    -------
+    One row per group: the group columns, ``extrapolated_per_site`` (a) and
+    ``extrapolated_err``, ``finite_size_slope`` (b) and ``finite_size_slope_err``,
+    ``extrapolation_chi2_red`` (NaN with two lengths, logged) and
+    ``extrapolation_lengths``. Raises InputError for a group with a single L.
+    """
+    rows = []
+    for key, group in _groups(plateaus_df[key_columns(plateaus_df) + [
+            "L", "plateau_per_site", "plateau_err"]], "extrapolation"):
+        L = group["L"].to_numpy(dtype=float)
+        fit = fit_line(1.0 / L, group["plateau_per_site"], group["plateau_err"])
+        if fit.dof == 0:
+            log.warning("extrapolation: two lengths for %s; no chi-square test of a + b/L",
+                        _describe(key))
+        rows.append({**key, "extrapolated_per_site": fit.intercept,
+                     "extrapolated_err": fit.intercept_err,
+                     "finite_size_slope": fit.slope, "finite_size_slope_err": fit.slope_err,
+                     "extrapolation_chi2_red": fit.chi2_red, "extrapolation_lengths": L.size})
+    return pd.DataFrame(rows)
+
+
+def _time_short_of(t: np.ndarray, y: np.ndarray, level: float, sign: float) -> np.ndarray:
+    """t_0 plus the time the piecewise-linear interpolant of y (last axis) spends short
+    of ``level`` (below it for sign = +1, above it for sign = -1)."""
+    u = sign * (y - level)
+    a, b = u[..., :-1], u[..., 1:]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        part = np.where(a < 0, a / (a - b), b / (b - a))  # share of a crossing segment
+    share = np.where((a < 0) & (b < 0), 1.0, np.where((a >= 0) & (b >= 0), 0.0, part))
+    return t[0] + np.sum(share * np.diff(t), axis=-1)
+
+
+def _crossing(t: np.ndarray, y: np.ndarray, e: np.ndarray, plateau: float,
+              plateau_err: float, fraction: float) -> tuple[float, float]:
+    """(t_f, error) of S(t_f) = S_0 + f (plateau - S_0) on one curve (per-site values);
+    the estimator and its error are described in the module docstring."""
+    change = plateau - y[0]
+    if abs(change) <= 4 * np.hypot(plateau_err, e[0]):
+        return float("nan"), float("nan")
+    sign = float(np.sign(change))
+    level = y[0] + fraction * change
+    t_f = float(_time_short_of(t, y, level, sign))
+    # sensitivity dt_f / d level, by a central difference over the noise scale
+    step = min(max(2 * float(np.sqrt(np.mean(e**2))), 1e-3 * abs(change)),
+               0.5 * min(fraction, 1 - fraction) * abs(change))
+    per_level = abs(_time_short_of(t, y, level + step, sign)
+                    - _time_short_of(t, y, level - step, sign)) / (2 * step)
+    level_err = np.hypot(fraction * plateau_err, (1 - fraction) * e[0])
+    noise_var = 0.0
+    if np.any(e > 0):
+        rng = np.random.default_rng(np.random.SeedSequence(BOOTSTRAP_SEED))
+        resampled = y + e * rng.standard_normal((BOOTSTRAP_SAMPLES, y.size))
+        noise_var = float(np.var(_time_short_of(t, resampled, level, sign), ddof=1))
+    # grid: halving the points at least doubles the interpolation error of a locally
+    # quadratic curve; the difference's noise part is of the order of noise_var
+    grid = t_f - float(_time_short_of(t[::2], y[::2], level, sign)) if t.size > 2 else 0.0
+    return t_f, float(np.sqrt((per_level * level_err) ** 2 + max(noise_var, grid**2)))
+
+
+def _saturation_rows(curves, plateau_df: pd.DataFrame, fraction: float) -> pd.DataFrame:
+    rows = []
+    for (key, curve), plateau in zip(curves, plateau_df.itertuples(index=False), strict=True):
+        L = key["L"]
+        t_f, t_f_err = _crossing(curve["t"].to_numpy(dtype=float),
+                                 curve["S_obs"].to_numpy(dtype=float) / L,
+                                 curve["S_obs_err"].to_numpy(dtype=float) / L,
+                                 plateau.plateau_per_site, plateau.plateau_err, fraction)
+        if not np.isfinite(t_f):
+            log.warning("saturation: S_obs/L does not change significantly for %s; "
+                        "its saturation time is NaN", _describe(key))
+        rows.append({**key, "saturation_fraction": fraction, "saturation_time": t_f,
+                     "saturation_time_err": t_f_err})
+    return pd.DataFrame(rows)
+
+
+def saturation_times(results: pd.DataFrame, fraction: float = 0.9, *,
+                     window: float = 0.3) -> pd.DataFrame:
+    """Time for each curve to cover a fraction ``fraction`` of its rise to the plateau.
+
+    Parameters
+    ----------
+    results : results table.
+    fraction : f in S(t_f) = S_0 + f (S_plateau - S_0), S_0 at the first time point.
+    window : plateau window, as in :func:`plateaus`.
+
+    Returns
+    -------
+    One row per curve: group columns, ``L``, ``saturation_fraction``,
+    ``saturation_time`` and ``saturation_time_err`` (1/J; NaN, logged, when the curve
+    does not change by more than 4 errors).
+    """
+    _check_options(window=window, fraction=fraction)
+    _, curves = _curves(results, SCALING_COLUMNS)
+    plateau_df = pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+    return _saturation_rows(curves, plateau_df, fraction)
+
+
+def fit_exponent(saturation_df: pd.DataFrame) -> pd.DataFrame:
+    """Fit t_f = A L**z per group (weighted least squares in ln t_f against ln L).
+
+    Parameters
+    ----------
+    saturation_df : output of :func:`saturation_times`.
+
+    Returns
+    -------
+    One row per group: the group columns, ``z``, ``z_err``, ``z_chi2_red``,
+    ``saturation_prefactor`` (A, 1/J) and ``saturation_prefactor_err``, ``z_lengths``
+    (lengths with a finite t_f). Groups with fewer than two finite t_f get NaN, logged.
+    Raises InputError for a group with a single L.
+    """
+    rows = []
+    columns = key_columns(saturation_df) + ["L", "saturation_time", "saturation_time_err"]
+    for key, group in _groups(saturation_df[columns], "exponent"):
+        good = group[np.isfinite(group["saturation_time"]) & (group["saturation_time"] > 0)]
+        row = {**key, "z": np.nan, "z_err": np.nan, "z_chi2_red": np.nan,
+               "saturation_prefactor": np.nan, "saturation_prefactor_err": np.nan,
+               "z_lengths": len(good)}
+        if len(good) < 2:
+            log.warning("exponent: fewer than two lengths with a saturation time for %s; "
+                        "z is NaN", _describe(key))
+        else:
+            t_f = good["saturation_time"].to_numpy(dtype=float)
+            fit = fit_line(np.log(good["L"].to_numpy(dtype=float)), np.log(t_f),
+                           good["saturation_time_err"].to_numpy(dtype=float) / t_f)
+            if fit.dof == 0:
+                log.warning("exponent: two lengths for %s; no chi-square test of t_f ~ L^z",
+                            _describe(key))
+            prefactor = float(np.exp(fit.intercept))
+            row.update(z=fit.slope, z_err=fit.slope_err, z_chi2_red=fit.chi2_red,
+                       saturation_prefactor=prefactor,
+                       saturation_prefactor_err=prefactor * fit.intercept_err)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def scaling_table(results: pd.DataFrame, window: float = 0.3,
+                  fraction: float = 0.9) -> pd.DataFrame:
+    """The scaling table: one row per (coarse_graining, other parameters, L).
+
+    Columns: those of :func:`plateaus` and :func:`saturation_times`, plus the group fits
+    of :func:`extrapolate` and :func:`fit_exponent` repeated on every row of the group.
+    Raises InputError for missing columns or a group with a single L.
+    """
+    _check_options(window=window, fraction=fraction)
+    keys, curves = _curves(results, SCALING_COLUMNS)
+    plateau_df = pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+    saturation_df = _saturation_rows(curves, plateau_df, fraction)
+    table = plateau_df.merge(saturation_df, on=keys + ["L"], how="left")
+    table = table.merge(extrapolate(plateau_df), on=keys, how="left")
+    return table.merge(fit_exponent(saturation_df), on=keys, how="left")
+
+
+def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
+    """Curves rescaled for a data collapse with the fitted z of their group.
+
+    Parameters
+    ----------
+    results : results table.
+    table : its scaling table (:func:`scaling_table`).
+
+    Returns
+    -------
+    One row per (curve, t): the group columns, ``L``, ``t``, ``scaled_time`` =
+    t / L**z, ``rise`` = (S_obs/L - initial) / (plateau - initial) (= S_obs / S_plateau
+    when S_obs(0) = 0) and ``rise_err`` (from S_obs_err only), plus ``z``, ``z_err`` and
+    ``saturation_fraction`` of the group.
+    """
+    require_columns(results, SCALING_COLUMNS, "results")
+    keys = group_columns(results)
+    data = _hashable(results, keys)[keys + ["L", "t", "S_obs", "S_obs_err"]]
+    fits = table[keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
+                         "saturation_fraction"]]
+    merged = data.merge(fits, on=keys + ["L"], how="inner").sort_values(keys + ["L", "t"])
+    L = merged["L"].to_numpy(dtype=float)
+    change = (merged["plateau_per_site"] - merged["initial_per_site"]).to_numpy()
+    out = merged[keys + ["L", "t"]].reset_index(drop=True)
+    out["scaled_time"] = merged["t"].to_numpy() / L ** merged["z"].to_numpy()
+    out["rise"] = (merged["S_obs"].to_numpy() / L - merged["initial_per_site"].to_numpy()) / change
+    out["rise_err"] = merged["S_obs_err"].to_numpy() / L / np.abs(change)
+    for name in ("z", "z_err", "saturation_fraction"):
+        out[name] = merged[name].to_numpy()
+    return out
+
+
+def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
+    partial = path.with_name(path.name + ".partial")
+    if path.suffix == ".csv":
+        frame.to_csv(partial, index=False)
+    else:
+        frame.to_parquet(partial, index=False)
+    os.replace(partial, path)
+
+
+def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
+              fraction: float = 0.9) -> pd.DataFrame:
+    """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
+    with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
+
+    See :func:`scaling_table` for ``window`` and ``fraction``. Raises InputError (and
+    writes nothing) for a missing table, missing columns or a group with a single L.
+    """
+    from mpsobs import plots  # plots builds on this module; imported here to avoid a cycle
+
+    run_dir = Path(run_dir)
+    results = read_results(run_dir)
+    table = scaling_table(results, window=window, fraction=fraction)
+    collapse = collapse_curves(results, table)
+    _write_atomic(table, run_dir / "scaling.csv")
+    _write_atomic(table, run_dir / "scaling.parquet")
+    plots.save_figure(plots.collapse_figure(collapse), run_dir / "figures" / "collapse")
+    return table
+
+
+def format_value(value: float, err: float) -> str:
+    """'value +- err' with two significant digits of the error ('nan' for NaN; the value
+    alone, 6 significant digits, when the error is 0 or NaN)."""
+    if not np.isfinite(value):
+        return "nan"
+    if not np.isfinite(err) or err <= 0:
+        return f"{value:.6g}"
+    digits = int(min(10, max(0, 1 - np.floor(np.log10(err)))))
+    return f"{value:.{digits}f} +- {err:.{digits}f}"
+
+
+def format_table(df: pd.DataFrame) -> str:
+    """The scaling table as text: per-length plateaus, then the fits per group.
+
+    Entropies per site in nats, times in 1/J; every value is followed by its error.
+    """
+    keys = key_columns(df)
+    if df.empty:
+        return "(empty scaling table)"
+    fraction = df["saturation_fraction"].iloc[0]
+    per_length = df[keys + ["L"]].copy()
+    for label, value, err in [("plateau/L", "plateau_per_site", "plateau_err"),
+                              ("S_thermo/L", "thermo_per_site", "thermo_err"),
+                              ("deficit/L", "deficit_per_site", "deficit_err"),
+                              (f"t_{fraction:g}", "saturation_time", "saturation_time_err")]:
+        per_length[label] = [format_value(v, e) for v, e in zip(df[value], df[err], strict=True)]
+    fits = df.drop_duplicates(keys)
+    per_group = fits[keys].copy()
+    per_group["L_count"] = fits["extrapolation_lengths"].to_numpy()
+    per_group["plateau/L (L->inf)"] = [
+        format_value(v, e)
+        for v, e in zip(fits["extrapolated_per_site"], fits["extrapolated_err"], strict=True)]
+    per_group["chi2/dof"] = [f"{v:.2f}" for v in fits["extrapolation_chi2_red"]]
+    per_group[f"z (t_{fraction:g} ~ L^z)"] = [
+        format_value(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
+    per_group["z chi2/dof"] = [f"{v:.2f}" for v in fits["z_chi2_red"]]
+    return "\n".join([
+        "Plateaus per chain length (entropy per site in nats, time in 1/J):",
+        per_length.to_string(index=False), "",
+        "Fits over the chain lengths (plateau = a + b/L, weighted least squares):",
+        per_group.to_string(index=False)])

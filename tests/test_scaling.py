@@ -1,0 +1,213 @@
+"""Finite-size scaling of run tables.
+
+These are self-consistency checks of the fitting (fact of the trade: weighted least
+squares recovers the parameters of the model it fits within its reported standard
+errors); no published result is involved. The synthetic tables have a known plateau,
+a known 1/L correction and a known saturation-time exponent (mpsobs.synthetic); every
+tolerance is 4 reported standard errors.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from mpsobs import scaling
+from mpsobs.errors import InputError
+from mpsobs.synthetic import SaturationLaw, saturating_results
+
+LENGTHS = (8, 12, 16, 24)
+TIMES = np.arange(0.0, 200.0 + 1e-9, 0.5)
+LAWS = {
+    "number@b2": SaturationLaw(s_inf=0.55, c=-0.8, tau0=0.5, z=1.0, s_thermo=0.65),
+    # starts above zero: t_f is the time to cover the fraction f of the rise
+    "energy@b3": SaturationLaw(s_inf=0.60, c=-0.5, tau0=0.3, z=0.7, s_initial=0.2,
+                               s_thermo=0.66, c_thermo=-0.3),
+}
+SIGMAS = 4.0  # tolerance in reported standard errors
+FRACTION = 0.9
+STDERR = 0.01  # S_obs_err = STDERR * sqrt(L) nats
+
+
+def _results(stderr: float) -> pd.DataFrame:
+    return saturating_results(LENGTHS, TIMES, LAWS, stderr=stderr, seed=1,
+                              parameters={"Delta": [0.5, 1.0]})
+
+
+@pytest.fixture(scope="module", params=[STDERR, 0.0], ids=["sampled", "exact"])
+def table(request) -> pd.DataFrame:
+    return scaling.scaling_table(_results(request.param), window=0.3, fraction=FRACTION)
+
+
+def _within(value, truth, err) -> None:
+    value, truth, err = (np.asarray(a, dtype=float) for a in (value, truth, err))
+    # ERROR_FLOOR: noiseless curves can be exact to rounding
+    assert np.all(np.abs(value - truth) <= SIGMAS * err + scaling.ERROR_FLOOR), (
+        value, truth, err)
+
+
+def test_fit_line_matches_numpy_polyfit():
+    # reference library: numpy.polyfit with weights 1/sigma and the unscaled covariance
+    rng = np.random.default_rng(7)
+    x = np.linspace(0.0, 1.0, 9)
+    sigma = rng.uniform(0.05, 0.2, x.size)
+    y = 1.5 - 0.7 * x + sigma * rng.standard_normal(x.size)
+    fit = scaling.fit_line(x, y, sigma)
+    coef, cov = np.polyfit(x, y, 1, w=1 / sigma, cov="unscaled")
+    scale = max(1.0, fit.chi2_red)
+    assert fit.slope == pytest.approx(coef[0], rel=1e-10)
+    assert fit.intercept == pytest.approx(coef[1], rel=1e-10)
+    assert fit.slope_err == pytest.approx(np.sqrt(cov[0, 0] * scale), rel=1e-10)
+    assert fit.intercept_err == pytest.approx(np.sqrt(cov[1, 1] * scale), rel=1e-10)
+    assert fit.dof == x.size - 2
+    assert fit.chi2 == pytest.approx(np.sum(((y - np.polyval(coef, x)) / sigma) ** 2))
+
+
+def test_one_row_per_length_coarse_graining_and_parameter(table):
+    assert len(table) == len(LENGTHS) * len(LAWS) * 2
+    assert not table.duplicated(["coarse_graining", "Delta", "L"]).any()
+    for name in ("plateau_per_site", "plateau_err", "extrapolated_per_site",
+                 "extrapolated_err"):
+        assert np.isfinite(table[name]).all(), name
+
+
+def test_plateau_recovers_known_value(table):
+    truth = [LAWS[cg].plateau(L) for cg, L in zip(table.coarse_graining, table.L, strict=True)]
+    _within(table.plateau_per_site, truth, table.plateau_err)
+
+
+def test_plateau_error_is_at_least_the_propagated_standard_error():
+    # plateau_err = max(s, rms(e)) / sqrt(n): never below rms(e) / sqrt(n); for pure
+    # noise s / rms(e) - 1 has standard deviation ~ sqrt(1 / (2 (n - 1))) (handbook
+    # formula for the sample standard deviation of Gaussian data, from memory)
+    table = scaling.scaling_table(_results(STDERR), window=0.3, fraction=FRACTION)
+    n = table.plateau_points.to_numpy()
+    rms = STDERR / np.sqrt(table.L.to_numpy())  # S_obs_err / L of the synthetic table
+    propagated = rms / np.sqrt(n)
+    assert np.all(table.plateau_err >= propagated * (1 - 1e-12))
+    assert np.all(table.plateau_err <= propagated * (1 + SIGMAS / np.sqrt(2 * (n - 1))))
+
+
+def test_deficit_from_thermodynamic_reference(table):
+    law = [LAWS[cg] for cg in table.coarse_graining]
+    thermo = [g.s_thermo + g.c_thermo / L for g, L in zip(law, table.L, strict=True)]
+    assert np.allclose(table.thermo_per_site, thermo, rtol=1e-12)
+    truth = [t - g.plateau(L) for t, g, L in zip(thermo, law, table.L, strict=True)]
+    _within(table.deficit_per_site, truth, table.deficit_err)
+
+
+def test_extrapolation_recovers_infinite_length_value_and_correction(table):
+    groups = table.drop_duplicates(["coarse_graining", "Delta"])
+    law = [LAWS[cg] for cg in groups.coarse_graining]
+    _within(groups.extrapolated_per_site, [g.s_inf for g in law], groups.extrapolated_err)
+    _within(groups.finite_size_slope, [g.c for g in law], groups.finite_size_slope_err)
+    assert (groups.extrapolation_lengths == len(LENGTHS)).all()
+    # repeated on every row of the group
+    spread = table.groupby(["coarse_graining", "Delta"]).extrapolated_per_site.nunique()
+    assert (spread == 1).all()
+
+
+def test_saturation_time_and_exponent(table):
+    # t_f = tau0 L^z ln(1 / (1 - f)) for the synthetic law
+    law = [LAWS[cg] for cg in table.coarse_graining]
+    truth = [g.relaxation_time(L) * np.log(1 / (1 - FRACTION))
+             for g, L in zip(law, table.L, strict=True)]
+    _within(table.saturation_time, truth, table.saturation_time_err)
+    groups = table.drop_duplicates(["coarse_graining", "Delta"])
+    _within(groups.z, [LAWS[cg].z for cg in groups.coarse_graining], groups.z_err)
+    _within(groups.saturation_prefactor,
+            [LAWS[cg].tau0 * np.log(1 / (1 - FRACTION)) for cg in groups.coarse_graining],
+            groups.saturation_prefactor_err)
+
+
+def test_notebook_functions_agree_with_table(table):
+    results = _results(STDERR)
+    plateau = scaling.plateaus(results, window=0.3)
+    extrapolated = scaling.extrapolate(plateau)
+    times = scaling.saturation_times(results, fraction=FRACTION, window=0.3)
+    exponent = scaling.fit_exponent(times)
+    assert list(scaling.key_columns(extrapolated)) == ["coarse_graining", "Delta"]
+    assert len(extrapolated) == len(exponent) == len(LAWS) * 2
+    full = scaling.scaling_table(results, 0.3, FRACTION)
+    merged = full.merge(extrapolated, on=["coarse_graining", "Delta"], suffixes=("", "_b"))
+    assert np.array_equal(merged.extrapolated_per_site, merged.extrapolated_per_site_b)
+    assert np.array_equal(full.saturation_time, times.saturation_time)
+
+
+def test_scale_run_writes_tables_and_collapse(tmp_path):
+    results = _results(STDERR)
+    results.to_parquet(tmp_path / "results.parquet")
+    table = scaling.scale_run(tmp_path, window=0.3, fraction=FRACTION)
+    for name in ("scaling.csv", "scaling.parquet", "figures/collapse.png",
+                 "figures/collapse.pdf"):
+        assert (tmp_path / name).stat().st_size > 0, name
+    assert (tmp_path / "figures" / "collapse.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert (tmp_path / "figures" / "collapse.pdf").read_bytes()[:5] == b"%PDF-"
+    stored = pd.read_parquet(tmp_path / "scaling.parquet")
+    pd.testing.assert_frame_equal(stored, table)
+    csv = pd.read_csv(tmp_path / "scaling.csv")
+    assert np.allclose(csv.plateau_per_site, table.plateau_per_site, rtol=1e-12)
+    text = scaling.format_table(table)
+    for row in table.drop_duplicates(["coarse_graining", "Delta"]).itertuples():
+        assert scaling.format_value(row.extrapolated_per_site, row.extrapolated_err) in text
+
+
+def test_collapse_curves_rescale_time_and_rise():
+    results = _results(STDERR)
+    table = scaling.scaling_table(results)
+    collapse = scaling.collapse_curves(results, table)
+    assert len(collapse) == len(results)
+    row = table.iloc[0]
+    mine = collapse[(collapse.coarse_graining == row.coarse_graining)
+                    & (collapse.Delta == row.Delta) & (collapse.L == row.L)]
+    assert np.allclose(mine.scaled_time, mine.t / row.L ** row.z)
+    assert mine.rise.iloc[0] == pytest.approx(0.0, abs=1e-12)  # measured from S_obs(0)
+
+
+def test_missing_columns_are_named():
+    results = _results(STDERR).drop(columns=["S_thermo", "S_obs_err"])
+    with pytest.raises(InputError, match="S_obs_err, S_thermo"):
+        scaling.scaling_table(results)
+
+
+def test_single_length_is_an_error(tmp_path):
+    results = _results(STDERR)
+    results = results[results.L == 8]
+    with pytest.raises(InputError, match="only one chain length"):
+        scaling.scaling_table(results)
+    results.to_parquet(tmp_path / "results.parquet")
+    with pytest.raises(InputError, match="only one chain length"):
+        scaling.scale_run(tmp_path)
+    assert not (tmp_path / "scaling.csv").exists()
+    assert not (tmp_path / "figures").exists()
+    # the per-length plateaus alone do not need several lengths
+    assert len(scaling.plateaus(results)) == len(LAWS) * 2
+
+
+def test_bad_options_and_tables_are_rejected(tmp_path):
+    results = _results(STDERR)
+    with pytest.raises(InputError, match="window"):
+        scaling.scaling_table(results, window=0.0)
+    with pytest.raises(InputError, match="fraction"):
+        scaling.scaling_table(results, fraction=1.0)
+    with pytest.raises(InputError, match="several rows share the same t"):
+        scaling.scaling_table(pd.concat([results, results]))
+    with pytest.raises(InputError, match="run_dir"):
+        scaling.scale_run(tmp_path / "missing")
+    with pytest.raises(InputError, match="window"):
+        scaling.plateaus(results, window=1e-4)  # fewer than 2 points in the window
+
+
+def test_unsaturated_curve_is_flagged_and_its_error_widened(caplog):
+    # relaxation time comparable to the window: the window mean is still rising
+    slow = {"slow": SaturationLaw(s_inf=0.5, c=0.0, tau0=4.0, z=1.0)}
+    results = saturating_results((8, 16), np.arange(0.0, 60.0, 0.5), slow,
+                                 stderr=0.001, seed=3)
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        plateau = scaling.plateaus(results)
+    assert "has not saturated" in caplog.text
+    row = plateau[plateau.L == 16].iloc[0]
+    assert row.plateau_err >= abs(row.plateau_drift)
+    _within(row.plateau_per_site, slow["slow"].per_site(16, [row.t_last])[0],
+            row.plateau_err)
