@@ -20,7 +20,8 @@ The schema (defaults in brackets; S = sweepable):
   [uniform]; ``strength`` (S) [0.0]; ``seed`` (int >= 0, S) [the run seed].
 - ``[state]``: ``kind`` (required) product | domain_wall | neel | gas | random_product |
   ground. product: ``pattern`` (string of 0/1, repeated along the chain, S);
-  gas: ``box = [start, stop]`` (sites) or ``box_fraction = [a, b]`` (fractions of L),
+  gas: ``box = [start, stop]`` (sites) or ``box_fraction = [a, b]`` (fractions of L,
+  rounded half up to sites),
   ``number`` (int, S) or ``filling`` (fraction of the box, S) [filling 1.0], ``fill``
   product | ground (S) [product]; random_product: ``seed`` (S) [the run seed];
   ground: ``[state.prequench]`` with model keys (J, delta or g, field) that differ
@@ -28,12 +29,13 @@ The schema (defaults in brackets; S = sweepable):
 - ``[evolution]``: ``dt`` (> 0, S) [0.05]; ``order`` 2 | 4 (S) [4]; ``chi_max``
   (int >= 1, S) [64]; ``cutoff`` (0 <= c < 1, S) [1e-10].
 - ``[times]``: ``t_max`` (> 0) with ``n_times`` (int >= 2): an even grid from 0;
-  or ``values`` (increasing list >= 0). Every time is a multiple of ``evolution.dt``.
+  or ``values`` (increasing list >= 0).
 - ``[[coarse]]`` (one or more): ``observable`` number | energy | fine, or a list of them
   asked in that order; ``block`` (int >= 1 or a list) or ``regions`` (list of
   [start, stop]); ``bin_width`` (> 0 or a list; energy only); ``label`` (str).
-- ``[estimator]``: ``method`` auto | exact | sampled (S) [auto]; ``samples`` (int >= 1, S)
-  [2000]; ``target_stderr`` (>= 0, 0 = off, S) [0]; ``prune`` (0 <= p < 1, S) [1e-12].
+- ``[estimator]``: ``method`` auto | exact | enumerate | count | sample (S) [auto], see
+  :mod:`mpsobs.estimate`; ``samples`` (int >= 1, S) [2000]; ``target_stderr`` (>= 0,
+  0 = off, S) [0]; ``prune`` (0 <= p < 1, S) [1e-12].
 - ``[sweep]``: ``zip`` = list of groups of axis names, e.g. [["model.L", "evolution.chi_max"]].
 - ``[output]``: ``dir`` (str) [mpsobs-runs/<name>]; ``checkpoint_seconds`` (>= 0) [300].
 
@@ -66,12 +68,12 @@ MODELS = ("xxz", "ising")
 STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")
 OBSERVABLES = ("number", "energy", "fine")
 FIELD_KINDS = ("uniform", "staggered", "random")
-ESTIMATOR_METHODS = ("auto", "exact", "sampled")
+ESTIMATOR_METHODS = ("auto", "exact", "enumerate", "count", "sample")
+#: Most regions the "count" estimator handles.
+COUNT_MAX_REGIONS = 3
 GAS_FILLS = ("product", "ground")
 #: Where runs go when neither the spec nor the command line names a directory.
 DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
-#: Relative tolerance when checking that output times are multiples of dt.
-TIME_GRID_TOL = 1e-9
 
 _REQUIRED = object()
 _RUN_SEED = None  # default of seeds that follow the point's run seed
@@ -542,7 +544,7 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
             elif value is None:
                 pre[key] = model[key]
     _check_state(state, L)
-    _check_coarse(p["coarse"], model, L)
+    _check_coarse(p["coarse"], L, p["estimator"]["method"])
     for entry in p["coarse"]:
         entry.pop("path")
     params = {k: p[k] for k in ("seed", "model", "state", "evolution", "times", "coarse",
@@ -568,7 +570,7 @@ def _check_state(state: dict, L: int) -> None:
                         f"expected 0 <= start < stop <= model.L = {L}")
     else:
         a, b = state["box_fraction"]
-        start, stop = round(a * L), round(b * L)
+        start, stop = math.floor(a * L + 0.5), math.floor(b * L + 0.5)  # half up
         if stop <= start:
             raise _fail("state.box_fraction", f"{[a, b]} of L = {L} sites is an empty box")
     size = stop - start
@@ -590,7 +592,7 @@ def _check_state(state: dict, L: int) -> None:
     state.update(box=[start, stop], number=number)
 
 
-def _check_coarse(entries: list[dict], model: dict, L: int) -> None:
+def _check_coarse(entries: list[dict], L: int, method: str) -> None:
     for entry in entries:
         path = entry["path"]
         if entry["block"] is not None:
@@ -598,7 +600,7 @@ def _check_coarse(entries: list[dict], model: dict, L: int) -> None:
             if b > L:
                 raise _fail(f"{path}.block", f"block size {b} is larger than the chain "
                             f"(model.L = {L})")
-            widest = b
+            widest, n_blocks = b, -(-L // b)
         else:
             position = 0
             for j, (start, stop) in enumerate(entry["regions"]):
@@ -610,6 +612,13 @@ def _check_coarse(entries: list[dict], model: dict, L: int) -> None:
                 raise _fail(f"{path}.regions", f"they cover sites 0..{position}, the chain "
                             f"0..{L} (model.L = {L})")
             widest = max(stop - start for start, stop in entry["regions"])
+            n_blocks = len(entry["regions"])
+        if method == "count" and (entry["observable"] != ["number"]
+                                  or n_blocks > COUNT_MAX_REGIONS):
+            raise _fail("estimator.method", f"'count' handles the number observable in at "
+                        f"most {COUNT_MAX_REGIONS} regions; {path} asks "
+                        f"{entry['observable']} in {n_blocks} blocks (model.L = {L}); use "
+                        f"'auto' or another method")
         if widest > MAX_BLOCK_SITES and entry["observable"] != ["number"]:
             raise _fail(f"{path}.block", f"blocks wider than {MAX_BLOCK_SITES} sites are "
                         f"possible for the number observable alone; got {widest} sites for "
@@ -709,16 +718,9 @@ def _check_consistency(body: dict) -> None:
     methods = est["method"] if isinstance(est["method"], list) else [est["method"]]
     targets = est["target_stderr"] if isinstance(est["target_stderr"], list) else [
         est["target_stderr"]]
-    if "exact" in methods and any(t > 0 for t in targets):
+    if set(methods) - {"auto", "sample"} and any(t > 0 for t in targets):
         raise _fail("estimator.target_stderr", "a target standard error needs sampling; "
-                    "use estimator.method = 'auto' or 'sampled', or drop target_stderr")
-    dts = body["evolution"]["dt"]
-    for dt in dts if isinstance(dts, list) else [dts]:
-        for t in body["times"]["values"]:
-            steps = t / dt
-            if abs(steps - round(steps)) > TIME_GRID_TOL * max(1.0, steps):
-                raise _fail("times", f"time {t:g} is not a multiple of evolution.dt = {dt:g}; "
-                            f"choose times on the dt grid")
+                    "use estimator.method = 'auto' or 'sample', or drop target_stderr")
 
 
 def _expand(body: dict, groups: list[tuple[str, ...]]) -> list[Point]:

@@ -39,7 +39,7 @@ from mpsobs.errors import InputError
 from mpsobs.spec import Point, RunSpec
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
-           "read_results", "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
+           "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
 
 log = logging.getLogger(__name__)
 
@@ -324,11 +324,3 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     finally:
         with contextlib.suppress(FileNotFoundError):
             lock.unlink()
-
-
-def read_results(root: str | Path) -> pd.DataFrame:
-    """The merged results table of a run directory (InputError if there is none)."""
-    path = Path(root) / RESULTS_FILE
-    if not path.exists():
-        raise InputError(f"RUN_DIR: {path} does not exist; run `mpsobs run` first")
-    return pd.read_parquet(path)

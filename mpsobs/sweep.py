@@ -33,6 +33,7 @@ from mpsobs.spec import Point, RunSpec
 from mpsobs.store import RunStore
 
 __all__ = ["Kernel", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
+           "check_execution",
            "WORKER_ENV", "PROGRESS_TOPIC"]
 
 log = logging.getLogger(__name__)
@@ -205,6 +206,20 @@ def _steps(point: Point) -> int:
         return 1
 
 
+def check_execution(workers: int | None, scheduler: str | None) -> None:
+    """InputError for a bad combination of ``workers`` and ``scheduler``."""
+    if workers is not None and scheduler is not None:
+        raise InputError("--workers: the workers of an existing scheduler are its own; "
+                         "give --workers or --scheduler, not both")
+    if workers is not None and (isinstance(workers, bool) or not isinstance(workers, int)
+                                or workers < 1):
+        raise InputError(f"--workers: expected an integer >= 1, got {workers!r}")
+    if scheduler is not None and (not isinstance(scheduler, str) or "://" not in scheduler
+                                  and ":" not in scheduler):
+        raise InputError(f"--scheduler: expected an address such as tcp://host:8786, "
+                         f"got {scheduler!r}")
+
+
 def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
               scheduler: str | None = None, kernel: Kernel | None = None,
               progress: bool = False) -> SweepReport:
@@ -223,11 +238,7 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
     Finished points (their Parquet file exists) are skipped; a point that fails is
     logged and reported, the others go on.
     """
-    if workers is not None and scheduler is not None:
-        raise InputError("--workers: the workers of an existing scheduler are its own; "
-                         "give --workers or --scheduler, not both")
-    if workers is not None and workers < 1:
-        raise InputError(f"--workers: expected an integer >= 1, got {workers}")
+    check_execution(workers, scheduler)
     from distributed import as_completed
 
     todo = [p for p in spec.points if not store.finished(p.point_id)]

@@ -1,0 +1,234 @@
+"""The ``mpsobs`` command line.
+
+Commands: ``run`` (compute a spec's sweep into a run directory), ``check`` (validate a
+spec and list its points), ``template`` (print the built-in default scenario),
+``plot`` and ``scale`` (figures and finite-size-scaling table of a finished run).
+
+Exit codes: 0 done; 1 some points failed (the others are kept); 2 bad input (spec,
+arguments, run directory) - nothing is written then; 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+from pathlib import Path
+
+from mpsobs import __version__
+from mpsobs.errors import InputError
+
+__all__ = ["main", "build_parser"]
+
+log = logging.getLogger("mpsobs")
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line usage errors ("mpsobs: error: ...", exit code 2)."""
+
+    def error(self, message: str):
+        raise InputError(message)
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 1, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 1, got {text!r}")
+    return value
+
+
+def _fraction(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number in (0, 1), got {text!r}") from None
+    if not 0.0 < value < 1.0:
+        raise argparse.ArgumentTypeError(f"expected a number in (0, 1), got {text!r}")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="mpsobs",
+        description="Observational entropy of long spin chains after a quench, as "
+                    "matrix-product states: run parameter sweeps from TOML spec files, "
+                    "then plot and scale the results.")
+    parser.add_argument("--version", action="version", version=f"mpsobs {__version__}")
+    parser.add_argument("-v", "--verbose", action="store_true",
+                        help="log progress details to stderr")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    run = commands.add_parser(
+        "run", help="compute the points of a spec into a run directory",
+        description="Compute every point of the sweep in SPEC (default: the built-in "
+                    "scenario, see `mpsobs template`) on a local Dask cluster or an existing "
+                    "scheduler. Rerunning the same spec into the same directory skips the "
+                    "finished points and resumes checkpointed ones.")
+    run.add_argument("spec", nargs="?", metavar="SPEC", help="TOML spec file")
+    run.add_argument("--out", metavar="DIR",
+                     help="run directory (default: output.dir of the spec, else "
+                          "./mpsobs-runs/<spec name>)")
+    run.add_argument("--workers", type=_positive_int, metavar="N",
+                     help="local worker processes (default: one per core)")
+    run.add_argument("--scheduler", metavar="ADDRESS",
+                     help="use a running Dask scheduler, e.g. tcp://10.0.0.5:8786; its "
+                          "workers must see the run directory")
+    run.add_argument("--no-progress", action="store_true", help="no progress bars")
+    run.add_argument("--no-plots", action="store_true", help="skip the figures at the end")
+
+    check = commands.add_parser(
+        "check", help="validate a spec and list its points (writes nothing)",
+        description="Validate SPEC (default: the built-in scenario) and list its sweep points.")
+    check.add_argument("spec", nargs="?", metavar="SPEC", help="TOML spec file")
+
+    commands.add_parser(
+        "template", help="print the built-in default scenario (a spec to start from)",
+        description="Print the built-in default scenario as TOML, e.g. "
+                    "`mpsobs template > my-run.toml`.")
+
+    plot = commands.add_parser(
+        "plot", help="draw the figures of a run",
+        description="Write the entropy, parts and knowledge figures of RUN_DIR/results.parquet "
+                    "to RUN_DIR/figures.")
+    plot.add_argument("run_dir", metavar="RUN_DIR")
+
+    scale = commands.add_parser(
+        "scale", help="finite-size scaling table of a run",
+        description="Plateaus, saturation times and their scaling with L from "
+                    "RUN_DIR/results.parquet; prints the table and saves it in RUN_DIR.")
+    scale.add_argument("run_dir", metavar="RUN_DIR")
+    scale.add_argument("--window", type=_fraction, default=0.3, metavar="W",
+                       help="late-time share of each curve averaged for the plateau "
+                            "(default 0.3)")
+    scale.add_argument("--fraction", type=_fraction, default=0.9, metavar="F",
+                       help="saturation time = first time the curve reaches this fraction "
+                            "of its rise to the plateau (default 0.9)")
+    return parser
+
+
+# --------------------------------------------------------------------------- commands
+
+
+def _cmd_run(args) -> int:
+    from mpsobs import spec as specs
+    from mpsobs import store, sweep
+
+    spec = specs.load(args.spec)
+    out = Path(args.out) if args.out else spec.output_dir
+    sweep.check_execution(args.workers, args.scheduler)
+    store.check_target(out, spec)  # refuse before anything is written
+    with store.open_run(out, spec) as run:
+        handler = logging.FileHandler(run.root / store.LOG_FILE, encoding="utf-8")
+        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
+                                               "%(message)s"))
+        handler.setLevel(logging.INFO)
+        logging.getLogger("mpsobs").addHandler(handler)
+        try:
+            log.info("run %s (%s) into %s: %d points", spec.name, spec.source, out,
+                     len(spec.points))
+            report = sweep.run_sweep(spec, run, workers=args.workers,
+                                     scheduler=args.scheduler, kernel=None,
+                                     progress=not args.no_progress)
+            figures = _figures(run.root) if not (args.no_plots or report.table.empty) else []
+        finally:
+            logging.getLogger("mpsobs").removeHandler(handler)
+            handler.close()
+    print(f"mpsobs: {report.total} points: {report.computed} computed, {report.skipped} "
+          f"finished before, {len(report.failed)} failed")
+    if not report.table.empty:
+        print(f"mpsobs: table {out / store.RESULTS_FILE} ({len(report.table)} rows)")
+    if figures:
+        print(f"mpsobs: {len(figures)} figure files in {figures[0].parent}")
+    for point, message in report.failed:
+        print(f"mpsobs: point {point.point_id} ({point.label}) failed: {message}",
+              file=sys.stderr)
+    if report.failed:
+        print("mpsobs: rerun the same command to retry the failed points", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _figures(root: Path) -> list[Path]:
+    from mpsobs import plots
+
+    try:
+        return plots.plot_run(root)
+    except InputError as exc:  # the table is kept; figures are an extra
+        print(f"mpsobs: no figures: {exc}", file=sys.stderr)
+        return []
+
+
+def _cmd_check(args) -> int:
+    from mpsobs import spec as specs
+
+    spec = specs.load(args.spec)
+    axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
+                     for group in spec.axes) or "none"
+    print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "
+          f"{spec.output_dir}")
+    for point in spec.points:
+        print(f"  {point.index:4d}  {point.point_id}  {point.label}")
+    return 0
+
+
+def _cmd_template(args) -> int:
+    from mpsobs import spec as specs
+
+    sys.stdout.write(specs.default_spec_path().read_text(encoding="utf-8"))
+    return 0
+
+
+def _cmd_plot(args) -> int:
+    from mpsobs import plots
+
+    paths = plots.plot_run(args.run_dir)
+    for path in paths:
+        print(path)
+    return 0
+
+
+def _cmd_scale(args) -> int:
+    from mpsobs import scaling
+
+    table = scaling.scale_run(args.run_dir, window=args.window, fraction=args.fraction)
+    print(scaling.format_table(table))
+    return 0
+
+
+def _setup_logging(verbose: bool) -> None:
+    """mpsobs logs at INFO (for run.log); stderr shows warnings, or INFO with -v."""
+    handler = logging.StreamHandler()
+    handler.setLevel(logging.INFO if verbose else logging.WARNING)
+    handler.setFormatter(logging.Formatter("mpsobs: %(levelname)s %(name)s: %(message)s"))
+    logging.getLogger().addHandler(handler)
+    logging.getLogger("mpsobs").setLevel(logging.INFO)
+
+
+_COMMANDS = {"run": _cmd_run, "check": _cmd_check, "template": _cmd_template,
+             "plot": _cmd_plot, "scale": _cmd_scale}
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``mpsobs`` console script; returns the exit code."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+        if args.command is None:
+            parser.print_help()
+            return 2
+        _setup_logging(args.verbose)
+        return _COMMANDS[args.command](args)
+    except InputError as exc:
+        print(f"mpsobs: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("mpsobs: interrupted; finished points are kept, rerun to resume",
+              file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
