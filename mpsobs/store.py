@@ -281,6 +281,15 @@ class RunStore:
         with contextlib.suppress(FileNotFoundError):
             self.checkpoint_path(point_id).unlink()
 
+    def remove_temporaries(self) -> None:
+        """Delete temporary files left by writers that were killed (call only while
+        holding the lock, before workers start)."""
+        for folder in (self.root, self.points_dir, self.checkpoints_dir):
+            if folder.is_dir():
+                for tmp in folder.glob(".*.tmp"):
+                    with contextlib.suppress(FileNotFoundError):
+                        tmp.unlink()
+
     # merged table ------------------------------------------------------------------
 
     def merge(self, points: Sequence[Point]) -> pd.DataFrame:
@@ -320,7 +329,9 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
         check_target(root, spec)  # another run may have claimed it meanwhile
         if not (root / SPEC_FILE).exists():
             _write_json(root / SPEC_FILE, _spec_record(spec))
-        yield RunStore(root)
+        store = RunStore(root)
+        store.remove_temporaries()
+        yield store
     finally:
         with contextlib.suppress(FileNotFoundError):
             lock.unlink()
