@@ -24,9 +24,11 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from mpsobs import scaling
+from mpsobs.store import RunStore, atomic_write
 
 __all__ = [
-    "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "entropy_figure",
+    "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "figure_parameters",
+    "entropy_figure",
     "parts_figure", "knowledge_figure", "collapse_figure", "save_figure", "plot_results",
     "plot_run",
 ]
@@ -90,19 +92,27 @@ def _legend(fig: Figure, colors: Mapping[int, tuple], styles: list[Line2D]) -> N
                    handlelength=2.2, columnspacing=1.2)
 
 
-def _title(key: Mapping[str, object]) -> str:
-    """Panel title: the coarse-graining, then the other parameter values."""
-    others = [f"{k} = {v}" for k, v in key.items() if k != "coarse_graining"]
+def _title(key: Mapping[str, object], shown: Iterable[str]) -> str:
+    """Panel title: the coarse-graining, then the values of the ``shown`` parameters."""
+    others = [f"{k} = {key[k]}" for k in shown if k in key and k != "coarse_graining"]
     return _text(str(key["coarse_graining"]) + (f" ({', '.join(others)})" if others else ""))
+
+
+def figure_parameters(results: pd.DataFrame) -> list[str]:
+    """Parameters that get figures of their own: those other than L (and its
+    companions) that vary within a coarse-graining."""
+    others = scaling.group_columns(results)[1:]
+    return scaling.varying_columns(results, others, within="coarse_graining")
 
 
 def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None, draw: Draw,
                   ylabel: str, styles: list[Line2D],
                   decorate: Callable[[object], None] | None = None) -> Figure:
-    """One panel per coarse-graining (and value of the other parameters), with
+    """One panel per coarse-graining (and value of the figure parameters), with
     ``draw(ax, curve, L, colour)`` per chain length, then ``decorate(ax)``."""
     colors = dict(colors) if colors is not None else length_colors(results["L"])
-    panels = scaling.split(results, scaling.group_columns(results))
+    shown = figure_parameters(results)
+    panels = scaling.split(results, ["coarse_graining", *shown])
     with matplotlib.rc_context(PAPER_STYLE):
         fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT * len(panels) + 0.8),
                      layout="constrained")
@@ -113,7 +123,7 @@ def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None, dra
                 draw(ax, curve.sort_values("t"), int(L), colors[int(L)])
             if decorate is not None:
                 decorate(ax)
-            ax.set_title(_title(key))
+            ax.set_title(_title(key, shown))
             ax.set_ylabel(ylabel)
             ax.set_xlim(results["t"].min(), results["t"].max())
         axes[-1].set_xlabel(TIME_LABEL)
@@ -194,7 +204,10 @@ def collapse_figure(collapse: pd.DataFrame,
     is not available); the dotted lines mark 1 and the fraction f used for t_f.
     """
     colors = dict(colors) if colors is not None else length_colors(collapse["L"])
-    panels = scaling.split(collapse, scaling.key_columns(collapse))
+    keys = scaling.key_columns(collapse)
+    shown = scaling.varying_columns(collapse, [k for k in keys if k != "coarse_graining"],
+                                    within="coarse_graining")
+    panels = scaling.split(collapse, keys)
     ncols = 1 if len(panels) <= 3 else 2
     nrows = -(-len(panels) // ncols)
     with matplotlib.rc_context(PAPER_STYLE):
@@ -215,7 +228,7 @@ def collapse_figure(collapse: pd.DataFrame,
             for level in (1.0, rows["saturation_fraction"].iloc[0]):
                 ax.axhline(level, **LN2_STYLE)
             ax.text(0.97, 0.05, note, transform=ax.transAxes, ha="right", va="bottom")
-            ax.set_title(_title(key))
+            ax.set_title(_title(key, shown))
             ax.set_xlabel(r"$t/L^z$ [$1/J$]")
             ax.set_ylabel(r"$\frac{S_\mathrm{obs}(t)-S_\mathrm{obs}(0)}"
                           r"{S_\mathrm{plat}-S_\mathrm{obs}(0)}$")
@@ -232,7 +245,8 @@ def save_figure(fig: Figure, stem: str | os.PathLike) -> list[Path]:
     paths = [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
     with matplotlib.rc_context(PAPER_STYLE):
         for path in paths:
-            fig.savefig(path)
+            with atomic_write(path) as tmp:
+                fig.savefig(tmp, format=path.suffix[1:])
     return paths
 
 
@@ -252,9 +266,8 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Pa
     scaling.require_columns(results, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
                             "figures")
     colors = length_colors(results["L"])
-    others = scaling.group_columns(results)[1:]
     paths = []
-    for key, rows in scaling.split(results, others):
+    for key, rows in scaling.split(results, figure_parameters(results)):
         suffix = _suffix(key)
         for name, make in (("entropy", entropy_figure), ("parts", parts_figure),
                            ("knowledge", knowledge_figure)):
@@ -264,5 +277,4 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Pa
 
 def plot_run(run_dir: str | os.PathLike) -> list[Path]:
     """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
-    run_dir = Path(run_dir)
-    return plot_results(scaling.read_results(run_dir), run_dir / "figures")
+    return plot_results(scaling.read_results(run_dir), RunStore(run_dir).figures_dir)

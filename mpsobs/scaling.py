@@ -59,18 +59,19 @@ from __future__ import annotations
 import logging
 import os
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from mpsobs.columns import parameter_columns
 from mpsobs.errors import InputError
+from mpsobs.store import RunStore, atomic_write
 
 __all__ = [
     "ERROR_FLOOR", "LineFit", "fit_line", "read_results", "require_columns",
-    "group_columns", "key_columns", "split", "plateaus", "extrapolate", "saturation_times",
-    "fit_exponent", "scaling_table", "collapse_curves", "scale_run", "format_table", "format_value",
+    "group_columns", "key_columns", "length_companions", "split", "varying_columns",
+    "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
+    "collapse_curves", "scale_run", "format_table", "format_value",
 ]
 
 log = logging.getLogger(__name__)
@@ -145,7 +146,7 @@ def fit_line(x: np.ndarray, y: np.ndarray, sigma: np.ndarray) -> LineFit:
 
 def read_results(run_dir: str | os.PathLike) -> pd.DataFrame:
     """The run table RUN_DIR/results.parquet."""
-    path = Path(run_dir) / "results.parquet"
+    path = RunStore(run_dir).results_path
     if not path.is_file():
         raise InputError(f"run_dir: no results table at {path}")
     return pd.read_parquet(path)
@@ -159,10 +160,37 @@ def require_columns(results: pd.DataFrame, needed, what: str) -> None:
                          f"(needs {', '.join(needed)})")
 
 
+def varying_columns(frame: pd.DataFrame, columns, *, within: str | None = None) -> list[str]:
+    """The columns of ``columns`` that take more than one value in ``frame`` (NaN counts
+    as a value) or, with ``within``, inside at least one group of equal ``within``."""
+    columns = list(columns)
+    if not columns or frame.empty:
+        return []
+    data = _hashable(frame, columns)
+    if within is None:
+        return [c for c in columns if data[c].nunique(dropna=False) > 1]
+    counts = data.groupby(within, dropna=False)[columns].nunique(dropna=False)
+    return [c for c in columns if (counts[c] > 1).any()]
+
+
+def length_companions(results: pd.DataFrame) -> list[str]:
+    """Parameter columns that change with L alone (one value per L, several in the
+    table), such as a bond dimension swept together with L; the fits treat them as part
+    of the chain length."""
+    others = [c for c in parameter_columns(results.columns) if c != "L"]
+    if "L" not in results.columns:
+        return []
+    varying = varying_columns(results, others)
+    return [c for c in varying if c not in varying_columns(results, varying, within="L")]
+
+
 def group_columns(results: pd.DataFrame) -> list[str]:
     """Columns identifying a group of curves that differ only in L: the coarse-graining
-    and every parameter column other than L, in table order."""
-    return ["coarse_graining"] + [c for c in parameter_columns(results.columns) if c != "L"]
+    and every parameter column other than L and its companions
+    (:func:`length_companions`), in table order."""
+    companions = set(length_companions(results))
+    return ["coarse_graining"] + [c for c in parameter_columns(results.columns)
+                                  if c != "L" and c not in companions]
 
 
 def key_columns(table: pd.DataFrame) -> list[str]:
@@ -203,6 +231,10 @@ def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, 
     if clash:
         raise InputError(f"results: parameter column(s) {', '.join(clash)} clash with "
                          "columns of the scaling table; rename the parameter")
+    companions = length_companions(results)
+    if companions:
+        log.warning("results: %s change(s) together with L (one value per L); treated as "
+                    "part of the chain length, not as separate groups", ", ".join(companions))
     data = results
     bad = ~np.isfinite(data["S_obs"].to_numpy(dtype=float))
     if bad.any():
@@ -509,15 +541,6 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def _write_atomic(frame: pd.DataFrame, path: Path) -> None:
-    partial = path.with_name(path.name + ".partial")
-    if path.suffix == ".csv":
-        frame.to_csv(partial, index=False)
-    else:
-        frame.to_parquet(partial, index=False)
-    os.replace(partial, path)
-
-
 def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
               fraction: float = 0.9) -> pd.DataFrame:
     """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
@@ -528,13 +551,15 @@ def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
     """
     from mpsobs import plots  # plots builds on this module; imported here to avoid a cycle
 
-    run_dir = Path(run_dir)
+    store = RunStore(run_dir)
     results = read_results(run_dir)
     table = scaling_table(results, window=window, fraction=fraction)
-    collapse = collapse_curves(results, table)
-    _write_atomic(table, run_dir / "scaling.csv")
-    _write_atomic(table, run_dir / "scaling.parquet")
-    plots.save_figure(plots.collapse_figure(collapse), run_dir / "figures" / "collapse")
+    figure = plots.collapse_figure(collapse_curves(results, table))
+    with atomic_write(store.root / "scaling.csv") as tmp:
+        table.to_csv(tmp, index=False)
+    with atomic_write(store.root / "scaling.parquet") as tmp:
+        table.to_parquet(tmp, index=False)
+    plots.save_figure(figure, store.figures_dir / "collapse")
     return table
 
 
@@ -553,10 +578,12 @@ def format_table(df: pd.DataFrame) -> str:
     """The scaling table as text: per-length plateaus, then the fits per group.
 
     Entropies per site in nats, times in 1/J; every value is followed by its error.
+    Of the parameter columns only those that vary for a coarse-graining are shown.
     """
-    keys = key_columns(df)
     if df.empty:
         return "(empty scaling table)"
+    keys = ["coarse_graining"] + varying_columns(
+        df, [c for c in key_columns(df) if c != "coarse_graining"], within="coarse_graining")
     fraction = df["saturation_fraction"].iloc[0]
     per_length = df[keys + ["L"]].copy()
     for label, value, err in [("plateau/L", "plateau_per_site", "plateau_err"),

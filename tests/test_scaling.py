@@ -47,21 +47,25 @@ def _within(value, truth, err) -> None:
         value, truth, err)
 
 
-def test_fit_line_matches_numpy_polyfit():
-    # reference library: numpy.polyfit with weights 1/sigma and the unscaled covariance
+@pytest.mark.parametrize("noise", [0.3, 3.0], ids=["overstated_errors", "understated_errors"])
+def test_fit_line_matches_numpy_polyfit(noise):
+    # reference library: numpy.polyfit with weights 1/sigma and the unscaled covariance;
+    # the errors are scaled by sqrt(chi2_red) only when chi2_red > 1 (Particle Data
+    # Group scale factor)
     rng = np.random.default_rng(7)
     x = np.linspace(0.0, 1.0, 9)
     sigma = rng.uniform(0.05, 0.2, x.size)
-    y = 1.5 - 0.7 * x + sigma * rng.standard_normal(x.size)
+    y = 1.5 - 0.7 * x + noise * sigma * rng.standard_normal(x.size)
     fit = scaling.fit_line(x, y, sigma)
     coef, cov = np.polyfit(x, y, 1, w=1 / sigma, cov="unscaled")
-    scale = max(1.0, fit.chi2_red)
+    assert fit.dof == x.size - 2
+    assert fit.chi2 == pytest.approx(np.sum(((y - np.polyval(coef, x)) / sigma) ** 2))
+    assert (fit.chi2_red > 1) == (noise > 1)
+    scale = fit.chi2_red if noise > 1 else 1.0
     assert fit.slope == pytest.approx(coef[0], rel=1e-10)
     assert fit.intercept == pytest.approx(coef[1], rel=1e-10)
     assert fit.slope_err == pytest.approx(np.sqrt(cov[0, 0] * scale), rel=1e-10)
     assert fit.intercept_err == pytest.approx(np.sqrt(cov[1, 1] * scale), rel=1e-10)
-    assert fit.dof == x.size - 2
-    assert fit.chi2 == pytest.approx(np.sum(((y - np.polyval(coef, x)) / sigma) ** 2))
 
 
 def test_one_row_per_length_coarse_graining_and_parameter(table):
@@ -121,7 +125,7 @@ def test_saturation_time_and_exponent(table):
             groups.saturation_prefactor_err)
 
 
-def test_notebook_functions_agree_with_table(table):
+def test_notebook_functions_agree_with_table():
     results = _results(STDERR)
     plateau = scaling.plateaus(results, window=0.3)
     extrapolated = scaling.extrapolate(plateau)
@@ -163,6 +167,20 @@ def test_collapse_curves_rescale_time_and_rise():
                     & (collapse.Delta == row.Delta) & (collapse.L == row.L)]
     assert np.allclose(mine.scaled_time, mine.t / row.L ** row.z)
     assert mine.rise.iloc[0] == pytest.approx(0.0, abs=1e-12)  # measured from S_obs(0)
+
+
+def test_columns_fixed_by_length_or_coarse_graining_do_not_split_groups(caplog):
+    results = _results(STDERR)
+    results["chi_max"] = 8 * results.L  # swept together with L
+    results["block_size"] = results.coarse_graining.str[-1].astype(int)
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        table = scaling.scaling_table(results)
+    assert "chi_max change(s) together with L" in caplog.text
+    assert "chi_max" not in table.columns
+    assert len(table) == len(LENGTHS) * len(LAWS) * 2
+    assert (table.extrapolation_lengths == len(LENGTHS)).all()
+    text = scaling.format_table(table)
+    assert "Delta" in text and "block_size" not in text  # only varying parameters shown
 
 
 def test_missing_columns_are_named():
