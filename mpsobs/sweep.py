@@ -135,7 +135,7 @@ def local_cluster(workers: int | None = None):
 
     n = workers or os.cpu_count() or 1
     with LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                      dashboard_address=None, env=dict(WORKER_ENV),
+                      dashboard_address=":0", env=dict(WORKER_ENV),
                       silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
         yield client
 
@@ -167,6 +167,7 @@ class _Bars:
         self._lock = threading.Lock()
         self._done: dict[str, int] = {}
         self._totals = steps_per_point
+        self.points_done, self.steps_done = skipped, 0
         self.points = tqdm(total=len(points), initial=skipped, desc="points", unit="pt",
                            disable=not enabled, position=0, dynamic_ncols=True)
         self.steps = tqdm(total=sum(steps_per_point.values()), desc="time steps",
@@ -183,6 +184,7 @@ class _Bars:
             delta = new - self._done.get(pid, 0)
             if delta > 0:
                 self._done[pid] = new
+                self.steps_done += delta
                 self.steps.update(delta)
 
     def point_finished(self, point_id: str) -> None:
@@ -190,7 +192,9 @@ class _Bars:
             rest = self._totals.get(point_id, 0) - self._done.get(point_id, 0)
             self._done[point_id] = self._totals.get(point_id, 0)
             if rest > 0:
+                self.steps_done += rest
                 self.steps.update(rest)
+            self.points_done += 1
             self.points.update(1)
 
     def close(self) -> None:

@@ -1,0 +1,167 @@
+"""The Dask sweep runner with a stand-in kernel (skips, failures, checkpoint resume,
+worker settings, progress) and the real point kernel against a dense reference."""
+
+from __future__ import annotations
+
+import os
+import sys
+import uuid
+
+import cloudpickle
+import numpy as np
+import pandas as pd
+import pytest
+
+from mpsobs import spec, store, sweep
+from mpsobs.errors import InputError
+
+# The stand-in kernels below live in this test module, which the worker processes cannot
+# import: ship them by value.
+cloudpickle.register_pickle_by_value(sys.modules[__name__])
+
+SPEC = {
+    "name": "sweep-test", "seed": 9,
+    "model": {"name": "xxz", "L": [8, 10], "delta": 0.5,
+              "field": {"kind": "staggered", "strength": [0.1, 0.3]}},
+    "state": {"kind": "neel"},
+    "times": {"t_max": 0.3, "n_times": 4},
+    "coarse": [{"observable": "number", "block": 2}],
+    "output": {"checkpoint_seconds": 0},
+}
+
+
+def _mark(point, root, what: str) -> None:
+    calls = os.path.join(root, "calls")
+    os.makedirs(calls, exist_ok=True)
+    open(os.path.join(calls, f"{point.point_id}.{what}.{uuid.uuid4().hex}"), "w").close()
+
+
+def counting_kernel(point, *, progress=None, resume=None, save=None, fail_at=None,
+                    root=None):
+    """Rows t -> a seeded number per time; checkpoints after each time; optionally
+    raises after ``fail_at`` times when it did not resume (a crash mid-point)."""
+    times = point.params["times"]["values"]
+    rows = list(resume[1]["rows"]) if resume is not None else []
+    if root is not None:
+        _mark(point, root, "resumed" if resume is not None else "fresh")
+    for k in range(len(rows), len(times)):
+        value = float(np.random.default_rng([point.seed, k]).random())
+        rows.append({"t": times[k], "coarse_graining": "dummy", "S_obs": value})
+        if progress is not None:
+            progress(k + 1, len(times))
+        if save is not None:
+            save([np.full((1, 2, 1), value)], {"rows": rows})
+        if fail_at is not None and resume is None and k + 1 == fail_at:
+            raise RuntimeError("simulated crash")
+    frame = pd.DataFrame(rows)
+    for name, value in point.columns.items():
+        frame[name] = value
+    return frame
+
+
+class Kernel:
+    """counting_kernel with settings (picklable)."""
+
+    def __init__(self, root, fail_at=None, fail_h=None):
+        self.root, self.fail_at, self.fail_h = str(root), fail_at, fail_h
+
+    def __call__(self, point, *, progress=None, resume=None, save=None):
+        if self.fail_h is not None and point.columns["h"] == self.fail_h:
+            raise ValueError("this point always fails")
+        return counting_kernel(point, progress=progress, resume=resume, save=save,
+                               fail_at=self.fail_at, root=self.root)
+
+
+@pytest.fixture(scope="module")
+def scheduler():
+    """One local cluster (two single-threaded workers) shared by the runner tests."""
+    with sweep.local_cluster(2) as client:
+        yield client.scheduler.address
+
+
+def _calls(root, kind: str | None = None) -> list[str]:
+    folder = root / "calls"
+    names = sorted(os.listdir(folder)) if folder.exists() else []
+    return [n for n in names if kind is None or f".{kind}." in n]
+
+
+def _expected(run: spec.RunSpec) -> pd.DataFrame:
+    return pd.concat([counting_kernel(p) for p in run.points], ignore_index=True)
+
+
+def test_every_point_written_and_finished_points_skipped(tmp_path, scheduler):
+    run = spec.parse(SPEC)
+    root = tmp_path / "run"
+    with store.open_run(root, run) as st:
+        report = sweep.run_sweep(run, st, scheduler=scheduler, kernel=Kernel(root))
+    assert (report.total, report.skipped, report.computed, report.failed) == (4, 0, 4, ())
+    pd.testing.assert_frame_equal(report.table, _expected(run))
+    pd.testing.assert_frame_equal(pd.read_parquet(root / "results.parquet"), _expected(run))
+    assert len(_calls(root)) == 4
+    assert not list((root / "checkpoints").glob("*.npz"))  # dropped when a point finishes
+    with store.open_run(root, run) as st:
+        again = sweep.run_sweep(run, st, scheduler=scheduler, kernel=Kernel(root))
+    assert (again.skipped, again.computed) == (4, 0)
+    assert len(_calls(root)) == 4  # nothing recomputed
+    pd.testing.assert_frame_equal(again.table, _expected(run))
+
+
+def test_failing_point_does_not_stop_the_others(tmp_path, scheduler):
+    run = spec.parse(SPEC)
+    root = tmp_path / "run"
+    with store.open_run(root, run) as st:
+        report = sweep.run_sweep(run, st, scheduler=scheduler,
+                                 kernel=Kernel(root, fail_h=0.3))
+    assert report.computed == 2
+    assert sorted(p.columns["h"] for p, _ in report.failed) == [0.3, 0.3]
+    assert all("this point always fails" in message for _, message in report.failed)
+    assert set(report.table["h"]) == {0.1}
+    with store.open_run(root, run) as st:
+        retry = sweep.run_sweep(run, st, scheduler=scheduler, kernel=Kernel(root))
+    assert (retry.skipped, retry.computed, retry.failed) == (2, 2, ())
+    pd.testing.assert_frame_equal(retry.table, _expected(run))
+
+
+def test_crashed_point_resumes_from_its_checkpoint(tmp_path, scheduler):
+    run = spec.parse(SPEC)
+    root = tmp_path / "run"
+    with store.open_run(root, run) as st:
+        crashed = sweep.run_sweep(run, st, scheduler=scheduler,
+                                  kernel=Kernel(root, fail_at=2))
+        assert len(crashed.failed) == 4
+        assert len(list((root / "checkpoints").glob("*.npz"))) == 4
+        resumed = sweep.run_sweep(run, st, scheduler=scheduler, kernel=Kernel(root))
+    assert resumed.computed == 4 and not resumed.failed
+    assert len(_calls(root, "resumed")) == 4
+    pd.testing.assert_frame_equal(resumed.table, _expected(run))
+    assert not list((root / "checkpoints").glob("*.npz"))
+
+
+def test_local_workers_are_single_threaded_with_pinned_blas():
+    keys = tuple(sweep.WORKER_ENV)
+    with sweep.local_cluster(2) as client:
+        envs = client.run(lambda: {k: os.environ.get(k) for k in keys})
+        threads = client.nthreads()
+    assert len(envs) == 2 and len(threads) == 2
+    assert all(env == {k: "1" for k in keys} for env in envs.values())
+    assert set(threads.values()) == {1}
+
+
+def test_bad_execution_arguments():
+    with pytest.raises(InputError, match="--workers"):
+        sweep.check_execution(2, "tcp://127.0.0.1:8786")
+    with pytest.raises(InputError, match="--workers"):
+        sweep.check_execution(0, None)
+
+
+def test_progress_bars_add_steps_from_worker_events():
+    run = spec.parse(SPEC)
+    a, b = run.points[:2]
+    bars = sweep._Bars(run.points, 0, {a.point_id: 10, b.point_id: 10}, enabled=False)
+    bars.on_event((0.0, {"point_id": a.point_id, "done": 4, "total": 10}))
+    bars.on_event((0.0, {"point_id": a.point_id, "done": 3, "total": 10}))  # late, older
+    bars.on_event((0.0, {"point_id": b.point_id, "done": 6, "total": 10}))
+    assert bars.steps_done == 10
+    bars.point_finished(a.point_id)
+    assert (bars.steps_done, bars.points_done) == (16, 1)
+    bars.close()
