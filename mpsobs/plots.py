@@ -3,8 +3,14 @@
 Every figure is one column wide (PANEL_WIDTH inches) with one panel per coarse-graining
 stacked vertically; each chain length L keeps one colour in every figure of a run
 (:func:`length_colors`). Entropies are per site in nats (natural logarithms), times in
-units of 1/J; shaded bands are +- one standard error. One set of figures is made per
-combination of the parameters other than L. Figures are built on
+units of 1/J; shaded bands are +- one standard error. :func:`plot_results` makes one
+set of figures per combination of the parameters that vary within a coarse-graining
+(:func:`figure_parameters`), with the values in the file names and panel titles.
+
+The figure functions take the rows to draw, ``colors`` (L -> colour, default
+:func:`length_colors` of the rows) and ``shown`` (parameters that get panels of their
+own and appear in the panel titles, default :func:`figure_parameters` of the rows) and
+return a :class:`matplotlib.figure.Figure`. Figures are built on
 :class:`matplotlib.figure.Figure` with the Agg canvas, so no display is ever opened
 and pyplot's global state is left alone.
 """
@@ -13,7 +19,7 @@ from __future__ import annotations
 
 import os
 import re
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from pathlib import Path
 
 import matplotlib
@@ -28,9 +34,8 @@ from mpsobs.store import RunStore, atomic_write
 
 __all__ = [
     "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "figure_parameters",
-    "entropy_figure",
-    "parts_figure", "knowledge_figure", "collapse_figure", "save_figure", "plot_results",
-    "plot_run",
+    "entropy_figure", "parts_figure", "knowledge_figure", "collapse_figure", "save_figure",
+    "plot_results", "plot_run",
 ]
 
 #: Width of one panel in inches (a single journal column).
@@ -105,13 +110,14 @@ def figure_parameters(results: pd.DataFrame) -> list[str]:
     return scaling.varying_columns(results, others, within="coarse_graining")
 
 
-def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None, draw: Draw,
-                  ylabel: str, styles: list[Line2D],
+def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None,
+                  shown: Sequence[str] | None, draw: Draw, ylabel: str, styles: list[Line2D],
                   decorate: Callable[[object], None] | None = None) -> Figure:
-    """One panel per coarse-graining (and value of the figure parameters), with
-    ``draw(ax, curve, L, colour)`` per chain length, then ``decorate(ax)``."""
+    """One panel per coarse-graining and value of the ``shown`` parameters (default
+    :func:`figure_parameters`), with ``draw(ax, curve, L, colour)`` per chain length,
+    then ``decorate(ax)``."""
     colors = dict(colors) if colors is not None else length_colors(results["L"])
-    shown = figure_parameters(results)
+    shown = list(shown) if shown is not None else figure_parameters(results)
     panels = scaling.split(results, ["coarse_graining", *shown])
     with matplotlib.rc_context(PAPER_STYLE):
         fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT * len(panels) + 0.8),
@@ -135,8 +141,8 @@ def _style(label: str, **line) -> Line2D:
     return Line2D([], [], color=line.pop("color", "0.2"), label=label, **line)
 
 
-def entropy_figure(results: pd.DataFrame,
-                   colors: Mapping[int, tuple] | None = None) -> Figure:
+def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
+                   shown: Sequence[str] | None = None) -> Figure:
     """S_obs(t)/L per L with error bands, S_thermo/L (dashed), S_ent_half/L (dash-dot)
     and the maximum ln 2 per site (dotted); one panel per coarse-graining."""
     scaling.require_columns(results, ENTROPY_COLUMNS, "entropy figure")
@@ -156,10 +162,11 @@ def entropy_figure(results: pd.DataFrame,
     styles = [_style(r"$S_\mathrm{obs}/L$"), _style(r"$S_\mathrm{thermo}/L$", linestyle="--"),
               _style(r"$S_\mathrm{ent}^{L/2}/L$", linestyle="-.", linewidth=0.8),
               _style(r"$\ln 2$", **LN2_STYLE)]
-    return _panel_figure(results, colors, draw, "entropy per site [nats]", styles, ln2)
+    return _panel_figure(results, colors, shown, draw, "entropy per site [nats]", styles, ln2)
 
 
-def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None) -> Figure:
+def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
+                 shown: Sequence[str] | None = None) -> Figure:
     """Shannon part H(p)/L (solid) and mean Boltzmann entropy sum p ln V / L (dashed)
     per L, with error bands where S_shannon_err / S_boltzmann_err are present."""
     scaling.require_columns(results, PARTS_COLUMNS, "parts figure")
@@ -173,11 +180,11 @@ def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = Non
 
     styles = [_style(r"Shannon $H(p)/L$"),
               _style(r"Boltzmann $\sum p_i \ln V_i/L$", linestyle="--")]
-    return _panel_figure(results, colors, draw, "entropy per site [nats]", styles)
+    return _panel_figure(results, colors, shown, draw, "entropy per site [nats]", styles)
 
 
-def knowledge_figure(results: pd.DataFrame,
-                     colors: Mapping[int, tuple] | None = None) -> Figure:
+def knowledge_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
+                     shown: Sequence[str] | None = None) -> Figure:
     """Knowledge K/L = (S_max - S_obs)/L per L with error bands (error S_obs_err/L) and
     its thermodynamic value (S_max - S_thermo)/L (dashed)."""
     scaling.require_columns(results, KNOWLEDGE_COLUMNS, "knowledge figure")
@@ -191,7 +198,7 @@ def knowledge_figure(results: pd.DataFrame,
 
     styles = [_style(r"$K/L$"),
               _style(r"$(S_\mathrm{max}-S_\mathrm{thermo})/L$", linestyle="--")]
-    return _panel_figure(results, colors, draw, "knowledge per site [nats]", styles)
+    return _panel_figure(results, colors, shown, draw, "knowledge per site [nats]", styles)
 
 
 def collapse_figure(collapse: pd.DataFrame,
@@ -266,12 +273,14 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Pa
     scaling.require_columns(results, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
                             "figures")
     colors = length_colors(results["L"])
+    shown = figure_parameters(results)
     paths = []
-    for key, rows in scaling.split(results, figure_parameters(results)):
+    for key, rows in scaling.split(results, shown):
         suffix = _suffix(key)
         for name, make in (("entropy", entropy_figure), ("parts", parts_figure),
                            ("knowledge", knowledge_figure)):
-            paths += save_figure(make(rows, colors), Path(directory) / f"{name}{suffix}")
+            paths += save_figure(make(rows, colors, shown),
+                                 Path(directory) / f"{name}{suffix}")
     return paths
 
 

@@ -27,9 +27,11 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
   change from the first time point, i.e. crosses the level
   c = S_0 + f (S_plateau - S_0) (with S_0 = 0: the time to reach f S_plateau). It is
   measured as t_0 plus the time the piecewise-linear interpolant of the curve spends
-  short of c. For a monotone curve this is the linearly interpolated crossing; for a
-  noisy one it does not pick the first noise spike (a first-crossing rule is biased
-  early). Its error is sqrt(level**2 + max(noise**2, grid**2)) with
+  short of c before its first point beyond c by more than CLEAR_MARGIN errors e_i.
+  For a noiseless monotone curve this is the linearly interpolated crossing; on a noisy
+  curve it does not stop at the first noise spike (a first-crossing rule is biased
+  early); later dips below c (revivals) are not counted. Its error is
+  sqrt(level**2 + max(noise**2, grid**2)) with
     * level = |dt_f/dc| sqrt(f**2 plateau_err**2 + (1 - f)**2 e_0**2), dt_f/dc a
       central difference of the estimator over +- max(2 rms(e), 1e-3 |change|);
     * noise**2 = variance of the estimator over BOOTSTRAP_SAMPLES parametric resamples
@@ -37,8 +39,7 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
     * grid = t_f - t_f(every other time point). For a locally quadratic curve |grid| is
       at least the linear-interpolation error of t_f; its noise part is of the order of
       noise, hence the max (as for the plateau).
-  It assumes the curve stays beyond c after crossing it, so (1 - f) |change| must be
-  well above the noise.
+  The time grid must resolve the rise (several points per relaxation time).
 
 Per group:
 
@@ -82,6 +83,8 @@ ERROR_FLOOR = 1e-12
 BOOTSTRAP_SAMPLES = 256
 #: Seed of those resamples (the same for every curve: the table is reproducible).
 BOOTSTRAP_SEED = 20240601
+#: A curve has surely crossed a level at its first point beyond it by this many errors.
+CLEAR_MARGIN = 3.0
 #: Columns the scaling needs in the results table.
 SCALING_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo")
 
@@ -199,7 +202,8 @@ def key_columns(table: pd.DataFrame) -> list[str]:
 
 
 def _describe(key: dict) -> str:
-    return ", ".join(f"{name}={value!r}" for name, value in key.items())
+    return ", ".join(f"{name}={value!r}" if isinstance(value, str) else f"{name}={value}"
+                     for name, value in key.items())
 
 
 def _hashable(results: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
@@ -235,6 +239,10 @@ def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, 
     if companions:
         log.warning("results: %s change(s) together with L (one value per L); treated as "
                     "part of the chain length, not as separate groups", ", ".join(companions))
+    bad_err = ~np.isfinite(results["S_obs_err"].to_numpy(dtype=float))
+    if bad_err.any():
+        raise InputError(f"results: S_obs_err is not a finite number in {int(bad_err.sum())} "
+                         "rows; every S_obs needs its standard error (0 when exact)")
     data = results
     bad = ~np.isfinite(data["S_obs"].to_numpy(dtype=float))
     if bad.any():
@@ -377,15 +385,20 @@ def extrapolate(plateaus_df: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _time_short_of(t: np.ndarray, y: np.ndarray, level: float, sign: float) -> np.ndarray:
+def _time_short_of(t: np.ndarray, y: np.ndarray, e: np.ndarray, level: float,
+                   sign: float) -> np.ndarray:
     """t_0 plus the time the piecewise-linear interpolant of y (last axis) spends short
-    of ``level`` (below it for sign = +1, above it for sign = -1)."""
+    of ``level`` (below it for sign = +1, above it for sign = -1) until the first point
+    beyond it by more than CLEAR_MARGIN errors e."""
     u = sign * (y - level)
+    clear = u > CLEAR_MARGIN * e
+    stop = np.where(clear.any(axis=-1), np.argmax(clear, axis=-1), u.shape[-1])
     a, b = u[..., :-1], u[..., 1:]
     with np.errstate(divide="ignore", invalid="ignore"):
         part = np.where(a < 0, a / (a - b), b / (b - a))  # share of a crossing segment
     share = np.where((a < 0) & (b < 0), 1.0, np.where((a >= 0) & (b >= 0), 0.0, part))
-    return t[0] + np.sum(share * np.diff(t), axis=-1)
+    counted = np.arange(u.shape[-1] - 1) < np.expand_dims(stop, -1)
+    return t[0] + np.sum(np.where(counted, share, 0.0) * np.diff(t), axis=-1)
 
 
 def _crossing(t: np.ndarray, y: np.ndarray, e: np.ndarray, plateau: float,
@@ -397,21 +410,22 @@ def _crossing(t: np.ndarray, y: np.ndarray, e: np.ndarray, plateau: float,
         return float("nan"), float("nan")
     sign = float(np.sign(change))
     level = y[0] + fraction * change
-    t_f = float(_time_short_of(t, y, level, sign))
+    t_f = float(_time_short_of(t, y, e, level, sign))
     # sensitivity dt_f / d level, by a central difference over the noise scale
     step = min(max(2 * float(np.sqrt(np.mean(e**2))), 1e-3 * abs(change)),
                0.5 * min(fraction, 1 - fraction) * abs(change))
-    per_level = abs(_time_short_of(t, y, level + step, sign)
-                    - _time_short_of(t, y, level - step, sign)) / (2 * step)
+    per_level = abs(_time_short_of(t, y, e, level + step, sign)
+                    - _time_short_of(t, y, e, level - step, sign)) / (2 * step)
     level_err = np.hypot(fraction * plateau_err, (1 - fraction) * e[0])
     noise_var = 0.0
     if np.any(e > 0):
         rng = np.random.default_rng(np.random.SeedSequence(BOOTSTRAP_SEED))
         resampled = y + e * rng.standard_normal((BOOTSTRAP_SAMPLES, y.size))
-        noise_var = float(np.var(_time_short_of(t, resampled, level, sign), ddof=1))
+        noise_var = float(np.var(_time_short_of(t, resampled, e, level, sign), ddof=1))
     # grid: halving the points at least doubles the interpolation error of a locally
     # quadratic curve; the difference's noise part is of the order of noise_var
-    grid = t_f - float(_time_short_of(t[::2], y[::2], level, sign)) if t.size > 2 else 0.0
+    grid = (t_f - float(_time_short_of(t[::2], y[::2], e[::2], level, sign))
+            if t.size > 2 else 0.0)
     return t_f, float(np.sqrt((per_level * level_err) ** 2 + max(noise_var, grid**2)))
 
 

@@ -79,6 +79,16 @@ def test_panels_per_coarse_graining_single_column_width_and_shared_colours():
         assert {to_rgba(c) for c in colors.values()} <= line_colors
 
 
+def test_panel_titles_name_coarse_graining_and_parameter_values():
+    results = _results(Delta=[0.5, 1.0])
+    rows = results[results.Delta == 1.0]
+    fig = plots.entropy_figure(rows, shown=["Delta"])
+    titles = sorted(ax.get_title() for ax in fig.axes)
+    assert titles == sorted(f"{cg} (Delta = 1.0)" for cg in LAWS)
+    # with no parameter given, the ones varying in the rows get panels of their own
+    assert len(plots.knowledge_figure(results).axes) == 2 * len(LAWS)
+
+
 def test_missing_column_is_named(tmp_path):
     results = _results().drop(columns=["S_ent_half"])
     with pytest.raises(InputError, match="S_ent_half"):

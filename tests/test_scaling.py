@@ -125,6 +125,18 @@ def test_saturation_time_and_exponent(table):
             groups.saturation_prefactor_err)
 
 
+def test_saturation_time_ignores_a_later_dip():
+    # a revival-like dip well after saturation, before the plateau window, must not
+    # change t_f (it would if all the time spent below the level were counted)
+    results = _results(STDERR)
+    dipped = results.copy()
+    during = (dipped.t > 80) & (dipped.t < 90)
+    dipped.loc[during, "S_obs"] *= 0.5
+    plain = scaling.saturation_times(results, fraction=FRACTION)
+    assert np.array_equal(scaling.saturation_times(dipped, fraction=FRACTION).saturation_time,
+                          plain.saturation_time)
+
+
 def test_notebook_functions_agree_with_table():
     results = _results(STDERR)
     plateau = scaling.plateaus(results, window=0.3)
@@ -213,6 +225,10 @@ def test_bad_options_and_tables_are_rejected(tmp_path):
         scaling.scaling_table(pd.concat([results, results]))
     with pytest.raises(InputError, match="run_dir"):
         scaling.scale_run(tmp_path / "missing")
+    unknown = results.copy()
+    unknown.loc[3, "S_obs_err"] = np.nan
+    with pytest.raises(InputError, match="S_obs_err is not a finite number in 1 rows"):
+        scaling.scaling_table(unknown)
     with pytest.raises(InputError, match="window"):
         scaling.plateaus(results, window=1e-4)  # fewer than 2 points in the window
 
