@@ -19,11 +19,12 @@ The schema (defaults in brackets; S = sweepable):
   ``[model.field]`` (the longitudinal field h_i): ``kind`` uniform | staggered | random (S)
   [uniform]; ``strength`` (S) [0.0]; ``seed`` (int >= 0, S) [the run seed].
 - ``[state]``: ``kind`` (required) product | domain_wall | neel | gas | random_product |
-  ground. product: ``pattern`` (string of 0/1, repeated along the chain, S);
+  ground. product: ``pattern`` (string of 0, 1, +, -, repeated along the chain, S);
   gas: ``box = [start, stop]`` (sites) or ``box_fraction = [a, b]`` (fractions of L,
   rounded half up to sites),
   ``number`` (int, S) or ``filling`` (fraction of the box, S) [filling 1.0], ``fill``
-  product | ground (S) [product]; random_product: ``seed`` (S) [the run seed];
+  packed | spread | ground (S) [packed]; random_product: ``seed`` (S) [the run seed],
+  ``draw`` haar | basis (S) [haar];
   ground: ``[state.prequench]`` with model keys (J, delta or g, field) that differ
   from ``[model]`` before the quench [none].
 - ``[evolution]``: ``dt`` (> 0, S) [0.05]; ``order`` 2 | 4 (S) [4]; ``chi_max``
@@ -60,6 +61,7 @@ import numpy as np
 
 from mpsobs.coarse import MAX_BLOCK_SITES
 from mpsobs.errors import InputError
+from mpsobs.estimate import COUNT_MAX_REGIONS
 
 __all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
            "MODELS", "STATES", "OBSERVABLES", "FIELD_KINDS", "ESTIMATOR_METHODS"]
@@ -69,9 +71,9 @@ STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")
 OBSERVABLES = ("number", "energy", "fine")
 FIELD_KINDS = ("uniform", "staggered", "random")
 ESTIMATOR_METHODS = ("auto", "exact", "enumerate", "count", "sample")
-#: Most regions the "count" estimator handles.
-COUNT_MAX_REGIONS = 3
-GAS_FILLS = ("product", "ground")
+GAS_FILLS = ("packed", "spread", "ground")
+RANDOM_DRAWS = ("haar", "basis")
+PATTERN_CHARACTERS = "01+-"
 #: Where runs go when neither the spec nor the command line names a directory.
 DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
 
@@ -159,9 +161,10 @@ _STATE_KEYS = {
     "gas": {
         "number": _Key("int", None, low=0, column="number"),
         "filling": _number(None, None, low=0.0, low_open=True, high=1.0),
-        "fill": _Key("str", "product", choices=GAS_FILLS, column="fill"),
+        "fill": _Key("str", "packed", choices=GAS_FILLS, column="fill"),
     },
-    "random_product": {"seed": _Key("int", _RUN_SEED, low=0, column="state_seed")},
+    "random_product": {"seed": _Key("int", _RUN_SEED, low=0, column="state_seed"),
+                       "draw": _Key("str", "haar", choices=RANDOM_DRAWS, column="draw")},
     "ground": {},
 }
 _EVOLUTION = {
@@ -340,9 +343,10 @@ def _state_section(table: dict, model_name: str, axes: list[str]) -> dict:
     if kind == "product":
         patterns = out["pattern"] if isinstance(out["pattern"], list) else [out["pattern"]]
         for pattern in patterns:
-            if not pattern or set(pattern) - {"0", "1"}:
-                raise _fail("state.pattern", f"expected a string of 0 and 1 (site 0 first, "
-                            f"1 = occupied), got {pattern!r}")
+            if not pattern or set(pattern) - set(PATTERN_CHARACTERS):
+                raise _fail("state.pattern", f"expected a string of the characters 0, 1, +, "
+                            f"- (site 0 first; 1 = occupied, +/- = (|0> +/- |1>)/sqrt 2), "
+                            f"got {pattern!r}")
     if kind == "gas":
         if ("box" in table) == ("box_fraction" in table):
             raise _fail("state.box", "give exactly one of state.box = [start, stop] (sites) "
@@ -360,6 +364,10 @@ def _state_section(table: dict, model_name: str, axes: list[str]) -> dict:
             raise _fail("state.number", "give state.number or state.filling, not both")
         if out["number"] is None and out["filling"] is None:
             out["filling"] = 1.0
+    fills = out.get("fill") if isinstance(out.get("fill"), list) else [out.get("fill")]
+    if kind == "gas" and "ground" in fills and model_name != "xxz":
+        raise _fail("state.fill", "'ground' needs a number-conserving model; use it with "
+                    "model.name = 'xxz', or fill = 'packed' or 'spread'")
     if kind == "ground":
         pre = _table("state.prequench", table.get("prequench", {}))
         out["prequench"] = _model_section("state.prequench", pre, axes, model_name)

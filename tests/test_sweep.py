@@ -165,3 +165,117 @@ def test_progress_bars_add_steps_from_worker_events():
     bars.point_finished(a.point_id)
     assert (bars.steps_done, bars.points_done) == (16, 1)
     bars.close()
+
+
+# --------------------------------------------------------------------------- real kernel
+
+DENSE_SPEC = {
+    "name": "dense-check", "seed": 4,
+    "model": {"name": "xxz", "L": 8, "J": 1.0, "delta": 0.5,
+              "field": {"kind": "staggered", "strength": 0.3}},
+    "state": {"kind": "gas", "box": [2, 6], "number": 3, "fill": "spread"},
+    "evolution": {"dt": 0.05, "order": 4, "chi_max": 64, "cutoff": 0.0},
+    "times": {"values": [0.0, 0.4, 1.0]},
+    "coarse": [{"observable": "number", "block": 2},
+               {"observable": "energy", "block": 2}],
+    "estimator": {"method": "exact"},
+}
+
+
+def _dense_xxz(L, J, delta, h):
+    """Independent dense XXZ Hamiltonian, H = J sum (SxSx + SySy + delta SzSz) + sum h_i Sz_i
+    with S = sigma / 2, site 0 the most significant bit (fact of the trade)."""
+    sx = np.array([[0, 1], [1, 0]]) / 2
+    sy = np.array([[0, -1j], [1j, 0]]) / 2
+    sz = np.diag([1.0, -1.0]) / 2
+
+    def site(op, i, n):
+        return np.kron(np.kron(np.eye(2**i), op), np.eye(2 ** (n - i - 1)))
+
+    H = np.zeros((2**L, 2**L), dtype=complex)
+    for i in range(L - 1):
+        for op, c in ((sx, J), (sy, J), (sz, J * delta)):
+            H += c * site(op, i, L) @ site(op, i + 1, L)
+    for i in range(L):
+        H += h[i] * site(sz, i, L)
+    return H
+
+
+def _block_entropy(psi, L, b, block_ops):
+    """S_obs = -sum p ln(p / V) of a product of block observables, from the amplitudes in
+    the product eigenbasis (definition: Phys. Rev. A 99, 010101(R) (2019), from memory)."""
+    amps = psi.reshape([2**b] * (L // b))
+    labels = []
+    for k, op in enumerate(block_ops):
+        w, v = np.linalg.eigh(op)
+        amps = np.moveaxis(np.tensordot(v.conj().T, amps, axes=(1, k)), 0, k)
+        labels.append(np.round(w, 9))
+    probs = {}
+    for index in np.ndindex(amps.shape):
+        key = tuple(labels[k][i] for k, i in enumerate(index))
+        probs[key] = probs.get(key, 0.0) + abs(amps[index]) ** 2
+    total = 0.0
+    for key, p in probs.items():
+        volume = np.prod([np.sum(labels[k] == value) for k, value in enumerate(key)])
+        if p > 0:
+            total -= p * np.log(p / volume)
+    return total
+
+
+def test_point_rows_match_dense_evolution():
+    """TEBD + estimators of one point against scipy's exact exp(-iHt) on 8 sites."""
+    from scipy.linalg import expm
+
+    from mpsobs.columns import REQUIRED
+    from mpsobs.point import compute_point
+
+    (point,) = spec.parse(DENSE_SPEC).points
+    rows = compute_point(point)
+    assert set(REQUIRED) <= set(rows.columns)
+    assert len(rows) == 3 * 2
+    L, b = 8, 2
+    h = 0.3 * (-1.0) ** np.arange(L)
+    H = _dense_xxz(L, 1.0, 0.5, h)
+    psi0 = np.zeros(2**L, dtype=complex)
+    filled = [2, 4, 5]  # spread: 2 + floor((k + 1/2) 4 / 3) for k = 0, 1, 2
+    psi0[sum(1 << (L - 1 - i) for i in filled)] = 1.0
+    number = np.diag([0.0, 1.0, 1.0, 2.0])
+    sxsy = np.array([[0, 0, 0, 0], [0, 0, 0.5, 0], [0, 0.5, 0, 0], [0, 0, 0, 0]])
+    sz = np.diag([0.5, -0.5])
+    energy_blocks = [sxsy + 0.5 * np.kron(sz, sz) + h[k] * np.kron(sz, np.eye(2))
+                     + h[k + 1] * np.kron(np.eye(2), sz) for k in range(0, L, b)]
+    for t in (0.0, 0.4, 1.0):
+        psi = expm(-1j * H * t) @ psi0
+        got = rows[rows["t"] == t].set_index("coarse_graining")["S_obs"]
+        want_n = _block_entropy(psi, L, b, [number] * (L // b))
+        want_e = _block_entropy(psi, L, b, energy_blocks)
+        # 4th-order Trotter error at dt = 0.05 is ~1e-7 per unit time
+        assert abs(got["number:b2"] - want_n) < 1e-5
+        assert abs(got["energy:b2"] - want_e) < 1e-5
+    assert (rows["knowledge"] >= -1e-12).all()
+    assert np.allclose(rows["S_obs"] + rows["knowledge"], L * np.log(2))
+    assert (rows["method"] == "exact").all() and (rows["S_obs_err"] == 0).all()
+    assert (rows["seed"] == point.seed).all() and (rows["point_id"] == point.point_id).all()
+
+
+def test_resumed_point_equals_uninterrupted_point():
+    """Resuming from the checkpoint taken after the second time gives the same rows."""
+    from mpsobs.point import compute_point
+
+    data = {**DENSE_SPEC, "estimator": {"method": "sample", "samples": 200},
+            "times": {"values": [0.0, 0.3, 0.6, 0.9]},
+            "evolution": {"dt": 0.05, "chi_max": 8, "cutoff": 1e-10}}
+    (point,) = spec.parse(data).points
+    checkpoints = []
+    full = compute_point(point, save=lambda tensors, meta: checkpoints.append(
+        ([t.copy() for t in tensors], dict(meta, rows=list(meta["rows"])))))
+    assert len(checkpoints) == 4
+    tensors, meta = checkpoints[1]
+    assert meta["done"] == 2 and meta["t"] == 0.3
+    resumed = compute_point(point, resume=(tensors, meta))
+    again = compute_point(point)
+    drop = ["elapsed_s"]
+    pd.testing.assert_frame_equal(again.drop(columns=drop), full.drop(columns=drop))
+    pd.testing.assert_frame_equal(resumed.drop(columns=drop), full.drop(columns=drop),
+                                  rtol=1e-9)
+    assert (full["method"] == "sampled").all() and (full["S_obs_err"] > 0).all()
