@@ -227,8 +227,10 @@ def split(results: pd.DataFrame, columns: list[str]) -> list[tuple[dict, pd.Data
             for values, rows in data.groupby(columns, dropna=False, sort=True)]
 
 
-def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, pd.DataFrame]]]:
-    """Check the columns and split the table into time-sorted curves."""
+def _curves(results: pd.DataFrame, needed, *, warn: bool = True
+            ) -> tuple[list[str], list[tuple[dict, pd.DataFrame]]]:
+    """Check the columns and split the table into time-sorted curves (``warn``: log
+    what is treated specially)."""
     require_columns(results, needed, "results")
     keys = group_columns(results)
     clash = sorted(_OUTPUT.intersection(keys))
@@ -236,7 +238,7 @@ def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, 
         raise InputError(f"results: parameter column(s) {', '.join(clash)} clash with "
                          "columns of the scaling table; rename the parameter")
     companions = length_companions(results)
-    if companions:
+    if companions and warn:
         log.warning("results: %s change(s) together with L (one value per L); treated as "
                     "part of the chain length, not as separate groups", ", ".join(companions))
     bad_err = ~np.isfinite(results["S_obs_err"].to_numpy(dtype=float))
@@ -245,7 +247,7 @@ def _curves(results: pd.DataFrame, needed) -> tuple[list[str], list[tuple[dict, 
                          "rows; every S_obs needs its standard error (0 when exact)")
     data = results
     bad = ~np.isfinite(data["S_obs"].to_numpy(dtype=float))
-    if bad.any():
+    if bad.any() and warn:
         log.warning("results: dropping %d rows whose S_obs is not finite", int(bad.sum()))
         data = data[~bad]
     if data.empty:
@@ -538,21 +540,39 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
     when S_obs(0) = 0) and ``rise_err`` (from S_obs_err only), plus ``z``, ``z_err`` and
     ``saturation_fraction`` of the group.
     """
-    require_columns(results, SCALING_COLUMNS, "results")
-    keys = group_columns(results)
-    data = _hashable(results, keys)[keys + ["L", "t", "S_obs", "S_obs_err"]]
-    fits = table[keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
-                         "saturation_fraction"]]
-    merged = data.merge(fits, on=keys + ["L"], how="inner").sort_values(keys + ["L", "t"])
-    L = merged["L"].to_numpy(dtype=float)
-    change = (merged["plateau_per_site"] - merged["initial_per_site"]).to_numpy()
-    out = merged[keys + ["L", "t"]].reset_index(drop=True)
-    out["scaled_time"] = merged["t"].to_numpy() / L ** merged["z"].to_numpy()
-    out["rise"] = (merged["S_obs"].to_numpy() / L - merged["initial_per_site"].to_numpy()) / change
-    out["rise_err"] = merged["S_obs_err"].to_numpy() / L / np.abs(change)
-    for name in ("z", "z_err", "saturation_fraction"):
-        out[name] = merged[name].to_numpy()
-    return out
+    keys, curves = _curves(results, SCALING_COLUMNS, warn=False)  # warned by the table
+    require_columns(table, keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
+                                   "saturation_fraction"], "scaling table")
+    fits = {_canonical(key): rows.iloc[0] for key, rows in split(table, keys + ["L"])}
+    parts = []
+    for key, curve in curves:
+        fit = fits.get(_canonical(key))
+        if fit is None:
+            continue
+        L = float(key["L"])
+        change = fit["plateau_per_site"] - fit["initial_per_site"]
+        t = curve["t"].to_numpy(dtype=float)
+        parts.append(pd.DataFrame({
+            **key, "t": t, "scaled_time": t / L ** fit["z"],
+            "rise": (curve["S_obs"].to_numpy(dtype=float) / L - fit["initial_per_site"]) / change,
+            "rise_err": curve["S_obs_err"].to_numpy(dtype=float) / L / abs(change),
+            "z": fit["z"], "z_err": fit["z_err"],
+            "saturation_fraction": fit["saturation_fraction"]}))
+    if not parts:
+        raise InputError("scaling table: none of its rows matches a curve of the results")
+    return pd.concat(parts, ignore_index=True)
+
+
+def _canonical(key: dict) -> tuple:
+    """Key values made comparable across tables: numbers as floats, None and NaN alike."""
+    def one(value):
+        if value is None or (isinstance(value, float | np.floating) and np.isnan(value)):
+            return "nan"
+        if isinstance(value, int | float | np.integer | np.floating) and not isinstance(
+                value, bool | np.bool_):
+            return float(value)
+        return value
+    return tuple(one(v) for v in key.values())
 
 
 def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,

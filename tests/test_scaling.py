@@ -185,9 +185,11 @@ def test_columns_fixed_by_length_or_coarse_graining_do_not_split_groups(caplog):
     results = _results(STDERR)
     results["chi_max"] = 8 * results.L  # swept together with L
     results["block_size"] = results.coarse_graining.str[-1].astype(int)
+    results["field_seed"] = None  # an unset parameter: object column of None
     with caplog.at_level("WARNING", logger="mpsobs.scaling"):
         table = scaling.scaling_table(results)
     assert "chi_max change(s) together with L" in caplog.text
+    assert len(scaling.collapse_curves(results, table)) == len(results)
     assert "chi_max" not in table.columns
     assert len(table) == len(LENGTHS) * len(LAWS) * 2
     assert (table.extrapolation_lengths == len(LENGTHS)).all()
