@@ -45,7 +45,7 @@ from mpsobs.blocktensors import ReadoutBlock, readout_blocks, transfer, transfer
 from mpsobs.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
 from mpsobs.dense import NORM_TOL
 from mpsobs.errors import InputError
-from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical
+from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical_log_norm
 from mpsobs.result import EntropyResult, OutcomeDistribution
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
@@ -90,14 +90,11 @@ def canonical_state(state, L: int | None = None) -> MPS:
     for i, t in enumerate(mps.tensors):
         if not np.all(np.isfinite(t)):
             raise InputError(f"state: MPS tensor {i} contains NaN or infinite entries")
-    rc = right_canonical(mps)
-    norm = float(np.linalg.norm(rc.tensors[0]))
-    if not np.isfinite(norm) or norm == 0.0:
-        raise InputError(f"state: the MPS has norm {norm}; it cannot be normalised")
-    if abs(norm - 1.0) > NORM_TOL:
-        warnings.warn(f"state: the MPS is not normalised (norm = {norm:.12g}); it is "
+    rc, log_norm = right_canonical_log_norm(mps)
+    if abs(log_norm) > NORM_TOL:
+        warnings.warn(f"state: the MPS is not normalised (ln norm = {log_norm:.12g}); it is "
                       f"normalised before the estimate", UserWarning, stacklevel=3)
-    return MPS((rc.tensors[0] / norm,) + rc.tensors[1:])
+    return rc
 
 
 def _positive_int(value, name: str, minimum: int = 1) -> int:

@@ -20,8 +20,8 @@ import scipy.linalg as sla
 from mpsobs.errors import InputError
 
 __all__ = ["MPS", "as_mps", "from_quimb", "to_quimb", "from_dense", "to_dense",
-           "right_canonical", "bond_entropies", "random_mps", "product_mps", "norm",
-           "robust_svd"]
+           "right_canonical", "right_canonical_log_norm", "bond_entropies", "random_mps",
+           "product_mps", "norm", "robust_svd"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -124,20 +124,37 @@ def right_canonical(mps: MPS, *, normalize: bool = False) -> MPS:
 
     The norm stays in the first tensor unless ``normalize``.
     """
+    rc, log_norm = right_canonical_log_norm(mps)
+    if normalize:
+        return rc
+    return MPS((rc.tensors[0] * np.exp(log_norm),) + rc.tensors[1:])
+
+
+def right_canonical_log_norm(mps: MPS) -> tuple[MPS, float]:
+    """The normalised right-canonical form and ln <psi|psi>^(1/2).
+
+    The factor carried leftwards is rescaled at every site, so states whose norm
+    over- or underflows a float (long chains of unnormalised tensors) come out right.
+    Raises InputError for a zero or non-finite norm. Cost L chi^3.
+    """
     tensors = list(mps.tensors)
+    log_norm = 0.0
     for i in range(mps.L - 1, 0, -1):
         t = tensors[i]
         chl, d, chr_ = t.shape
         # A = L Q with Q having orthonormal rows: take QR of A^dagger.
         q, r = np.linalg.qr(t.reshape(chl, d * chr_).conj().T)
+        scale = np.linalg.norm(r)
+        if not np.isfinite(scale) or scale == 0:
+            raise InputError(f"state: the MPS has norm {scale} (seen at site {i})")
+        log_norm += np.log(scale)
         tensors[i] = q.conj().T.reshape(-1, d, chr_)
-        tensors[i - 1] = np.tensordot(tensors[i - 1], r.conj().T, axes=(2, 0))
-    if normalize:
-        n = np.linalg.norm(tensors[0])
-        if n == 0:
-            raise InputError("state: the MPS has zero norm")
-        tensors[0] = tensors[0] / n
-    return MPS(tuple(tensors))
+        tensors[i - 1] = np.tensordot(tensors[i - 1], r.conj().T / scale, axes=(2, 0))
+    n = np.linalg.norm(tensors[0])
+    if not np.isfinite(n) or n == 0:
+        raise InputError(f"state: the MPS has norm {n}")
+    tensors[0] = tensors[0] / n
+    return MPS(tuple(tensors)), float(log_norm + np.log(n))
 
 
 def norm(mps: MPS) -> float:
