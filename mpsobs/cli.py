@@ -198,12 +198,19 @@ def _cmd_scale(args) -> int:
     return 0
 
 
+class _StderrHandler(logging.StreamHandler):
+    """The command line's stderr log handler (one, however often main() runs)."""
+
+
 def _setup_logging(verbose: bool) -> None:
     """mpsobs logs at INFO (for run.log); stderr shows warnings, or INFO with -v."""
-    handler = logging.StreamHandler()
+    root = logging.getLogger()
+    for old in [h for h in root.handlers if isinstance(h, _StderrHandler)]:
+        root.removeHandler(old)
+    handler = _StderrHandler()
     handler.setLevel(logging.INFO if verbose else logging.WARNING)
     handler.setFormatter(logging.Formatter("mpsobs: %(levelname)s %(name)s: %(message)s"))
-    logging.getLogger().addHandler(handler)
+    root.addHandler(handler)
     logging.getLogger("mpsobs").setLevel(logging.INFO)
 
 

@@ -6,9 +6,10 @@ comes only from seeds in the point: the random field (``model.field.seed``), a r
 product state (``state.seed``) and the sampled estimators, whose generator for time
 index k and coarse-graining j is ``SeedSequence(point.seed, spawn_key=(k, j))``.
 
-The thermodynamic reference is computed once per point from the initial state: the Gibbs
-entropy at its energy (and its particle number when the model conserves it), and for
-free-fermion models the generalised Gibbs entropy of its mode occupations.
+The thermodynamic reference is computed once per point from the initial state
+(:mod:`mpsobs.thermo`): the Gibbs entropy at its energy and, when the model conserves
+it, its particle number (grand ensemble; for XX chains with a definite number, exactly
+that sector), and for XX chains the generalised Gibbs entropy of its mode occupations.
 
 Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
 block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
@@ -26,7 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from mpsobs import __version__, coarse, evolve, models, states, thermo
+from mpsobs import __version__, coarse, evolve, gaussian, models, states, thermo
 from mpsobs.columns import EXTRA, REQUIRED
 from mpsobs.entropy import observational_entropy
 from mpsobs.errors import InputError
@@ -42,6 +43,8 @@ log = logging.getLogger(__name__)
 #: Columns of a point's rows before its parameters.
 ROW_COLUMNS = (*REQUIRED, *EXTRA, "block_size")
 _NUMBER = np.diag([0.0, 1.0])  # sites in |1>
+#: <N> this close to an integer is taken as that integer (a state of definite number).
+NUMBER_TOL = 1e-8
 
 
 @dataclass(frozen=True)
@@ -109,13 +112,32 @@ def total_number(state: MPS) -> float:
     return models.energy(counter, state)
 
 
+def _is_xx(model: models.Model) -> bool:
+    """Whether the model is an XX chain (free fermions that carry the particle number)."""
+    try:
+        gaussian.quadratic_hamiltonian(model)
+    except InputError:
+        return False
+    return True
+
+
 def _reference(model: models.Model, state: MPS, energy: float) -> _Reference:
-    number = total_number(state) if model.conserves_number else None
-    gibbs = thermo.gibbs(model, energy, number=number)
-    gge = thermo.gge(model, state) if thermo.is_free_fermion(model) else None
+    """Gibbs entropy at the state's energy (and number, where conserved); the GGE entropy
+    of its mode occupations for XX chains. A state with every site empty or every site
+    filled is alone in its sector: entropy 0."""
+    number = None
+    if model.conserves_number:
+        number = total_number(state)
+        if abs(number - round(number)) < NUMBER_TOL:
+            number = float(round(number))
+        if number in (0.0, float(model.L)):
+            return _Reference(S_thermo=0.0, S_thermo_err=0.0, beta=math.nan, S_gge=math.nan)
+    xx = _is_xx(model)
+    ensemble = "canonical" if xx and number is not None and number.is_integer() else "grand"
+    gibbs = thermo.gibbs(model, energy, number, ensemble=ensemble)
+    gge = thermo.gge(model, state).entropy if xx else math.nan
     return _Reference(S_thermo=float(gibbs.entropy), S_thermo_err=float(gibbs.entropy_err),
-                      beta=float(gibbs.beta),
-                      S_gge=float(gge.entropy) if gge is not None else math.nan)
+                      beta=float(gibbs.beta), S_gge=float(gge))
 
 
 def _estimator_options(estimator: dict, cg: coarse.BlockCoarseGraining) -> dict:

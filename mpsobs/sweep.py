@@ -202,6 +202,15 @@ class _Bars:
         self.points.close()
 
 
+def _cost(point: Point) -> float:
+    """Rough relative cost of a point, L * steps * chi^3 with chi the smaller of its cap
+    and the largest bond an L-site chain can need; dearer points are submitted first so
+    that the longest ones do not start last."""
+    L = point.params["model"]["L"]
+    chi = min(point.params["evolution"]["chi_max"], 2 ** (L // 2))
+    return float(L * _steps(point) * chi**3)
+
+
 def _steps(point: Point) -> int:
     params = point.params
     try:
@@ -257,10 +266,12 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
             with _client(workers, scheduler) as client:
                 if progress:
                     client.subscribe_topic(PROGRESS_TOPIC, bars.on_event)
+                order = sorted(todo, key=_cost, reverse=True)
                 futures = {client.submit(run_point_task, p, str(store.root), kernel,
                                          spec.checkpoint_seconds, pure=False,
+                                         priority=len(order) - rank,
                                          key=f"mpsobs-point-{p.point_id}-{spec.run_id[:8]}"): p
-                           for p in todo}
+                           for rank, p in enumerate(order)}
                 log.info("submitted %d points to %s", len(todo), client.scheduler.address)
                 for future in as_completed(futures):
                     point = futures[future]

@@ -1,0 +1,261 @@
+"""The ``mpsobs`` command: help and usage errors, a run killed with SIGKILL and resumed,
+a run on a separate Dask scheduler that loses a worker, refusals (other run, lock),
+and the plot / scale commands on a finished run."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import signal
+import socket
+import subprocess
+import sys
+import time
+import tomllib
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from mpsobs import cli, spec, store, sweep
+from mpsobs.columns import REQUIRED
+
+# Four points of comparable cost (a second or two each on one core).
+SPEC = """\
+name = "cli-test"
+seed = 17
+
+[model]
+name = "xxz"
+L = [10, 12]
+delta = 0.7
+
+[model.field]
+kind = "staggered"
+strength = [0.2, 0.5]
+
+[state]
+kind = "gas"
+box_fraction = [0.0, 0.5]
+
+[evolution]
+dt = 0.05
+chi_max = 24
+
+[times]
+t_max = 3.0
+n_times = 7
+
+[[coarse]]
+observable = "number"
+block = 2
+
+[[coarse]]
+observable = "energy"
+block = 2
+
+[estimator]
+samples = 300
+
+[output]
+checkpoint_seconds = 0
+"""
+N_POINTS = 4
+ROWS = N_POINTS * 7 * 2
+#: Columns that differ between two runs of the same points (wall time).
+VOLATILE = ["elapsed_s"]
+WAIT = 240.0  # bound (s) on every wait for a subprocess
+
+
+def _mpsobs(*args: str) -> list[str]:
+    return [sys.executable, "-m", "mpsobs.cli", *args]
+
+
+def _env() -> dict:
+    return {**os.environ, **sweep.WORKER_ENV}
+
+
+def _table(root: Path) -> pd.DataFrame:
+    frame = pd.read_parquet(root / store.RESULTS_FILE).drop(columns=VOLATILE)
+    keys = ["point_id", "t", "coarse_graining"]
+    return frame.sort_values(keys).reset_index(drop=True)
+
+
+def _wait_for(condition, what: str, timeout: float = WAIT) -> None:
+    deadline = time.monotonic() + timeout
+    while not condition():
+        if time.monotonic() > deadline:
+            raise AssertionError(f"timed out waiting for {what}")
+        time.sleep(0.05)
+
+
+def _kill_group(proc: subprocess.Popen) -> None:
+    with contextlib.suppress(ProcessLookupError):
+        os.killpg(proc.pid, signal.SIGKILL)
+    with contextlib.suppress(subprocess.TimeoutExpired):
+        proc.wait(timeout=30)
+
+
+@pytest.fixture(scope="module")
+def spec_file(tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("spec") / "cli-test.toml"
+    path.write_text(SPEC)
+    return path
+
+
+@pytest.fixture(scope="module")
+def reference(spec_file, tmp_path_factory) -> Path:
+    """An uninterrupted run on one worker."""
+    out = tmp_path_factory.mktemp("reference") / "run"
+    done = subprocess.run(_mpsobs("run", str(spec_file), "--out", str(out), "--workers", "1",
+                                  "--no-progress", "--no-plots"),
+                          env=_env(), capture_output=True, text=True, timeout=WAIT)
+    assert done.returncode == 0, done.stderr
+    return out
+
+
+def test_reference_table(reference):
+    table = pd.read_parquet(reference / store.RESULTS_FILE)
+    assert set(REQUIRED) <= set(table.columns)
+    assert len(table) == ROWS and table["point_id"].nunique() == N_POINTS
+    assert {"L", "h", "chi_max", "block_size"} <= set(table.columns)
+    assert table.groupby("point_id")["seed"].nunique().eq(1).all()
+
+
+def test_sigkill_then_rerun_gives_the_uninterrupted_table(spec_file, reference, tmp_path):
+    out = tmp_path / "run"
+    args = _mpsobs("run", str(spec_file), "--out", str(out), "--workers", "1",
+                   "--no-progress", "--no-plots")
+    proc = subprocess.Popen(args, env=_env(), start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    points = out / "points"
+    try:
+        _wait_for(lambda: points.is_dir() and any(points.glob("*.parquet")),
+                  "the first finished point")
+    finally:
+        _kill_group(proc)  # the command and its Dask workers
+    assert proc.returncode == -signal.SIGKILL
+    finished = {p.name: (p.stat().st_ino, p.stat().st_mtime_ns)
+                for p in points.glob("*.parquet")}
+    assert 1 <= len(finished) < N_POINTS  # killed in the middle of the sweep
+    assert (out / store.LOCK_FILE).exists()  # left behind by the killed run: stale
+    rerun = subprocess.run(args, env=_env(), capture_output=True, text=True, timeout=WAIT)
+    assert rerun.returncode == 0, rerun.stderr
+    # finished points were not recomputed: their files are the very same
+    for name, stamp in finished.items():
+        path = points / name
+        assert (path.stat().st_ino, path.stat().st_mtime_ns) == stamp
+    log = (out / store.LOG_FILE).read_text()
+    assert f"{len(finished)} of {N_POINTS} points finished before; skipping them" in log
+    pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
+    assert not (out / store.LOCK_FILE).exists()
+    assert not list((out / "checkpoints").glob("*.npz"))
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_run_on_a_scheduler_survives_a_killed_worker(spec_file, reference, tmp_path):
+    port = _free_port()
+    address = f"tcp://127.0.0.1:{port}"
+    procs: list[subprocess.Popen] = []
+    logs = tmp_path / "logs"
+    logs.mkdir()
+
+    def start(name: str, args: list[str]) -> subprocess.Popen:
+        handle = open(logs / f"{name}.log", "w")  # noqa: SIM115 - closed with the process
+        proc = subprocess.Popen(args, env=_env(), cwd=tmp_path, start_new_session=True,
+                                stdout=handle, stderr=subprocess.STDOUT)
+        handle.close()
+        procs.append(proc)
+        return proc
+
+    try:
+        start("scheduler", [sys.executable, "-m", "distributed.cli.dask_scheduler",
+                            "--host", "127.0.0.1", "--port", str(port), "--no-dashboard"])
+        workers = [start(f"worker{i}", [sys.executable, "-m", "distributed.cli.dask_worker",
+                                        address, "--nworkers", "1", "--nthreads", "1",
+                                        "--host", "127.0.0.1", "--no-dashboard"])
+                   for i in range(2)]
+        from distributed import Client
+
+        with Client(address, timeout=60) as client:
+            client.wait_for_workers(2, timeout=120)
+        out = tmp_path / "run"
+        run = start("mpsobs", _mpsobs("run", str(spec_file), "--out", str(out),
+                                      "--scheduler", address, "--no-progress",
+                                      "--no-plots"))
+        _wait_for(lambda: (out / "checkpoints").is_dir()
+                  and any((out / "checkpoints").glob("*.npz")), "a point under way")
+        _kill_group(workers[0])
+        assert workers[0].returncode is not None
+        run.wait(timeout=WAIT)
+        assert run.returncode == 0, (logs / "mpsobs.log").read_text()
+        assert len(list((out / "points").glob("*.parquet"))) == N_POINTS
+        pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
+    finally:
+        for proc in procs:
+            _kill_group(proc)
+
+
+def test_other_spec_refused_and_directory_left_as_it_was(reference, tmp_path, capsys):
+    before = sorted((p.relative_to(reference), p.stat().st_mtime_ns)
+                    for p in reference.rglob("*"))
+    other = tmp_path / "other.toml"
+    other.write_text(SPEC.replace("seed = 17", "seed = 18"))
+    assert cli.main(["run", str(other), "--out", str(reference), "--no-progress"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("mpsobs: error: --out:") and "holds another run" in err
+    assert sorted((p.relative_to(reference), p.stat().st_mtime_ns)
+                  for p in reference.rglob("*")) == before
+
+
+def test_second_concurrent_run_refused(spec_file, tmp_path, capsys):
+    out = tmp_path / "run"
+    with store.open_run(out, spec.load(spec_file)):  # this process holds the lock
+        code = cli.main(["run", str(spec_file), "--out", str(out), "--no-progress"])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "in use by another mpsobs run" in err and str(os.getpid()) in err
+
+
+def test_plot_and_scale_commands_read_the_run(reference, capsys):
+    assert cli.main(["plot", str(reference)]) == 0
+    assert list((reference / "figures").glob("*.png"))
+    assert cli.main(["scale", str(reference), "--window", "0.4"]) == 0
+    assert (reference / "scaling.csv").exists()
+    capsys.readouterr()
+    assert cli.main(["plot", str(reference / "nowhere")]) == 2
+    assert capsys.readouterr().err.startswith("mpsobs: error: ")
+
+
+def test_help_and_usage_errors(capsys, tmp_path):
+    for argv in (["--help"], ["run", "--help"], ["scale", "--help"]):
+        with pytest.raises(SystemExit) as stop:
+            cli.main(argv)
+        assert stop.value.code == 0
+        assert "usage: mpsobs" in capsys.readouterr().out
+    out = tmp_path / "run"
+    for argv, words in ((["run", "--bogus"], "unrecognized arguments"),
+                        (["run", "--workers", "0", "--out", str(out)], "--workers"),
+                        (["run", "--workers", "2", "--scheduler", "tcp://127.0.0.1:1",
+                          "--out", str(out)], "--workers"),
+                        (["scale", str(tmp_path), "--fraction", "2"], "--fraction"),
+                        (["launch"], "invalid choice")):
+        assert cli.main(argv) == 2
+        err = capsys.readouterr().err
+        assert err.startswith("mpsobs: error: ") and words in err
+        assert len(err.strip().splitlines()) == 1
+    assert not out.exists()
+
+
+def test_template_and_check(capsys):
+    assert cli.main(["template"]) == 0
+    text = capsys.readouterr().out
+    assert tomllib.loads(text)["name"] == spec.load(None).name
+    assert cli.main(["check"]) == 0
+    listing = capsys.readouterr().out
+    assert all(p.point_id in listing for p in spec.load(None).points)
