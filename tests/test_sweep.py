@@ -222,7 +222,16 @@ def _block_entropy(psi, L, b, block_ops):
     return total
 
 
-def test_point_rows_match_dense_evolution():
+def _on_worker(scheduler: str, func, *args):
+    """Run ``func(*args)`` on a worker of the local cluster (BLAS pinned to one thread
+    there; this process may run with several BLAS threads on a shared machine)."""
+    from distributed import Client
+
+    with Client(scheduler) as client:
+        return client.submit(func, *args, pure=False).result(timeout=300)
+
+
+def test_point_rows_match_dense_evolution(scheduler):
     """TEBD + estimators of one point against scipy's exact exp(-iHt) on 8 sites."""
     from scipy.linalg import expm
 
@@ -230,7 +239,7 @@ def test_point_rows_match_dense_evolution():
     from mpsobs.point import compute_point
 
     (point,) = spec.parse(DENSE_SPEC).points
-    rows = compute_point(point)
+    rows = _on_worker(scheduler, compute_point, point)
     assert set(REQUIRED) <= set(rows.columns)
     assert len(rows) == 3 * 2
     L, b = 8, 2
@@ -258,22 +267,27 @@ def test_point_rows_match_dense_evolution():
     assert (rows["seed"] == point.seed).all() and (rows["point_id"] == point.point_id).all()
 
 
-def test_resumed_point_equals_uninterrupted_point():
-    """Resuming from the checkpoint taken after the second time gives the same rows."""
+def _full_resumed_again(point):
+    """The point computed whole (keeping its checkpoints), resumed from the checkpoint
+    after its second time, and computed whole once more."""
     from mpsobs.point import compute_point
 
+    checkpoints = []
+    full = compute_point(point, save=lambda tensors, meta: checkpoints.append(
+        ([t.copy() for t in tensors], dict(meta, rows=list(meta["rows"])))))
+    resumed = compute_point(point, resume=checkpoints[1])
+    return full, checkpoints, resumed, compute_point(point)
+
+
+def test_resumed_point_equals_uninterrupted_point(scheduler):
+    """Resuming from the checkpoint taken after the second time gives the same rows."""
     data = {**DENSE_SPEC, "estimator": {"method": "sample", "samples": 200},
             "times": {"values": [0.0, 0.3, 0.6, 0.9]},
             "evolution": {"dt": 0.05, "chi_max": 8, "cutoff": 1e-10}}
     (point,) = spec.parse(data).points
-    checkpoints = []
-    full = compute_point(point, save=lambda tensors, meta: checkpoints.append(
-        ([t.copy() for t in tensors], dict(meta, rows=list(meta["rows"])))))
+    full, checkpoints, resumed, again = _on_worker(scheduler, _full_resumed_again, point)
     assert len(checkpoints) == 4
-    tensors, meta = checkpoints[1]
-    assert meta["done"] == 2 and meta["t"] == 0.3
-    resumed = compute_point(point, resume=(tensors, meta))
-    again = compute_point(point)
+    assert checkpoints[1][1]["done"] == 2 and checkpoints[1][1]["t"] == 0.3
     drop = ["elapsed_s"]
     pd.testing.assert_frame_equal(again.drop(columns=drop), full.drop(columns=drop))
     pd.testing.assert_frame_equal(resumed.drop(columns=drop), full.drop(columns=drop),
