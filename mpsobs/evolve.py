@@ -23,6 +23,7 @@ O(L chi^3); order 4 costs three times that.
 
 from __future__ import annotations
 
+import functools
 import logging
 import math
 from collections.abc import Iterator, Sequence
@@ -176,13 +177,14 @@ def _keep_count(s: np.ndarray, max_bond: int, cutoff: float) -> tuple[int, float
 
 
 def _svd(m: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Thin SVD: LAPACK gesdd called directly (no wrapper overhead); if it does not
-    converge, :func:`mpsobs.mps.robust_svd` (gesdd, then gesvd); if that fails too, the
+    """Thin SVD: LAPACK gesdd called directly (on m^T, which is Fortran-ordered, so
+    nothing is copied and the factors come out C-ordered); if it does not converge,
+    :func:`mpsobs.mps.robust_svd` (gesdd, then gesvd); if that fails too, the
     eigen-decomposition of the Gram matrix (:func:`_gram_svd`)."""
-    lwork, _ = _GESDD_LWORK(*m.shape, compute_uv=1, full_matrices=0)
-    u, s, vh, info = _GESDD(m, compute_uv=1, full_matrices=0, lwork=int(lwork.real))
-    if info == 0:
-        return u, s, vh
+    lwork, _ = _GESDD_LWORK(m.shape[1], m.shape[0], compute_uv=1, full_matrices=0)
+    ut, s, vht, info = _GESDD(m.T, compute_uv=1, full_matrices=0, lwork=int(lwork.real))
+    if info == 0:   # m^T = ut s vht  =>  m = vht^T s ut^T
+        return vht.T, s, ut.T
     logger.debug("gesdd failed (info %d) on a %s matrix; falling back", info, m.shape)
     try:
         return robust_svd(m)
@@ -210,12 +212,17 @@ def _gram_svd(m: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return u, s, v.conj().T
 
 
+@functools.lru_cache(maxsize=4096)
+def _upper_mask(k: int, n: int) -> np.ndarray:
+    return np.triu(np.ones((k, n), dtype=bool))
+
+
 def _qr(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Economic QR by LAPACK geqrf + ungqr called directly."""
     qr, tau, _, _ = _GEQRF(m)
     k = min(m.shape)
     q, _, _ = _UNGQR(qr[:, :k], tau)
-    return q, np.triu(qr[:k])
+    return q, qr[:k] * _upper_mask(k, m.shape[1])
 
 
 def _move_right(tensors: list[np.ndarray], i: int) -> None:
@@ -252,15 +259,19 @@ def _move_center(tensors: list[np.ndarray], center: int, target: int) -> int:
 
 def _apply_layer(tensors: list[np.ndarray], center: int, parity: int,
                  gates: list[np.ndarray], max_bond: int, cutoff: float) -> tuple[int, float]:
-    """Apply the gates of one parity (even bonds left to right, odd bonds right to left),
-    in place. Returns the new center and the sum of discarded weight fractions."""
-    bonds = list(range(parity, len(tensors) - 1, 2))
-    pairs = list(zip(bonds, gates, strict=True))
+    """Apply the gates of one parity in place: even bonds left to right, the center
+    ending on the right site of each gate and moved one site on by QR; odd bonds right
+    to left, mirrored. Returns the new center and the sum of discarded fractions."""
+    L = len(tensors)
+    bonds = range(parity, L - 1, 2)
+    if not bonds:
+        return center, 0.0
     if parity == 1:
-        pairs.reverse()
+        bonds, gates = bonds[::-1], gates[::-1]
+    b0 = bonds[0]
+    center = _move_center(tensors, center, min(max(center, b0), b0 + 1))
     discarded = 0.0
-    for b, gate in pairs:
-        center = _move_center(tensors, center, min(max(center, b), b + 1))
+    for b, gate in zip(bonds, gates, strict=True):
         left, right = tensors[b], tensors[b + 1]
         chl, chr_ = left.shape[0], right.shape[2]
         theta = left.reshape(chl * 2, -1) @ right.reshape(left.shape[2], -1)
@@ -268,15 +279,20 @@ def _apply_layer(tensors: list[np.ndarray], center: int, parity: int,
         u, s, vh = _svd(theta.reshape(chl * 2, 2 * chr_))
         k, lost = _keep_count(s, max_bond, cutoff)
         discarded += lost
-        u, s, vh = u[:, :k], s[:k], vh[:k]
-        if parity == 0:   # center moves right
-            tensors[b] = u.reshape(chl, 2, k)
-            tensors[b + 1] = (s[:, None] * vh).reshape(k, 2, chr_)
+        if parity == 0:   # center to b + 1, then on to b + 2 if another gate follows
+            tensors[b] = u[:, :k].reshape(chl, 2, k)
+            tensors[b + 1] = (s[:k, None] * vh[:k]).reshape(k, 2, chr_)
             center = b + 1
-        else:
-            tensors[b] = (u * s).reshape(chl, 2, k)
-            tensors[b + 1] = vh.reshape(k, 2, chr_)
+            if b + 3 < L:
+                _move_right(tensors, b + 1)
+                center = b + 2
+        else:             # center to b, then on to b - 1 if another gate follows
+            tensors[b] = (u[:, :k] * s[:k]).reshape(chl, 2, k)
+            tensors[b + 1] = vh[:k].reshape(k, 2, chr_)
             center = b
+            if b >= 2:
+                _move_left(tensors, b)
+                center = b - 1
     return center, discarded
 
 
