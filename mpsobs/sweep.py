@@ -63,13 +63,15 @@ class Kernel(Protocol):
 @dataclass(frozen=True)
 class SweepReport:
     """What a sweep did: points in the spec, skipped (finished before), computed now,
-    failed (with their error messages), and the merged table."""
+    failed (with their error messages), the merged table, and the wall time each
+    computed point took on its worker."""
 
     total: int
     skipped: int
     computed: int
     failed: tuple[tuple[Point, str], ...]
     table: pd.DataFrame = field(repr=False)
+    task_seconds: tuple[float, ...] = ()
 
 
 def _default_kernel() -> Kernel:
@@ -260,6 +262,7 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
         log.info("%d of %d points finished before; skipping them", skipped, len(spec.points))
     failed: list[tuple[Point, str]] = []
     computed = 0
+    seconds: list[float] = []
     if todo:
         bars = _Bars(spec.points, skipped, {p.point_id: _steps(p) for p in todo}, progress)
         try:
@@ -284,6 +287,8 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
                                   message)
                     else:
                         computed += 1
+                        if not summary.get("skipped"):
+                            seconds.append(summary["seconds"])
                         log.info("point %s (%s) done: %s", point.point_id, point.label,
                                  summary)
                     bars.point_finished(point.point_id)
@@ -293,4 +298,4 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
             bars.close()
     table = store.merge(spec.points)
     return SweepReport(total=len(spec.points), skipped=skipped, computed=computed,
-                       failed=tuple(failed), table=table)
+                       failed=tuple(failed), table=table, task_seconds=tuple(seconds))

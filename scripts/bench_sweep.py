@@ -8,7 +8,9 @@ task submission, the points, their Parquet files and the merged table.
 
     efficiency = T1 / (2 T2)      goal >= 0.85
 
-Printed as well: T1, T2, the mean time per point and the speed-up T1 / T2. On a shared
+Printed as well: T1, T2, the speed-up T1 / T2, the mean time of a point on its worker in
+both runs (if it grows with two workers, the cores are busy with other work: the
+efficiency then measures the machine, not the runner) and the load average. On a shared
 machine the figures are noisy; run it more than once (``--repeat``) and read the best.
 
     python scripts/bench_sweep.py [--L 24] [--repeat 1]
@@ -17,6 +19,7 @@ machine the figures are noisy; run it more than once (``--repeat``) and read the
 from __future__ import annotations
 
 import argparse
+import os
 import tempfile
 import time
 from pathlib import Path
@@ -41,7 +44,8 @@ def bench_spec(L: int) -> spec.RunSpec:
     })
 
 
-def timed_sweep(run: spec.RunSpec, workers: int, root: Path) -> float:
+def timed_sweep(run: spec.RunSpec, workers: int, root: Path) -> tuple[float, float]:
+    """Wall time of the sweep and the mean time of one point on its worker."""
     with sweep.local_cluster(workers) as client:
         address = client.scheduler.address
         with store.open_run(root, run) as st:
@@ -50,7 +54,7 @@ def timed_sweep(run: spec.RunSpec, workers: int, root: Path) -> float:
             elapsed = time.perf_counter() - start
     if report.failed or report.computed != len(run.points):
         raise SystemExit(f"bench: points failed: {report.failed}")
-    return elapsed
+    return elapsed, sum(report.task_seconds) / len(report.task_seconds)
 
 
 def main() -> None:
@@ -63,11 +67,15 @@ def main() -> None:
           f"(dt 0.05, order 4), number b4 + energy b2")
     with tempfile.TemporaryDirectory() as tmp:
         for r in range(args.repeat):
-            t1 = timed_sweep(run, 1, Path(tmp) / f"one-{r}")
-            t2 = timed_sweep(run, 2, Path(tmp) / f"two-{r}")
-            print(f"run {r + 1}: T1 = {t1:.2f} s (one worker, {t1 / POINTS:.2f} s per point), "
-                  f"T2 = {t2:.2f} s (two workers); speed-up T1/T2 = {t1 / t2:.2f}, "
-                  f"efficiency T1/(2 T2) = {t1 / (2 * t2):.3f} (goal >= 0.85)")
+            load = os.getloadavg()[0]
+            t1, p1 = timed_sweep(run, 1, Path(tmp) / f"one-{r}")
+            t2, p2 = timed_sweep(run, 2, Path(tmp) / f"two-{r}")
+            print(f"run {r + 1} (load average before: {load:.2f} on {os.cpu_count()} cores)")
+            print(f"  T1 = {t1:.2f} s on one worker  (a point takes {p1:.2f} s on its worker)")
+            print(f"  T2 = {t2:.2f} s on two workers (a point takes {p2:.2f} s on its worker; "
+                  f"x{p2 / p1:.2f} of the one-worker time: > 1 means the cores are shared)")
+            print(f"  speed-up T1/T2 = {t1 / t2:.2f}; efficiency T1/(2 T2) = {t1 / (2 * t2):.3f} "
+                  f"(goal >= 0.85)")
 
 
 if __name__ == "__main__":
