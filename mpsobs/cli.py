@@ -5,7 +5,8 @@ spec and list its points), ``template`` (print the built-in default scenario),
 ``plot`` and ``scale`` (figures and finite-size-scaling table of a finished run).
 
 Exit codes: 0 done; 1 some points failed (the others are kept); 2 bad input (spec,
-arguments, run directory) - nothing is written then; 130 interrupted.
+arguments, run directory: nothing is written then; or an InputError raised while
+computing a point); 130 interrupted.
 """
 
 from __future__ import annotations
@@ -142,9 +143,12 @@ def _cmd_run(args) -> int:
         print(f"mpsobs: table {out / store.RESULTS_FILE} ({len(report.table)} rows)")
     if figures:
         print(f"mpsobs: {len(figures)} figure files in {figures[0].parent}")
-    for point, message in report.failed:
-        print(f"mpsobs: point {point.point_id} ({point.label}) failed: {message}",
-              file=sys.stderr)
+    for failure in report.failed:
+        kind = "error" if failure.bad_input else failure.error
+        print(f"mpsobs: {kind}: point {failure.point.point_id} ({failure.point.label}): "
+              f"{failure.message}", file=sys.stderr)
+    if any(f.bad_input for f in report.failed):
+        return 2
     if report.failed:
         print("mpsobs: rerun the same command to retry the failed points", file=sys.stderr)
         return 1

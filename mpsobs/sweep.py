@@ -32,7 +32,7 @@ from mpsobs.errors import InputError
 from mpsobs.spec import Point, RunSpec
 from mpsobs.store import RunStore
 
-__all__ = ["Kernel", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
+__all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
            "check_execution",
            "WORKER_ENV", "PROGRESS_TOPIC"]
 
@@ -61,6 +61,17 @@ class Kernel(Protocol):
 
 
 @dataclass(frozen=True)
+class Failure:
+    """A point that raised: its error type and message; ``bad_input`` when the error is
+    an InputError (a problem of the spec that validation could not see)."""
+
+    point: Point
+    error: str
+    message: str
+    bad_input: bool
+
+
+@dataclass(frozen=True)
 class SweepReport:
     """What a sweep did: points in the spec, skipped (finished before), computed now,
     failed (with their error messages), the merged table, and the wall time each
@@ -69,7 +80,7 @@ class SweepReport:
     total: int
     skipped: int
     computed: int
-    failed: tuple[tuple[Point, str], ...]
+    failed: tuple[Failure, ...]
     table: pd.DataFrame = field(repr=False)
     task_seconds: tuple[float, ...] = ()
 
@@ -260,7 +271,7 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
     skipped = len(spec.points) - len(todo)
     if skipped:
         log.info("%d of %d points finished before; skipping them", skipped, len(spec.points))
-    failed: list[tuple[Point, str]] = []
+    failed: list[Failure] = []
     computed = 0
     seconds: list[float] = []
     if todo:
@@ -281,10 +292,10 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
                     try:
                         summary = future.result()
                     except Exception as exc:  # a point's failure must not stop the others
-                        message = f"{type(exc).__name__}: {exc}"
-                        failed.append((point, message))
-                        log.error("point %s (%s) failed: %s", point.point_id, point.label,
-                                  message)
+                        failed.append(Failure(point, type(exc).__name__, str(exc),
+                                              isinstance(exc, InputError)))
+                        log.error("point %s (%s) failed: %s: %s", point.point_id,
+                                  point.label, type(exc).__name__, exc)
                     else:
                         computed += 1
                         if not summary.get("skipped"):

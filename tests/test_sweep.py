@@ -113,8 +113,9 @@ def test_failing_point_does_not_stop_the_others(tmp_path, scheduler):
         report = sweep.run_sweep(run, st, scheduler=scheduler,
                                  kernel=Kernel(root, fail_h=0.3))
     assert report.computed == 2
-    assert sorted(p.columns["h"] for p, _ in report.failed) == [0.3, 0.3]
-    assert all("this point always fails" in message for _, message in report.failed)
+    assert sorted(f.point.columns["h"] for f in report.failed) == [0.3, 0.3]
+    assert all(f.message == "this point always fails" and f.error == "ValueError"
+               and not f.bad_input for f in report.failed)
     assert set(report.table["h"]) == {0.1}
     with store.open_run(root, run) as st:
         retry = sweep.run_sweep(run, st, scheduler=scheduler, kernel=Kernel(root))
