@@ -294,3 +294,63 @@ def test_resumed_point_equals_uninterrupted_point(scheduler):
     pd.testing.assert_frame_equal(resumed.drop(columns=drop), full.drop(columns=drop),
                                   rtol=1e-9)
     assert (full["method"] == "sampled").all() and (full["S_obs_err"] > 0).all()
+
+
+KIND_SPEC = {
+    "name": "kinds", "seed": 2,
+    "model": {"name": "xxz", "L": 8, "delta": 0.0},
+    "evolution": {"dt": 0.05, "chi_max": 16},
+    "times": {"values": [0.0, 0.2]},
+    "coarse": [{"observable": "number", "block": 2}],
+    "estimator": {"method": "exact"},
+}
+LN2 = float(np.log(2.0))
+
+
+@pytest.mark.parametrize("state, s0, n", [
+    # computational-basis product states: one outcome of probability 1, so
+    # S_obs(0) = sum over blocks of ln C(2, n_block) (fact of the trade)
+    ({"kind": "neel"}, 4 * LN2, 4),
+    ({"kind": "domain_wall"}, 0.0, 4),
+    ({"kind": "product", "pattern": "0110"}, 4 * LN2, 4),
+    ({"kind": "gas", "box": [1, 7], "number": 3, "fill": "packed"}, LN2, 3),  # sites 1-3
+    ({"kind": "random_product", "draw": "basis", "seed": 3}, None, None),
+])
+def test_initial_state_kinds(scheduler, state, s0, n):
+    from math import comb, log
+
+    from mpsobs.point import compute_point
+
+    (point,) = spec.parse({**KIND_SPEC, "state": state}).points
+    rows = _on_worker(scheduler, compute_point, point)
+    assert len(rows) == 2
+    first = rows.iloc[0]
+    if s0 is not None:
+        assert abs(first["S_obs"] - s0) < 1e-12
+    if n is not None:
+        # XX chain without field: a basis state has E = 0, the mean energy of its number
+        # sector (H only hops), so the canonical Gibbs state is the infinite-temperature
+        # one of that sector, entropy ln C(L, N) (fact of the trade)
+        assert abs(first["energy"]) < 1e-12
+        assert abs(first["S_thermo"] - log(comb(8, n))) < 1e-8
+    # free fermions: the GGE entropy of L modes lies in [0, L ln 2] (fact of the trade)
+    assert 0.0 <= first["S_gge"] <= 8 * LN2 + 1e-12
+
+
+def test_ground_state_of_the_prequench_model(scheduler):
+    """kind = "ground": the DMRG ground state of the model with delta = 2 and a staggered
+    field, compared with numpy's lowest eigenvector of the dense pre-quench H."""
+    from mpsobs.point import compute_point
+
+    state = {"kind": "ground",
+             "prequench": {"delta": 2.0, "field": {"kind": "staggered", "strength": 0.5}}}
+    (point,) = spec.parse({**KIND_SPEC, "state": state}).points
+    rows = _on_worker(scheduler, compute_point, point)
+    h_pre = 0.5 * (-1.0) ** np.arange(8)
+    _, vecs = np.linalg.eigh(_dense_xxz(8, 1.0, 2.0, h_pre))
+    psi = vecs[:, 0]
+    post = _dense_xxz(8, 1.0, 0.0, np.zeros(8))
+    assert abs(rows.iloc[0]["energy"] - np.vdot(psi, post @ psi).real) < 1e-8
+    number = np.diag([0.0, 1.0, 1.0, 2.0])
+    assert abs(rows.iloc[0]["S_obs"] - _block_entropy(psi, 8, 2, [number] * 4)) < 1e-7
+    assert rows.iloc[0]["pre_delta"] == 2.0 and rows.iloc[0]["delta"] == 0.0
