@@ -347,7 +347,8 @@ def evolve(state, model: Model, times: Sequence[float], *, max_bond: int, cutoff
     max_bond, cutoff : truncation (at most ``max_bond`` singular values; drop the smallest
         while their squared sum relative to the total stays within ``cutoff``).
     dt : Trotter step. order : 2 (Strang) or 4 (Forest-Ruth).
-    progress : show a tqdm progress bar over the steps.
+    progress : show a tqdm progress bar of the evolution time, advanced at every requested
+        time (off by default).
 
     Bad arguments raise InputError at the call, before anything is computed.
     """
@@ -381,9 +382,9 @@ def _run(mps: MPS, model: Model, ts: np.ndarray, t0: float, max_bond: int, cutof
                                             max_bond, cutoff)
                 discarded += lost
             steps += len(step_list)
+            bar.update(float(t - t_now))
             norm2, e, ent = _canonical_readout(tensors, center, bond_hams)
             center = 0
-            bar.update(float(t - t_now))
             t_now = float(t)
             logger.debug("t = %g: max bond %d, discarded %.3g", t_now,
                          max(x.shape[2] for x in tensors), discarded)

@@ -136,7 +136,10 @@ def _embed(matrix: np.ndarray, start: int, width: int, n_sites: int, *, dense: b
 
 def site_values(value: float | Sequence[float], L: int, name: str) -> np.ndarray:
     """A per-site parameter as an array of length L (a number means the same on every site)."""
-    arr = np.asarray(value, dtype=float)
+    try:
+        arr = np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: expected a number or {L} numbers, got {value!r}") from None
     if arr.ndim == 0:
         return np.full(L, float(arr))
     if arr.shape != (L,):
@@ -158,7 +161,7 @@ def field_values(kind: FieldKind, strength: float, L: int,
     if kind not in get_args(FieldKind):
         raise InputError(f"field: unknown field kind {kind!r}; allowed: "
                          f"{', '.join(get_args(FieldKind))}")
-    strength = _scalar(strength, "h")
+    strength = _scalar(strength, "strength")
     if kind == "uniform":
         return np.full(L, strength)
     if kind == "staggered":
@@ -198,7 +201,7 @@ def _longitudinal(h, L: int, kind: FieldKind, seed) -> tuple[np.ndarray, dict]:
         raise InputError(f"h: with field={kind!r}, h is the field strength (a number), "
                          f"not per-site values")
     else:
-        values = field_values(kind, h, L, seed)
+        values = field_values(kind, _scalar(h, "h"), L, seed)
     seed_param = int(seed) if isinstance(seed, int | np.integer) else None
     return values, {"h": _as_param(h), "field": kind, "seed": seed_param}
 
