@@ -120,6 +120,10 @@ def test_reference_table(reference):
     assert len(table) == ROWS and table["point_id"].nunique() == N_POINTS
     assert {"L", "h", "chi_max", "block_size"} <= set(table.columns)
     assert table.groupby("point_id")["seed"].nunique().eq(1).all()
+    import dask.dataframe as dd
+
+    by_dask = dd.read_parquet(str(reference / store.RESULTS_FILE)).compute()
+    pd.testing.assert_frame_equal(by_dask.reset_index(drop=True), table, check_dtype=False)
 
 
 def test_sigkill_then_rerun_gives_the_uninterrupted_table(spec_file, reference, tmp_path):
