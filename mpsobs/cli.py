@@ -120,6 +120,8 @@ def _cmd_run(args) -> int:
     spec = specs.load(args.spec)
     out = Path(args.out) if args.out else spec.output_dir
     sweep.check_execution(args.workers, args.scheduler)
+    if args.scheduler is not None:
+        sweep.reach_scheduler(args.scheduler)
     store.check_target(out, spec)  # refuse before anything is written
     with store.open_run(out, spec) as run:
         handler = logging.FileHandler(run.root / store.LOG_FILE, encoding="utf-8")

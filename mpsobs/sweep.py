@@ -19,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
+import socket
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
@@ -33,7 +34,7 @@ from mpsobs.spec import Point, RunSpec
 from mpsobs.store import RunStore
 
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
-           "check_execution",
+           "check_execution", "reach_scheduler",
            "WORKER_ENV", "PROGRESS_TOPIC"]
 
 log = logging.getLogger(__name__)
@@ -244,6 +245,18 @@ def check_execution(workers: int | None, scheduler: str | None) -> None:
                                   and ":" not in scheduler):
         raise InputError(f"--scheduler: expected an address such as tcp://host:8786, "
                          f"got {scheduler!r}")
+
+
+def reach_scheduler(address: str, timeout: float = 10.0) -> None:
+    """InputError unless a TCP connection to the scheduler ``address`` opens (checked
+    before the run directory is touched)."""
+    from distributed.comm import get_address_host_port
+
+    try:
+        host, port = get_address_host_port(address)
+        socket.create_connection((host, port), timeout=timeout).close()
+    except (ValueError, OSError) as exc:
+        raise InputError(f"--scheduler: cannot reach {address} ({exc})") from None
 
 
 def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,

@@ -247,6 +247,8 @@ def test_help_and_usage_errors(capsys, tmp_path):
                         (["run", "--workers", "0", "--out", str(out)], "--workers"),
                         (["run", "--workers", "2", "--scheduler", "tcp://127.0.0.1:1",
                           "--out", str(out)], "--workers"),
+                        (["run", "--scheduler", f"tcp://127.0.0.1:{_free_port()}",
+                          "--out", str(out)], "--scheduler: cannot reach"),
                         (["scale", str(tmp_path), "--fraction", "2"], "--fraction"),
                         (["launch"], "invalid choice")):
         assert cli.main(argv) == 2
