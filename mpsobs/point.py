@@ -22,7 +22,7 @@ import logging
 import math
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
@@ -230,7 +230,7 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         if save is not None:
             meta = {"point_id": point.point_id, "done": k + 1, "t": times[k],
                     "discarded_weight": discarded, "norm": norm, "energy0": energy0,
-                    "reference": ref.__dict__, "rows": rows, "elapsed_s": elapsed}
+                    "reference": asdict(ref), "rows": rows, "elapsed_s": elapsed}
             save(list(snap.state.tensors), meta)
     frame = pd.DataFrame(rows)
     frame["elapsed_s"] = elapsed0 + time.monotonic() - clock
