@@ -80,9 +80,9 @@ def canonical_state(state, L: int | None = None) -> MPS:
     """A normalised right-canonical copy of ``state`` (the input is never modified).
 
     ``state`` is an :class:`mpsobs.mps.MPS`, a quimb ``MatrixProductState`` or a list of
-    (left, 2, right) arrays, in any gauge. A state whose norm differs from 1 by more than
-    :data:`mpsobs.dense.NORM_TOL` is normalised with a warning (truncated time evolution
-    loses norm); a zero or non-finite norm raises InputError. Cost L chi^3.
+    (left, 2, right) arrays, in any gauge. A state with |ln norm| > :data:`mpsobs.dense.NORM_TOL`
+    is normalised with a UserWarning (truncated time evolution loses norm); a zero or
+    non-finite norm raises InputError. Cost L chi^3.
     """
     mps = as_mps(state)
     if L is not None and mps.L != L:
