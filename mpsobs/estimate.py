@@ -179,7 +179,8 @@ def _exact_result(p: np.ndarray, log_v: np.ndarray, outcomes: np.ndarray,
     live = p > 0
     shannon = float(-np.sum(p[live] * np.log(p[live])))
     boltzmann = float(np.sum(p[live] * log_v[live]))
-    dist = OutcomeDistribution(outcomes, p, np.exp(log_v))
+    with np.errstate(over="ignore"):  # volumes beyond 1e308 are reported as inf
+        dist = OutcomeDistribution(outcomes, p, np.exp(log_v))
     return EntropyResult(entropy=shannon + boltzmann, stderr=0.0, shannon=shannon,
                          shannon_err=0.0, boltzmann=boltzmann, boltzmann_err=0.0,
                          max_entropy=cg.max_entropy, method="exact", label=cg.label,
