@@ -83,10 +83,14 @@ def test_readers_never_see_a_partial_point_file(tmp_path):
     seen, errors = [], []
 
     def reader():
+        # One open() per read: the file object pins the inode it found, old or new
+        # (a reader that opens the path twice, e.g. footer and data separately, could
+        # mix two versions of a file that is rewritten meanwhile).
         while not stop.is_set():
             for file in st.points_dir.glob("*.parquet"):
                 try:
-                    seen.append(len(pd.read_parquet(file)))
+                    with open(file, "rb") as handle:
+                        seen.append(len(pd.read_parquet(handle)))
                 except Exception as exc:  # noqa: BLE001 - any failure is a partial file
                     errors.append(repr(exc))
 
