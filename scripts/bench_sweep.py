@@ -53,7 +53,8 @@ def timed_sweep(run: spec.RunSpec, workers: int, root: Path) -> tuple[float, flo
             report = sweep.run_sweep(run, st, scheduler=address)
             elapsed = time.perf_counter() - start
     if report.failed or report.computed != len(run.points):
-        raise SystemExit(f"bench: points failed: {report.failed}")
+        errors = "; ".join(f"{f.point.label}: {f.error}: {f.message}" for f in report.failed)
+        raise SystemExit(f"bench: {len(report.failed)} points failed ({errors})")
     return elapsed, sum(report.task_seconds) / len(report.task_seconds)
 
 
