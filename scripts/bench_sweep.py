@@ -10,7 +10,8 @@ task submission, the points, their Parquet files and the merged table.
 
 Printed as well: T1, T2, the speed-up T1 / T2, the mean time of a point on its worker in
 both runs (if it grows with two workers, the cores are busy with other work: the
-efficiency then measures the machine, not the runner) and the load average. On a shared
+efficiency then measures the machine, not the runner), the share of each wall time spent
+inside points, and the load average. On a shared
 machine the figures are noisy; run it more than once (``--repeat``) and read the best.
 
     python scripts/bench_sweep.py [--L 24] [--repeat 1]
@@ -77,6 +78,9 @@ def main() -> None:
                   f"x{p2 / p1:.2f} of the one-worker time: > 1 means the cores are shared)")
             print(f"  speed-up T1/T2 = {t1 / t2:.2f}; efficiency T1/(2 T2) = {t1 / (2 * t2):.3f} "
                   f"(goal >= 0.85)")
+            print(f"  scheduling share: T1 = {POINTS * p1 / t1:.3f} x (points' work), "
+                  f"T2 = {POINTS * p2 / (2 * t2):.3f} x (points' work / 2) - near 1 means the "
+                  f"runner itself adds little")
 
 
 if __name__ == "__main__":
