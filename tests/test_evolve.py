@@ -48,7 +48,8 @@ def _assert_right_canonical(mps: MPS) -> None:
     (_ising(12), states.product_state("0" * 12)),
 ], ids=["xxz-staggered", "ising-g-h"])
 def test_fourth_order_matches_exact_evolution(model, psi0):
-    # Reference: scipy.sparse.linalg.expm_multiply of the sparse Hamiltonian.
+    # Reference: scipy.sparse.linalg.expm_multiply of the sparse Hamiltonian. The XXZ run
+    # uses the number blocks (symmetry="auto" at this max_bond), the Ising run dense ones.
     t = 2.0
     snap = _final(model, psi0, t, dt=0.05, order=4)
     exact = _exact(model, psi0, t)
@@ -176,6 +177,38 @@ def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     assert abs(np.vdot(reference, gram)) ** 2 == pytest.approx(1.0, abs=1e-10)
 
 
+def test_number_blocks_match_dense_decompositions():
+    # The block-by-block decompositions give the same truncated evolution as dense ones
+    # (same singular values, same truncation); the reference is the dense path.
+    L = 16
+    model, psi0 = _xxz(L), states.neel(L)
+    runs = {sym: list(evolve(psi0, model, [0.5, 1.5], max_bond=6, cutoff=1e-12, dt=0.1,
+                             order=2, symmetry=sym)) for sym in ("number", "none")}
+    for blocks, dense in zip(runs["number"], runs["none"], strict=True):
+        overlap = np.vdot(to_dense(dense.state), to_dense(blocks.state))
+        assert abs(overlap) ** 2 == pytest.approx(1.0, abs=1e-10)
+        assert blocks.discarded_weight == pytest.approx(dense.discarded_weight, rel=1e-8)
+        assert blocks.energy == pytest.approx(dense.energy, abs=1e-10)
+        assert blocks.half_chain_entanglement == pytest.approx(
+            dense.half_chain_entanglement, abs=1e-9)
+        _assert_right_canonical(blocks.state)
+    assert runs["number"][-1].discarded_weight > 1e-6   # the run was truncated
+
+
+def test_number_blocks_need_definite_numbers():
+    L = 8
+    superposed = states.product_state("+0" * (L // 2))
+    with pytest.raises(InputError, match="symmetry"):
+        evolve(superposed, _xxz(L), [0.5], max_bond=64, cutoff=0.0, dt=0.1, symmetry="number")
+    with pytest.raises(InputError, match="symmetry"):
+        evolve(states.neel(L), _ising(L), [0.5], max_bond=64, cutoff=0.0, dt=0.1,
+               symmetry="number")
+    # "auto" falls back to dense decompositions and stays exact
+    snap = _final(_xxz(L), superposed, 0.5, dt=0.05, order=4, max_bond=64)
+    exact = _exact(_xxz(L), superposed, 0.5)
+    assert abs(np.vdot(exact, to_dense(snap.state))) ** 2 >= 1 - 1e-9
+
+
 @pytest.mark.parametrize(("kwargs", "word"), [
     ({"times": [0.5, 0.2]}, "times"),
     ({"times": [0.5], "start_time": 1.0}, "times"),
@@ -188,6 +221,7 @@ def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     ({"cutoff": 1.5}, "cutoff"),
     ({"model": models.xxz(6)}, "state"),
     ({"model": "xxz"}, "model"),
+    ({"symmetry": "u1"}, "symmetry"),
 ])
 def test_bad_evolve_input(kwargs, word):
     args = {"times": [0.5], "model": _xxz(8), "max_bond": 8, "cutoff": 0.0, "dt": 0.1,
