@@ -37,9 +37,9 @@ GasPreparation = Literal["packed", "spread", "ground"]
 NUMBER_VARIANCE_TOL = 1e-8
 
 
-def _check_L(L, name: str = "L") -> int:
+def _check_L(L) -> int:
     if isinstance(L, bool) or not isinstance(L, int | np.integer) or L < 1:
-        raise InputError(f"{name}: expected an integer >= 1, got {L!r}")
+        raise InputError(f"L: expected an integer >= 1, got {L!r}")
     return int(L)
 
 
