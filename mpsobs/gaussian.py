@@ -40,7 +40,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 import scipy.linalg as sla
-from scipy.special import gammaln
+from scipy.special import expit, gammaln
 
 from mpsobs.errors import InputError
 from mpsobs.models import Model
@@ -49,7 +49,8 @@ from mpsobs.result import EntropyResult, OutcomeDistribution, entropy_from_distr
 
 __all__ = [
     "QuadraticHamiltonian", "quadratic_hamiltonian", "quasiparticle_energies",
-    "product_correlation", "correlation_matrix", "evolve_correlation", "density",
+    "product_correlation", "gibbs_correlation", "correlation_matrix", "evolve_correlation",
+    "density",
     "energy", "number_variance", "mode_occupations", "NumberDistribution",
     "number_distribution", "number_entropy", "MAX_REGIONS",
 ]
@@ -206,6 +207,17 @@ def product_correlation(pattern: Sequence[int]) -> np.ndarray:
         raise InputError(f"pattern: expected a non-empty sequence of 0/1 site values, "
                          f"got {pattern!r}")
     return np.diag(arr.astype(complex))
+
+
+def gibbs_correlation(ham: QuadraticHamiltonian, beta: float, mu: float = 0.0) -> np.ndarray:
+    """C of the Gibbs state exp(-beta (H - mu N)) / Z: conj(V) diag(f) V^T with the
+    Fermi occupations f_k = 1 / (exp(beta (eps_k - mu)) + 1) of the eigenmodes V.
+    Negative beta is allowed. Cost O(L^3)."""
+    beta, mu = float(beta), float(mu)
+    if not (np.isfinite(beta) and np.isfinite(mu)):
+        raise InputError(f"beta, mu: expected finite numbers, got {beta!r}, {mu!r}")
+    f = expit(-beta * (ham.energies - mu))
+    return (ham.modes.conj() * f) @ ham.modes.T
 
 
 def correlation_matrix(state) -> np.ndarray:
