@@ -139,7 +139,10 @@ def quadratic_hamiltonian(model: Model) -> QuadraticHamiltonian:
         raise _not_free(model, "has a non-Hermitian hopping")
     if np.abs(hop.imag).max() <= tol:
         hop = hop.real.copy()
-    energies, modes = sla.eigh(hop)
+        # Nearest-neighbour hopping: T is tridiagonal (LAPACK stemr, O(L^2) per vector).
+        energies, modes = sla.eigh_tridiagonal(np.diag(hop).copy(), np.diag(hop, 1).copy())
+    else:
+        energies, modes = sla.eigh(hop, driver="evd")
     return QuadraticHamiltonian(hop, float(offset), energies, modes)
 
 
