@@ -1,0 +1,258 @@
+"""Gibbs and generalised Gibbs references against dense exact diagonalisation."""
+
+from __future__ import annotations
+
+from functools import reduce
+
+import numpy as np
+import pytest
+import scipy.linalg as sla
+from scipy.optimize import fsolve
+
+from mpsobs import gaussian, thermo
+from mpsobs.errors import InputError
+from mpsobs.models import ising, xxz
+from mpsobs.mps import from_dense, random_mps, to_dense
+
+
+def _numbers(L: int) -> np.ndarray:
+    """Particle number (sites in |1>) of every basis index."""
+    return ((np.arange(2**L)[:, None] >> np.arange(L)) & 1).sum(axis=1).astype(float)
+
+
+def _spectrum(model):
+    """Eigenvalues of H and their particle numbers (H block-diagonal in N when conserved)."""
+    dense = model.sparse_hamiltonian().toarray()
+    if not model.conserves_number:
+        return np.linalg.eigvalsh(dense), None
+    numbers = _numbers(model.L)
+    energies, counts = [], []
+    for n in np.unique(numbers):
+        sector = np.flatnonzero(numbers == n)
+        energies.append(np.linalg.eigvalsh(dense[np.ix_(sector, sector)]))
+        counts.append(np.full(sector.size, n))
+    return np.concatenate(energies), np.concatenate(counts)
+
+
+def _dense_gibbs(energies, counts, beta, alpha=0.0):
+    """(E, N, S) of exp(-beta H + alpha N) / Z from the exact spectrum (S = -Tr rho ln rho)."""
+    k = beta * energies - (alpha * counts if counts is not None else 0.0)
+    p = np.exp(-(k - k.min()))
+    p /= p.sum()
+    live = p > 0
+    n = float(p @ counts) if counts is not None else None
+    return float(p @ energies), n, float(-np.sum(p[live] * np.log(p[live])))
+
+
+def _dense_grand_solution(energies, counts, energy, number, guess):
+    """(beta, alpha) of the dense grand ensemble with <H> = energy and <N> = number."""
+    def residual(x):
+        e, n, _ = _dense_gibbs(energies, counts, x[0], x[1])
+        return [e - energy, n - number]
+
+    sol = fsolve(residual, guess, xtol=1e-13)
+    assert np.allclose(residual(sol), 0, atol=1e-10)
+    return sol
+
+
+# --------------------------------------------------------------------------- free fermions
+
+
+@pytest.mark.parametrize("model", [
+    xxz(8, J=1.0, delta=0.0, h=np.random.default_rng(1).normal(size=8)),
+    ising(8, J=1.0, g=0.7, h=0.0),
+    ising(8, J=0.8, g=np.random.default_rng(2).normal(size=8), h=0.0),
+], ids=["xx-random-fields", "ising-uniform", "ising-random-g"])
+def test_free_fermion_gibbs_matches_dense_diagonalisation(model):
+    # Gibbs entropy -Tr rho ln rho and energy from scipy's eigh of the dense H; for
+    # Ising from the Bogoliubov energies (Ann. Phys. 57, 79 (1970)).
+    energies = sla.eigh(model.sparse_hamiltonian().toarray(), eigvals_only=True)
+    for beta in (0.4, 1.5, -0.8):
+        e, _, s = _dense_gibbs(energies, None, beta)
+        at = thermo.gibbs_at(model, beta)
+        assert at.method == "free-fermion" and at.entropy_err == 0.0
+        assert at.energy == pytest.approx(e, abs=1e-10)
+        assert at.entropy == pytest.approx(s, abs=1e-10)
+        inverse = thermo.gibbs(model, e)
+        assert inverse.beta == pytest.approx(beta, abs=1e-9)
+        assert inverse.entropy == pytest.approx(s, abs=1e-10)
+        assert inverse.mu is None
+
+
+def test_grand_ensemble_with_a_number_matches_dense():
+    L = 8
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(3).normal(size=L) * 0.4)
+    energies, counts = _spectrum(model)
+    for energy, number in ((-1.1, 3.0), (0.9, 5.5)):
+        res = thermo.gibbs(model, energy, number=number)
+        beta, alpha = _dense_grand_solution(energies, counts, energy, number,
+                                            [res.beta + 0.1, res.beta * res.mu])
+        _, _, s = _dense_gibbs(energies, counts, beta, alpha)
+        assert res.beta == pytest.approx(beta, abs=1e-9)
+        assert res.mu == pytest.approx(alpha / beta, abs=1e-9)
+        assert res.entropy == pytest.approx(s, abs=1e-10)
+        assert res.number == pytest.approx(number, abs=1e-10)
+
+
+def test_canonical_ensemble_matches_the_dense_sector():
+    L = 8
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(4).normal(size=L) * 0.4)
+    energies, counts = _spectrum(model)
+    for energy, number in ((-0.8, 3), (1.4, 4)):
+        res = thermo.gibbs(model, energy, number=number, ensemble="canonical")
+        sector = energies[counts == number]
+        e, _, s = _dense_gibbs(sector, None, res.beta)
+        assert e == pytest.approx(energy, abs=1e-10)
+        assert res.entropy == pytest.approx(s, abs=1e-10)
+        # Fixing N exactly removes the number fluctuations: less entropy (fact of the trade).
+        assert res.entropy < thermo.gibbs(model, energy, number=number).entropy
+
+
+def test_ground_energy_gives_infinite_beta_and_the_degeneracy():
+    # Open XX chain with odd L has a zero single-particle energy (eps = J cos(pi k / (L+1)),
+    # fact of the trade), so its ground state is two-fold degenerate: S = ln 2.
+    model = xxz(7, J=1.0, delta=0.0, h=0.0)
+    energies = np.linalg.eigvalsh(model.sparse_hamiltonian().toarray())
+    degeneracy = np.count_nonzero(np.abs(energies - energies[0]) < 1e-10)
+    res = thermo.gibbs(model, energies[0])
+    assert res.beta == np.inf
+    assert res.entropy == pytest.approx(np.log(degeneracy), abs=1e-12)
+    top = thermo.gibbs(model, energies[-1])
+    assert top.beta == -np.inf
+
+
+# --------------------------------------------------------------------------- purification
+
+
+def test_ising_purification_against_free_fermions():
+    # Imaginary-time purification (Phys. Rev. Lett. 93, 207204 (2004)) of the transverse
+    # Ising chain against the exact quasiparticle formula (Ann. Phys. 57, 79 (1970)).
+    L = 16
+    model = ising(L, J=1.0, g=1.0, h=0.0)
+    for beta in (0.5, 1.0, 2.0):
+        exact = thermo.gibbs_at(model, beta)
+        res = thermo.gibbs_at(model, beta, method="purification", max_bond=32, dbeta=0.05)
+        assert res.method == "purification"
+        assert abs(res.entropy - exact.entropy) / L < 1e-4
+        assert abs(res.entropy - exact.entropy) <= res.entropy_err
+        assert abs(res.energy - exact.energy) / L < 1e-4
+    # Matched to an energy, the purification finds the exact beta within its error.
+    exact = thermo.gibbs_at(model, 1.0)
+    res = thermo.gibbs(model, exact.energy, method="purification", max_bond=32)
+    assert abs(res.beta - 1.0) <= res.beta_err
+    assert abs(res.entropy - exact.entropy) <= res.entropy_err
+
+
+def test_xxz_purification_against_dense_diagonalisation():
+    L = 8
+    model = xxz(L, J=1.0, delta=1.0, h=0.0)
+    energies = np.linalg.eigvalsh(model.sparse_hamiltonian().toarray())
+    for beta in (1.2, -0.7):  # the second is a negative temperature
+        e, _, s = _dense_gibbs(energies, None, beta)
+        res = thermo.gibbs(model, e, max_bond=64)
+        assert res.method == "purification"
+        assert res.entropy_err > 0
+        assert abs(res.entropy - s) <= res.entropy_err
+        assert abs(res.beta - beta) <= res.beta_err
+        assert res.number == pytest.approx(L / 2, abs=1e-8)  # spin-flip symmetry at h = 0
+
+
+def test_purification_with_a_number_against_dense_grand_ensemble():
+    L = 8
+    model = xxz(L, J=1.0, delta=0.5, h=0.3)
+    energies, counts = _spectrum(model)
+    energy, number = -1.0, 3.0
+    res = thermo.gibbs(model, energy, number=number, max_bond=64)
+    beta, alpha = _dense_grand_solution(energies, counts, energy, number, [1.0, -1.0])
+    _, _, s = _dense_gibbs(energies, counts, beta, alpha)
+    assert abs(res.entropy - s) <= res.entropy_err
+    assert abs(res.beta - beta) <= res.beta_err
+    assert res.number == pytest.approx(number, abs=1e-6)
+
+
+def test_trotter_error_estimate_has_second_order():
+    # The symmetric splitting is of second order: halving dbeta quarters |S(dbeta) -
+    # S(2 dbeta)| (fact of the trade). Small chain and bond limit above 4^(L/2): no
+    # truncation, so entropy_err is the Trotter estimate alone.
+    model = xxz(6, J=1.0, delta=0.8, h=0.2)
+    coarse = thermo.gibbs_at(model, 1.6, max_bond=128, dbeta=0.1)  # 16 steps of 0.1
+    fine = thermo.gibbs_at(model, 1.6, max_bond=128, dbeta=0.05)   # 32 steps of 0.05
+    assert coarse.discarded_weight < 1e-15 and fine.discarded_weight < 1e-15
+    assert 3.5 < coarse.entropy_err / fine.entropy_err < 4.5
+    exact = _dense_gibbs(*_spectrum(model), 1.6)[2]
+    assert abs(fine.entropy - exact) < abs(coarse.entropy - exact) / 8  # extrapolated
+
+
+# --------------------------------------------------------------------------- GGE
+
+
+def _creation(i: int, L: int) -> np.ndarray:
+    ops = [np.diag([1.0, -1.0])] * i + [np.array([[0.0, 0.0], [1.0, 0.0]])]
+    return reduce(np.kron, ops + [np.eye(2)] * (L - i - 1))
+
+
+def test_gge_entropy_from_dense_mode_occupations():
+    # GGE of free fermions: sum of binary entropies of <eta_k^dagger eta_k>, here with the
+    # mode occupation operators built densely from Jordan-Wigner operators.
+    L = 8
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(6).normal(size=L) * 0.5)
+    ham = gaussian.quadratic_hamiltonian(model)
+    psi = to_dense(random_mps(L, 4, seed=12))
+    psi /= np.linalg.norm(psi)
+    cdag = [_creation(i, L) for i in range(L)]
+    occ = []
+    for k in range(L):
+        eta_dag = sum(ham.modes[i, k] * cdag[i] for i in range(L))
+        occ.append((psi.conj() @ eta_dag @ eta_dag.conj().T @ psi).real)
+    occ = np.array(occ)
+    expected = float(-np.sum(occ * np.log(occ) + (1 - occ) * np.log(1 - occ)))
+    res = thermo.gge(model, from_dense(psi))
+    np.testing.assert_allclose(res.occupations, occ, atol=1e-12)
+    assert res.entropy == pytest.approx(expected, abs=1e-10)
+    h_psi = model.sparse_hamiltonian() @ psi
+    assert res.energy == pytest.approx(np.vdot(psi, h_psi).real, abs=1e-10)
+
+
+def test_gge_entropy_is_below_gibbs_at_the_same_energy_and_number():
+    # Maximum entropy with more constraints is smaller (fact of the trade).
+    L = 12
+    model = xxz(L, J=1.0, delta=0.0, h=0.3)
+    pattern = [1, 0] * (L // 2)
+    res = thermo.gge(model, pattern)
+    gibbs = thermo.gibbs(model, res.energy, number=res.number)
+    assert res.number == pytest.approx(L / 2, abs=1e-12)
+    assert 0 < res.entropy < gibbs.entropy
+    assert thermo.gge(model, gaussian.product_correlation(pattern)).entropy == res.entropy
+
+
+# --------------------------------------------------------------------------- bad input
+
+
+def test_bad_input_names_the_argument():
+    xx = xxz(6, J=1.0, delta=0.0, h=0.2)
+    with pytest.raises(InputError, match="energy"):
+        thermo.gibbs(xx, -50.0)
+    with pytest.raises(InputError, match="energy"):
+        thermo.gibbs(ising(6, g=1.0), 50.0)
+    with pytest.raises(InputError, match="energy"):
+        thermo.gibbs(xxz(6, delta=1.0), -50.0)  # purification: below the bonds' bound
+    with pytest.raises(InputError, match="energy"):
+        thermo.gibbs(xx, 10.0, number=3)  # above the N = 3 ceiling
+    with pytest.raises(InputError, match="number"):
+        thermo.gibbs(ising(6, g=1.0), 0.0, number=3)
+    with pytest.raises(InputError, match="number"):
+        thermo.gibbs(xx, 0.0, number=0)
+    with pytest.raises(InputError, match="number"):
+        thermo.gibbs(xx, 0.0, number=2.5, ensemble="canonical")
+    with pytest.raises(InputError, match="method"):
+        thermo.gibbs(xx, 0.0, method="exact")
+    with pytest.raises(InputError, match="method"):
+        thermo.gibbs(xxz(6, delta=1.0), 0.0, method="free-fermion")
+    with pytest.raises(InputError, match="ensemble"):
+        thermo.gibbs(xxz(6, delta=1.0), 0.0, number=3, ensemble="canonical")
+    with pytest.raises(InputError, match="max_bond"):
+        thermo.gibbs(xxz(6, delta=1.0), 0.0, max_bond=0)
+    with pytest.raises(InputError, match="model"):
+        thermo.gge(xxz(6, delta=1.0), [0, 1] * 3)
+    with pytest.raises(InputError, match="state"):
+        thermo.gge(xx, [0, 1] * 4)
