@@ -158,10 +158,10 @@ def test_xxz_purification_against_dense_diagonalisation():
 
 
 def test_purification_with_a_number_against_dense_grand_ensemble():
-    L = 8
+    L = 6
     model = xxz(L, J=1.0, delta=0.5, h=0.3)
     energies, counts = _spectrum(model)
-    energy, number = -1.0, 3.0
+    energy, number = -0.75, 2.0
     res = thermo.gibbs(model, energy, number=number, max_bond=64)
     beta, alpha = _dense_grand_solution(energies, counts, energy, number, [1.0, -1.0])
     _, _, s = _dense_gibbs(energies, counts, beta, alpha)
