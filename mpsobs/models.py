@@ -412,7 +412,8 @@ def dmrg(tensors: Sequence[np.ndarray], *, max_bond: int, cutoff: float, initial
     ramp = [b for b in (8, 16, 32, 64, 128, 256, 512) if b < max_bond] + [int(max_bond)]
     solver = qtn.DMRG2(to_quimb_mpo(tensors), bond_dims=ramp, cutoffs=max(cutoff, 1e-16),
                        p0=to_quimb(initial))
-    solver.opts["local_eig_tol"] = min(1e-3, tol)
+    # local eigen-solves need not be much tighter than the sweep-to-sweep tolerance
+    solver.opts["local_eig_tol"] = min(1e-3, max(1e3 * tol, 1e-8))
     converged = bool(solver.solve(tol=tol, max_sweeps=max_sweeps, sweep_sequence="RL"))
     energies = tuple(float(np.real(e)) for e in solver.energies)
     change = abs(energies[-1] - energies[-2]) if len(energies) > 1 else float("inf")

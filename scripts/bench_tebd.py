@@ -12,12 +12,15 @@ number blocks from max bond BLOCKS_MIN_BOND on); from that bond on "dense" is al
 (symmetry="none"), the kernel without the number blocks.
 
 Usage:  python scripts/bench_tebd.py [--L 32] [--bonds 8 16 32 64 128] [--repeats 2]
-The machine may be shared: times are noisy, the interleaving keeps the ratio fair.
+The machine may be shared: times are noisy, the interleaving keeps the ratio fair. Both
+codes suffer alike from multi-threaded BLAS on small matrices; OPENBLAS_NUM_THREADS=1
+(as the sweep workers run) gives steadier figures.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import time
 
 import numpy as np
@@ -60,7 +63,8 @@ def main() -> None:
     model = models.xxz(args.L, J=1.0, delta=0.5, h=0.5, field="random", seed=7)
     psi0 = neel(args.L)
     print(f"XXZ delta=0.5, random field 0.5 (seed 7), Neel start, L={args.L}, "
-          f"dt={args.dt}, order={args.order}, cutoff={args.cutoff}")
+          f"dt={args.dt}, order={args.order}, cutoff={args.cutoff}, "
+          f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}")
     print(f"{'max_bond':>8} {'T':>5} {'ours_s':>8} {'dense_s':>8} {'quimb_s':>8} "
           f"{'ratio':>6} {'ratio_dense':>11} {'1-fidelity':>11} {'discarded':>10} {'bond':>7}")
     for chi in args.bonds:
