@@ -41,7 +41,7 @@ from typing import Literal, get_args
 import numpy as np
 from scipy.linalg import lapack
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number
 from mpsobs.models import Model, bond_hamiltonians
 from mpsobs.mps import MPS, as_mps, right_canonical, robust_svd
 
@@ -97,12 +97,7 @@ class Snapshot:
 
 
 def _check_times(times, start_time) -> tuple[np.ndarray, float]:
-    try:
-        start = float(start_time)
-    except (TypeError, ValueError):
-        raise InputError(f"start_time: expected a number, got {start_time!r}") from None
-    if not np.isfinite(start):
-        raise InputError(f"start_time: expected a finite number, got {start_time!r}")
+    start = finite_number(start_time, "start_time")
     try:
         ts = np.atleast_1d(np.asarray(times, dtype=float))
     except (TypeError, ValueError):

@@ -42,7 +42,7 @@ import numpy as np
 import scipy.linalg as sla
 from scipy.special import expit, gammaln
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number
 from mpsobs.models import Model
 from mpsobs.mps import as_mps, right_canonical
 from mpsobs.result import EntropyResult, OutcomeDistribution, entropy_from_distribution
@@ -258,12 +258,7 @@ def evolve_correlation(ham: QuadraticHamiltonian, corr, t: float) -> np.ndarray:
     c = _check_corr(corr)
     if c.shape[0] != ham.L:
         raise InputError(f"corr: shape {c.shape} does not match the chain (L = {ham.L})")
-    try:
-        t = float(t)
-    except (TypeError, ValueError):
-        raise InputError(f"t: expected a number, got {t!r}") from None
-    if not np.isfinite(t):
-        raise InputError(f"t: expected a finite time, got {t!r}")
+    t = finite_number(t, "t")
     u = (ham.modes * np.exp(-1j * ham.energies * t)) @ ham.modes.conj().T
     diag = np.diag(c)
     if np.count_nonzero(c) == np.count_nonzero(diag):  # product states: C is diagonal

@@ -25,7 +25,7 @@ from typing import Literal, get_args
 import numpy as np
 import scipy.sparse as sp
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number
 from mpsobs.mps import MPS, as_mps, from_quimb, norm, product_mps, right_canonical, to_quimb
 
 __all__ = ["Term", "Model", "xxz", "ising", "build", "MODELS", "field_values", "site_values",
@@ -161,7 +161,7 @@ def field_values(kind: FieldKind, strength: float, L: int,
     if kind not in get_args(FieldKind):
         raise InputError(f"field: unknown field kind {kind!r}; allowed: "
                          f"{', '.join(get_args(FieldKind))}")
-    strength = _scalar(strength, "strength")
+    strength = finite_number(strength, "strength")
     if kind == "uniform":
         return np.full(L, strength)
     if kind == "staggered":
@@ -178,16 +178,6 @@ def _check_length(L: int) -> None:
         raise InputError(f"L: expected an integer >= 2, got {L!r}")
 
 
-def _scalar(value: float, name: str) -> float:
-    try:
-        out = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{name}: expected a number, got {value!r}") from None
-    if not np.isfinite(out):
-        raise InputError(f"{name}: expected a finite number, got {value!r}")
-    return out
-
-
 def _as_param(value) -> object:
     arr = np.asarray(value, dtype=float)
     return float(arr) if arr.ndim == 0 else arr.tolist()
@@ -201,7 +191,7 @@ def _longitudinal(h, L: int, kind: FieldKind, seed) -> tuple[np.ndarray, dict]:
         raise InputError(f"h: with field={kind!r}, h is the field strength (a number), "
                          f"not per-site values")
     else:
-        values = field_values(kind, _scalar(h, "h"), L, seed)
+        values = field_values(kind, finite_number(h, "h"), L, seed)
     seed_param = int(seed) if isinstance(seed, int | np.integer) else None
     return values, {"h": _as_param(h), "field": kind, "seed": seed_param}
 
@@ -214,7 +204,7 @@ def xxz(L: int, J: float = 1.0, delta: float = 1.0, h: float | Sequence[float] =
     the strength given to :func:`field_values` (with ``seed``).
     """
     _check_length(L)
-    J, delta = _scalar(J, "J"), _scalar(delta, "delta")
+    J, delta = finite_number(J, "J"), finite_number(delta, "delta")
     fields, field_params = _longitudinal(h, L, field, seed)
     bond = J * (_SPIN_FLIP + delta * np.kron(SPIN_Z, SPIN_Z))
     terms = [Term(i, bond) for i in range(L - 1)]
@@ -232,7 +222,7 @@ def ising(L: int, J: float = 1.0, g: float | Sequence[float] = 1.0,
     ``g`` is a number or per-site values; ``h`` as in :func:`xxz` (shaped by ``field``).
     """
     _check_length(L)
-    J = _scalar(J, "J")
+    J = finite_number(J, "J")
     gs = site_values(g, L, "g")
     hs, field_params = _longitudinal(h, L, field, seed)
     terms = [Term(i, -J * np.kron(PAULI_Z, PAULI_Z)) for i in range(L - 1)]

@@ -56,7 +56,7 @@ from scipy.optimize import brentq
 from scipy.special import expit
 
 from mpsobs import gaussian
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number
 from mpsobs.models import Model
 from mpsobs.mps import MPS, as_mps, robust_svd
 
@@ -682,12 +682,7 @@ def gibbs(model: Model, energy: float, number: float | None = None, *,
     purification). See the module docstring for accuracy and cost.
     """
     _check_options(model, method, ensemble, max_bond, dbeta, cutoff)
-    try:
-        target = float(energy)
-    except (TypeError, ValueError):
-        raise InputError(f"energy: expected a number, got {energy!r}") from None
-    if not np.isfinite(target):
-        raise InputError(f"energy: expected a finite number, got {energy!r}")
+    target = finite_number(energy, "energy")
     value = _check_number(model, number, ensemble)
     modes = _pick(model, method, ensemble, value)
     if modes is not None:
