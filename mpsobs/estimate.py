@@ -49,7 +49,7 @@ from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical_log_norm
 from mpsobs.result import EntropyResult, OutcomeDistribution
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
-           "pruned_entropy_bound", "Method", "METHODS"]
+           "default_batch", "pruned_entropy_bound", "Method", "METHODS"]
 
 logger = logging.getLogger(__name__)
 
@@ -380,7 +380,9 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
     return SampleBatch(outcomes, log_p, log_v, flops)
 
 
-def _default_batch(blocks: Sequence[ReadoutBlock]) -> int:
+def default_batch(blocks: Sequence[ReadoutBlock]) -> int:
+    """Samples per batch when ``batch`` is None: as many as fit in BATCH_BYTES, 16 to
+    MAX_BATCH (about 250 at bond 128 and blocks of 4)."""
     per_sample = max(16 * (2 * b.tensor.shape[0] ** 2 + 2 * b.tensor.shape[2] ** 2
                            + b.tensor.shape[1] * b.tensor.shape[2]) for b in blocks)
     return int(np.clip(BATCH_BYTES // per_sample, 16, MAX_BATCH))
@@ -397,7 +399,7 @@ def _sample(blocks: Sequence[ReadoutBlock], cg: BlockCoarseGraining, bonds: np.n
     standard error of S_obs reaches it (after at least ``samples`` or MIN_TARGET_SAMPLES)
     or ``max_samples`` are drawn."""
     rng = np.random.default_rng(seed)
-    batch = batch or _default_batch(blocks)
+    batch = batch or default_batch(blocks)
     if target_stderr is None:
         minimum = goal = samples or DEFAULT_SAMPLES
     else:
