@@ -280,7 +280,13 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
     check_execution(workers, scheduler)
     from distributed import as_completed
 
-    todo = [p for p in spec.points if not store.finished(p.point_id)]
+    todo = []
+    for point in spec.points:
+        if store.finished(point.point_id):
+            # left behind by a run killed between writing the point and dropping it
+            store.drop_checkpoint(point.point_id)
+        else:
+            todo.append(point)
     skipped = len(spec.points) - len(todo)
     if skipped:
         log.info("%d of %d points finished before; skipping them", skipped, len(spec.points))
