@@ -88,32 +88,41 @@ def readout_blocks(mps: MPS, coarse_graining: BlockCoarseGraining) -> tuple[Read
     return tuple(out)
 
 
-def transfer(envs: np.ndarray, rows: np.ndarray) -> np.ndarray:
+def transfer(envs: np.ndarray, rows: np.ndarray, out: np.ndarray | None = None,
+             work: np.ndarray | None = None) -> np.ndarray:
     """sum_r A_r^dagger E_n A_r for a stack of environments.
 
     Parameters
     ----------
     envs : (n, l, l) stack of left environments E_n.
     rows : (l, g, c) the matrices A_r, r = 0 .. g-1 (one outcome's readout rows).
+    out : optional C-contiguous (n, c, c) array for the result.
+    work : optional flat complex scratch array for the intermediate product (its size
+        sets the chunk; default WORK_BYTES). Reusing one saves fresh allocations.
 
     Returns
     -------
-    (n, c, c) stack. Two GEMMs per chunk of the stack, (n l, l) x (l, g c) and n times
-    (c, l g) x (l g, c): 8 n g l c (l + c) real flops (:func:`transfer_flops`); chunks keep
-    the intermediate below :data:`WORK_BYTES`. For right environments, pass the adjoint
-    rows ``A.conj().transpose(2, 1, 0)`` to get sum_r A_r R A_r^dagger.
+    (n, c, c) stack (``out`` if given). Two GEMMs per chunk of the stack,
+    (n l, l) x (l, g c) and n times (c, l g) x (l g, c): 8 n g l c (l + c) real flops
+    (:func:`transfer_flops`); chunks keep the intermediate below :data:`WORK_BYTES`. For
+    right environments, pass the adjoint rows ``A.conj().transpose(2, 1, 0)`` to get
+    sum_r A_r R A_r^dagger.
     """
     n, cl, _ = envs.shape
     _, g, cr = rows.shape
     flat = rows.reshape(cl, g * cr)
     adjoint = np.ascontiguousarray(rows.reshape(cl * g, cr).conj().T)
-    out = np.empty((n, cr, cr), dtype=complex)
-    chunk = max(1, WORK_BYTES // (16 * cl * g * cr))
+    if out is None:
+        out = np.empty((n, cr, cr), dtype=complex)
+    if work is None:
+        work = np.empty(max(WORK_BYTES // 16, cl * g * cr), dtype=complex)
+    chunk = max(1, work.size // (cl * g * cr))
     for lo in range(0, n, chunk):
         part = envs[lo:lo + chunk]
         m = part.shape[0]
-        x = (part.reshape(m * cl, cl) @ flat).reshape(m, cl * g, cr)
-        np.matmul(adjoint, x, out=out[lo:lo + m])
+        x = work[:m * cl * g * cr].reshape(m * cl, g * cr)
+        np.matmul(part.reshape(m * cl, cl), flat, out=x)
+        np.matmul(adjoint, x.reshape(m, cl * g, cr), out=out[lo:lo + m])
     return out
 
 

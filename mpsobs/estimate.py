@@ -24,7 +24,7 @@ Estimators (``method``):
   environment; S_obs = E[-ln p_i + ln V_i] and its parts are sample means with standard
   errors from the sample variance.
 - ``"exact"``: ``"count"`` where it applies, otherwise ``"enumerate"``.
-- ``None`` (automatic): ``"count"`` for number coarse-gradings of at most three blocks
+- ``None`` (automatic): ``"count"`` for number coarse-grainings of at most three blocks
   (and for blocks wider than MAX_BLOCK_SITES); otherwise ``"enumerate"`` with at most as
   many live prefixes as the sample budget (``samples`` or DEFAULT_SAMPLES, capped by
   ``max_branches``), falling back to ``"sample"`` when that is exceeded or the pruned
@@ -41,7 +41,7 @@ from typing import Literal
 
 import numpy as np
 
-from mpsobs.blocktensors import ReadoutBlock, readout_blocks, transfer, transfer_flops
+from mpsobs.blocktensors import WORK_BYTES, ReadoutBlock, readout_blocks, transfer, transfer_flops
 from mpsobs.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
 from mpsobs.dense import NORM_TOL
 from mpsobs.errors import InputError
@@ -348,8 +348,16 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
     outcome; memory ~16 bytes x n (2 chi_l^2 + 2 chi_r^2 + R chi_r).
     """
     n, m = uniforms.shape
+    chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
+    # The samples are reordered by outcome at every block (environments copied from
+    # ``stack`` into ``scratch``) so that each outcome's environments are one contiguous
+    # slice; the advanced environments are written back into ``stack``.
+    stack, scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
+    work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)), dtype=complex)
+    env = stack[:n].reshape(n, 1, 1)
+    env[...] = 1.0
+    held = np.arange(n)  # position s of the stacks holds sample held[s]
     vec = np.ones((n, 1), dtype=complex)
-    env = np.ones((n, 1, 1), dtype=complex)
     log_p = np.zeros(n)
     log_v = np.zeros(n)
     outcomes = np.empty((n, m), dtype=np.int64)
@@ -362,21 +370,29 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
         weight = (amp.real**2 + amp.imag**2).sum(axis=2)
         cum = np.cumsum(weight, axis=1)
         # 1 - u lies in (0, 1], so the chosen row always has positive weight.
-        threshold = (1.0 - uniforms[:, k]) * cum[:, -1]
+        threshold = (1.0 - uniforms[held, k]) * cum[:, -1]
         row = np.minimum((cum < threshold[:, None]).sum(axis=1), n_rows - 1)
         vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
         outcome = blk.row_outcome[row]
-        outcomes[:, k] = outcome
         log_v += blk.log_volumes[outcome]
-        new_env = np.empty((n, cr, cr), dtype=complex)
-        for j in np.unique(outcome):
-            idx = np.flatnonzero(outcome == j)
+        order = np.argsort(outcome, kind="stable")
+        held, vec, log_p, log_v, outcome = (held[order], vec[order], log_p[order],
+                                            log_v[order], outcome[order])
+        sorted_env = scratch[:n * cl * cl].reshape(n, cl, cl)
+        np.take(env, order, axis=0, out=sorted_env, mode="clip")
+        outcomes[held, k] = outcome
+        env = stack[:n * cr * cr].reshape(n, cr, cr)
+        present = np.flatnonzero(np.bincount(outcome, minlength=blk.n_outcomes))
+        bounds = np.searchsorted(outcome, present)
+        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [n], strict=True):
             rows = blk.rows(j)
-            new_env[idx] = transfer(env[idx], rows)
-            flops += transfer_flops(idx.size, rows.shape)
-        trace = np.einsum("nii->n", new_env).real
+            transfer(sorted_env[lo:hi], rows, out=env[lo:hi], work=work)
+            flops += transfer_flops(hi - lo, rows.shape)
+        trace = np.einsum("nii->n", env).real
         log_p += np.log(trace)
-        env = new_env / trace[:, None, None]
+        env /= trace[:, None, None]
+    restore = np.argsort(held)
+    log_p, log_v = log_p[restore], log_v[restore]
     return SampleBatch(outcomes, log_p, log_v, flops)
 
 
@@ -450,7 +466,7 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     ----------
     state : quimb ``MatrixProductState``, :class:`mpsobs.mps.MPS` or list of (left, 2,
         right) arrays; any L, bond dimension and gauge. It is not modified; a copy is
-        brought to right-canonical form. A state that is not normalised (beyond
+        brought to right-canonical form. A state that is not normalised (|ln norm| >
         :data:`mpsobs.dense.NORM_TOL`) is normalised with a ``UserWarning``.
     coarse_graining : from :func:`mpsobs.coarse.blocks` or :func:`mpsobs.coarse.sequence`
         with the state's L.
@@ -470,7 +486,8 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
         many live prefixes at one block (default 2**14; also capped by ENUMERATE_BYTES).
     batch : samples contracted together (default: as many as fit in BATCH_BYTES = 256 MiB,
         16 .. MAX_BATCH).
-    max_samples : upper bound on samples with ``target_stderr`` (default 10**6).
+    max_samples : upper bound on samples; with ``target_stderr``, where drawing stops
+        (default 10**6).
     progress : show a tqdm progress bar.
 
     Returns
@@ -488,7 +505,10 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     Sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops (g = readout rows of the
     drawn outcome); working memory ~16 bytes x batch x (4 chi^2 + R chi), plus
     :data:`mpsobs.blocktensors.WORK_BYTES`. Enumeration: per live prefix and block
-    16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: see ``_count``.
+    16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: 32 chi^3 flops per site
+    and live counter value (about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_3^2/2) complex
+    multiply-adds for three regions); memory 16 bytes x chi^2 x (3 K + b_last + 1), K =
+    product of (b + 1) over all regions but the last.
     """
     if isinstance(coarse_graining, ProjectorCoarseGraining):
         raise InputError("coarse_graining: projector coarse-grainings act on dense states "

@@ -14,8 +14,14 @@ from scipy.stats import binom
 
 from mpsobs import coarse, dense, models
 from mpsobs import mps as mpsmod
+from mpsobs.blocktensors import readout_blocks
 from mpsobs.errors import InputError
-from mpsobs.estimate import mps_observational_entropy, pruned_entropy_bound
+from mpsobs.estimate import (
+    canonical_state,
+    draw_samples,
+    mps_observational_entropy,
+    pruned_entropy_bound,
+)
 
 # --------------------------------------------------------------------------- builders
 
@@ -138,6 +144,22 @@ def test_sampling_is_unbiased_and_its_error_is_right(case):
     reported = np.mean([r.stderr for r in runs])
     assert 0.5 <= np.std(values, ddof=1) / reported <= 2.0
     assert abs(values.mean() - reference.entropy) <= 4 * reported / np.sqrt(seeds)
+
+
+def test_each_sample_carries_its_exact_probability():
+    L = 8
+    state = mpsmod.random_mps(L, 4, seed=12)
+    cg = coarse.sequence(coarse.blocks(L, 2), coarse.blocks(L, 2, XX))
+    reference = dense.observational_entropy(mpsmod.to_dense(state), cg).distribution
+    exact = {tuple(o): (p, v) for o, p, v in zip(reference.outcomes,
+                                                reference.probabilities, reference.volumes,
+                                                strict=True)}
+    blocks = readout_blocks(canonical_state(state, L), cg)
+    batch = draw_samples(blocks, np.random.default_rng(0).random((50, len(blocks))))
+    for outcome, log_p, log_v in zip(batch.outcomes, batch.log_p, batch.log_v, strict=True):
+        p, v = exact[tuple(outcome)]
+        assert np.exp(log_p) == pytest.approx(p, rel=1e-9)
+        assert np.exp(log_v) == pytest.approx(v, rel=1e-12)
 
 
 def test_bond_entropies_and_the_lower_bound():
