@@ -345,7 +345,8 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
     renormalised to unit trace, the log of the trace (the conditional probability of j)
     being accumulated, so nothing underflows at any L. Cost per sample and block
     8 chi^2 R + 8 g chi^3 (2 of them for chi_l = chi_r) flops, g = rows of the drawn
-    outcome; memory ~16 bytes x n (2 chi_l^2 + 2 chi_r^2 + R chi_r).
+    outcome; memory 16 bytes x n (2 chi^2 + R chi) (two environment stacks and the
+    vectors' row amplitudes) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     """
     n, m = uniforms.shape
     chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
@@ -503,7 +504,7 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     Preparation: L chi^3 (canonical form, bond entropies) plus the rotated block tensors,
     16 bytes x sum_k chi_{k-1} R_k chi_k (R_k = 2**b_k readout rows for one observable).
     Sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops (g = readout rows of the
-    drawn outcome); working memory ~16 bytes x batch x (4 chi^2 + R chi), plus
+    drawn outcome); working memory 16 bytes x batch x (2 chi^2 + R chi), plus
     :data:`mpsobs.blocktensors.WORK_BYTES`. Enumeration: per live prefix and block
     16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: 32 chi^3 flops per site
     and live counter value (about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_3^2/2) complex
