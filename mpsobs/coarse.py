@@ -5,7 +5,7 @@ A coarse-graining is a complete set of orthogonal projectors; a *sequence* of th
 probability p_i = Tr[K_i rho K_i^dagger] and volume V_i = Tr[K_i^dagger K_i], where
 K_i = P_in ... P_i1.
 
-Block coarse-gradings partition the chain into contiguous blocks and ask one observable
+Block coarse-grainings partition the chain into contiguous blocks and ask one observable
 (or a sequence of observables) on every block. Blocks commute with each other, so the
 Kraus operator of an outcome string is the tensor product of the blocks' ones and the
 volume is the product of the blocks' volumes.

@@ -49,7 +49,7 @@ from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical_log_norm
 from mpsobs.result import EntropyResult, OutcomeDistribution
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
-           "default_batch", "pruned_entropy_bound", "Method", "METHODS"]
+           "default_batch", "pruned_entropy_bound", "countable", "Method", "METHODS"]
 
 logger = logging.getLogger(__name__)
 
@@ -124,7 +124,9 @@ def _check_options(samples, target_stderr, prune, max_branches, batch, max_sampl
         raise InputError(f"progress: expected True or False, got {progress!r}")
 
 
-def _countable(cg: BlockCoarseGraining) -> bool:
+def countable(cg: BlockCoarseGraining) -> bool:
+    """Whether the automatic and "exact" choices count ``cg`` exactly: the number
+    observable alone on at most COUNT_MAX_REGIONS blocks."""
     return (len(cg.stages) == 1 and cg.stages[0].name == "number"
             and len(cg.blocks) <= COUNT_MAX_REGIONS)
 
@@ -135,13 +137,13 @@ def _resolve_method(method, cg: BlockCoarseGraining, samples, target_stderr) -> 
         raise InputError(f"method: unknown {method!r}; allowed: None (automatic), "
                          f"{', '.join(map(repr, METHODS))}")
     wide = any(b.readout is None for b in cg.blocks)
-    if method in (None, "exact") and _countable(cg):
+    if method in (None, "exact") and countable(cg):
         method = "count"
     elif method is None:
         method = "auto"
     elif method == "exact":
         method = "enumerate"
-    if method == "count" and not _countable(cg):
+    if method == "count" and not countable(cg):
         raise InputError(f"method: 'count' evaluates the number coarse-graining in at most "
                          f"{COUNT_MAX_REGIONS} regions; got {cg.label!r} with "
                          f"{len(cg.blocks)} blocks")

@@ -31,7 +31,7 @@ from mpsobs import __version__, coarse, evolve, gaussian, models, states, thermo
 from mpsobs.columns import EXTRA, REQUIRED
 from mpsobs.entropy import observational_entropy
 from mpsobs.errors import InputError
-from mpsobs.estimate import COUNT_MAX_REGIONS
+from mpsobs.estimate import countable
 from mpsobs.mps import MPS
 from mpsobs.spec import Point
 
@@ -144,10 +144,8 @@ def _estimator_options(estimator: dict, cg: coarse.BlockCoarseGraining) -> dict:
     """Keyword arguments of the estimator; the sample settings only where sampling can
     happen (the exact methods, and "auto" on a countable coarse-graining, take none)."""
     method = None if estimator["method"] == "auto" else estimator["method"]
-    countable = (len(cg.stages) == 1 and cg.stages[0].name == "number"
-                 and len(cg.blocks) <= COUNT_MAX_REGIONS)
     options = {"method": method, "prune": estimator["prune"]}
-    if method == "sample" or (method is None and not countable):
+    if method == "sample" or (method is None and not countable(cg)):
         options.update(samples=estimator["samples"],
                        target_stderr=estimator["target_stderr"] or None)
     return options
