@@ -21,7 +21,7 @@ from mpsobs.errors import InputError
 
 __all__ = ["MPS", "as_mps", "from_quimb", "to_quimb", "from_dense", "to_dense",
            "right_canonical", "right_canonical_log_norm", "bond_entropies", "random_mps",
-           "product_mps", "norm", "robust_svd"]
+           "product_mps", "norm", "robust_svd", "right_canonical_defect"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -240,3 +240,13 @@ def product_mps(site_states) -> MPS:
             raise InputError(f"state: site {i} vector is not normalised (norm {nv:.6g})")
         tensors.append(v.reshape(1, 2, 1))
     return MPS(tuple(tensors))
+
+
+def right_canonical_defect(mps: MPS) -> float:
+    """Largest deviation from a normalised right-canonical form: max over sites i > 0 of
+    |sum_s A_s A_s^dagger - 1| (entrywise) and |(||A_0|| - 1)|. Cost L chi^3."""
+    worst = abs(float(np.linalg.norm(mps.tensors[0])) - 1.0)
+    for a in mps.tensors[1:]:
+        m = a.reshape(a.shape[0], -1)
+        worst = max(worst, float(np.max(np.abs(m @ m.conj().T - np.eye(a.shape[0])))))
+    return worst
