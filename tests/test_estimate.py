@@ -3,6 +3,8 @@
 References: the dense engine (mpsobs.dense, exact on state vectors), closed forms for
 product states (binomial distributions from scipy.stats.binom), additivity over
 independent pieces, and numpy SVDs for entanglement entropies.
+
+Journal references in this file are cited from memory.
 """
 
 from math import comb, log

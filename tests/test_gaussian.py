@@ -1,4 +1,7 @@
-"""Free-fermion engine against dense exact diagonalisation and published closed forms."""
+"""Free-fermion engine against dense exact diagonalisation and published closed forms.
+
+Journal references in this file are cited from memory.
+"""
 
 from __future__ import annotations
 

@@ -1,5 +1,8 @@
 """Models: Hamiltonians against independent dense constructions, MPO, energies, fields,
-the registry and DMRG ground states."""
+the registry and DMRG ground states.
+
+Journal references in this file are cited from memory.
+"""
 
 from functools import reduce
 

@@ -1,4 +1,7 @@
-"""Gibbs and generalised Gibbs references against dense exact diagonalisation."""
+"""Gibbs and generalised Gibbs references against dense exact diagonalisation.
+
+Journal references in this file are cited from memory.
+"""
 
 from __future__ import annotations
 
