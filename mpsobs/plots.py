@@ -28,6 +28,7 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.ticker import NullFormatter
 
 from mpsobs import scaling
 from mpsobs.store import RunStore, atomic_write
@@ -229,6 +230,7 @@ def collapse_figure(collapse: pd.DataFrame,
                     _band(ax, curve["scaled_time"].to_numpy(), curve["rise"].to_numpy(),
                           curve["rise_err"].to_numpy(), colors[int(L)])
                 ax.set_xscale("log")
+                ax.xaxis.set_minor_formatter(NullFormatter())  # no crowded labels
                 note = "$z = " + scaling.format_value(z, z_err).replace("+-", r"\pm") + "$"
             else:
                 note = "z not available"
