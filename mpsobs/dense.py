@@ -36,7 +36,9 @@ def check_state(state: np.ndarray, dim: int | None = None) -> tuple[np.ndarray, 
     """Validate a dense state; return it (vector 1-D, or matrix) and whether it is pure.
 
     A 1-D array or a (dim, 1) column is a state vector; a square array a density matrix
-    (Hermitian, unit trace, positive semi-definite within 1e-10).
+    (Hermitian, unit trace, positive semi-definite within 1e-10). A vector whose norm
+    differs from 1 by more than NORM_TOL is refused, not rescaled: the same rule as for
+    MPS states (:func:`mpsobs.estimate.canonical_state`).
     """
     arr = np.asarray(state)
     if not np.issubdtype(arr.dtype, np.number):

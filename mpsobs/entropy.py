@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import inspect
+
 import numpy as np
 
 from mpsobs import dense
@@ -9,6 +11,14 @@ from mpsobs.errors import InputError
 from mpsobs.result import EntropyResult
 
 __all__ = ["observational_entropy"]
+
+
+def _estimator_options() -> tuple[str, ...]:
+    """The keyword options of :func:`mpsobs.estimate.mps_observational_entropy`."""
+    from mpsobs import estimate
+
+    params = inspect.signature(estimate.mps_observational_entropy).parameters.values()
+    return tuple(p.name for p in params if p.kind is inspect.Parameter.KEYWORD_ONLY)
 
 
 def observational_entropy(state, coarse_graining, *, samples: int | None = None,
@@ -20,22 +30,36 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
     state : a dense state vector (2**L,) or density matrix (2**L, 2**L), evaluated
         exactly by :mod:`mpsobs.dense`; or a matrix-product state (quimb
         ``MatrixProductState`` or :class:`mpsobs.mps.MPS`), evaluated by
-        :mod:`mpsobs.estimate`.
+        :mod:`mpsobs.estimate`. Either kind must be normalised (one rule for both: an
+        unnormalised state raises InputError saying how to normalise it).
     coarse_graining : from :mod:`mpsobs.coarse`.
     samples, seed, method, options : estimator settings for MPS states (see
-        :func:`mpsobs.estimate.mps_observational_entropy`). Dense states are always exact.
+        :func:`mpsobs.estimate.mps_observational_entropy`: ``method`` None, "sample",
+        "sample_strings", "enumerate", "count" or "exact"). Dense states are always
+        exact: they take ``method`` None or "exact" and no other setting. An unknown
+        keyword or a bad ``seed`` raises InputError naming it.
 
     Returns
     -------
     EntropyResult with ``entropy``, ``stderr`` (0 when exact), ``shannon``, ``boltzmann``,
-    ``knowledge``, ``max_entropy``, ``method`` and, when exact, ``distribution``.
+    ``knowledge``, ``max_entropy``, ``method``, ``algorithm`` and, when exact (except for
+    a product over blocks), ``distribution``.
     """
-    if isinstance(state, np.ndarray):
-        if samples is not None or method not in (None, "exact") or options:
-            raise InputError("samples, method: dense states are evaluated exactly; estimator "
-                             "settings apply to MPS states only")
-        return dense.observational_entropy(state, coarse_graining)
     from mpsobs import estimate
 
+    allowed = _estimator_options()
+    unknown = sorted(set(options) - set(allowed))
+    if unknown:
+        raise InputError(f"{unknown[0]}: unknown keyword of observational_entropy; allowed: "
+                         f"{', '.join(allowed)}")
+    estimate.check_seed(seed)
+    if isinstance(state, np.ndarray):
+        given = [name for name, value in (("samples", samples), *options.items())
+                 if value is not None]
+        if given or method not in (None, "exact"):
+            name = given[0] if given else "method"
+            raise InputError(f"{name}: dense states are evaluated exactly (method None or "
+                             f"'exact'); estimator settings apply to MPS states only")
+        return dense.observational_entropy(state, coarse_graining)
     return estimate.mps_observational_entropy(state, coarse_graining, samples=samples,
                                               seed=seed, method=method, **options)

@@ -18,30 +18,55 @@ Estimators (``method``):
   regions of any size, with a counter index on the environments (number
   coarse-grainings only; the only method for blocks wider than
   :data:`mpsobs.coarse.MAX_BLOCK_SITES`).
-- ``"sample"``: unbiased sampling. A readout-row string is drawn by perfect sampling with
-  a vector environment (Ferris and Vidal, Phys. Rev. B 85, 165146 (2012)); its rows fix the
-  coarse outcome string i, whose exact probability p_i follows from the matrix
-  environment; S_obs = E[-ln p_i + ln V_i] and its parts are sample means with standard
-  errors from the sample variance.
-- ``"exact"``: ``"count"`` where it applies, otherwise ``"enumerate"``.
-- ``None`` (automatic): ``"count"`` for number coarse-grainings of at most three blocks
-  (and for blocks wider than MAX_BLOCK_SITES); otherwise ``"enumerate"`` with at most as
-  many live prefixes as the sample budget (``samples`` or DEFAULT_SAMPLES, capped by
-  ``max_branches``), falling back to ``"sample"`` when that is exceeded or the pruned
-  mass exceeds AUTO_MAX_PRUNED.
+- ``"sample"``: the conditional (chain-rule) estimator, :func:`draw_conditional`. For
+  a coarse prefix i_<k with unit-trace environment E, p(i | i_<k) = Tr[E R_{k,i}] with
+  R_{k,i} = sum over the outcome's rows of A_r A_r^dagger (once per state), and
+  f_k = sum_i p(i | i_<k) (-ln p(i | i_<k) + ln V_{k,i}). A path is drawn from these
+  conditionals; its value sum_k f_k is an unbiased estimate of S_obs (chain rule,
+  S_obs = sum_k E[f_k]) that averages each block's outcome exactly instead of drawing
+  it (Rao-Blackwellisation: never a larger variance than ``"sample_strings"``; zero for
+  a product over blocks). The Shannon and Boltzmann parts split the same way.
+- ``"sample_strings"``: the per-string estimator, :func:`draw_samples`. A readout-row
+  string is drawn by perfect sampling with a vector environment (Ferris and Vidal,
+  Phys. Rev. B 85, 165146 (2012)); its rows fix the coarse outcome string i, whose
+  exact probability p_i follows from the matrix environment; the sample value is
+  -ln p_i + ln V_i. Kept for comparison.
+- Both sampled estimators report means and standard errors from the sample variance.
+- ``"exact"``: ``"count"`` where it applies, else the one-path conditional value for a
+  product over blocks (bond dimension 1 at every block boundary; ``algorithm``
+  "mps-conditional", no ``distribution``), else ``"enumerate"``.
+- ``None`` (automatic): as ``"exact"`` for countable coarse-graining and block products
+  (blocks wider than MAX_BLOCK_SITES only count). Otherwise by cost and error:
+  enumeration is tried with a flop budget equal to the cost of the conditional sampling
+  it replaces (n samples x :func:`conditional_sample_flops`; n = ``samples`` or
+  DEFAULT_SAMPLES, or with ``target_stderr`` n = (sigma / target)^2 from a pilot of the
+  first ``samples`` or MIN_TARGET_SAMPLES samples), the memory cap ENUMERATE_BYTES and,
+  if given, ``max_branches``. Its result is kept if it finishes within the budget and
+  ``pruned_entropy_bound`` is at most the error sampling would give: ``target_stderr``,
+  or sigma / sqrt(n) from a pilot of MIN_TARGET_SAMPLES samples (drawn only when
+  something was pruned). Else ``"sample"`` runs, continuing from the pilot samples. The
+  wasted work is at most the sampling cost, so automatic costs at most about twice the
+  cheaper method.
 """
 
 from __future__ import annotations
 
 import logging
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
 
-from mpsobs.blocktensors import WORK_BYTES, ReadoutBlock, readout_blocks, transfer, transfer_flops
+from mpsobs.blocktensors import (
+    WORK_BYTES,
+    ReadoutBlock,
+    conditional_probabilities,
+    outcome_weights,
+    readout_blocks,
+    transfer,
+    transfer_flops,
+)
 from mpsobs.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
 from mpsobs.dense import NORM_TOL
 from mpsobs.errors import InputError
@@ -49,12 +74,14 @@ from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical_log_norm
 from mpsobs.result import EntropyResult, OutcomeDistribution
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
-           "default_batch", "pruned_entropy_bound", "countable", "Method", "METHODS"]
+           "draw_conditional", "ConditionalBatch", "conditional_terms",
+           "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
+           "check_seed", "Method", "METHODS"]
 
 logger = logging.getLogger(__name__)
 
-Method = Literal["enumerate", "count", "sample", "exact"]
-METHODS = ("enumerate", "count", "sample", "exact")
+Method = Literal["enumerate", "count", "sample", "sample_strings", "exact"]
+METHODS = ("enumerate", "count", "sample", "sample_strings", "exact")
 
 #: Samples drawn when neither ``samples`` nor ``target_stderr`` is given.
 DEFAULT_SAMPLES = 1000
@@ -63,8 +90,6 @@ MIN_TARGET_SAMPLES = 100
 DEFAULT_MAX_SAMPLES = 1_000_000
 DEFAULT_PRUNE = 1e-12
 DEFAULT_MAX_BRANCHES = 2**14
-#: Largest pruned mass the automatic choice accepts from enumeration.
-AUTO_MAX_PRUNED = 1e-9
 #: Memory cap of the live environments of enumeration (bytes).
 ENUMERATE_BYTES = 2**29
 #: Memory target of one sampling batch (bytes), used when ``batch`` is None.
@@ -77,12 +102,15 @@ COUNT_MAX_REGIONS = 3
 
 
 def canonical_state(state, L: int | None = None) -> MPS:
-    """A normalised right-canonical copy of ``state`` (the input is never modified).
+    """A right-canonical copy of a normalised ``state`` (the input is never modified).
 
     ``state`` is an :class:`mpsobs.mps.MPS`, a quimb ``MatrixProductState`` or a list of
-    (left, 2, right) arrays, in any gauge. A state with |ln norm| > :data:`mpsobs.dense.NORM_TOL`
-    is normalised with a UserWarning (truncated time evolution loses norm); a zero or
-    non-finite norm raises InputError. Cost L chi^3.
+    (left, 2, right) arrays, in any gauge. One rule for dense vectors and MPS alike: a
+    state with |ln norm| > :data:`mpsobs.dense.NORM_TOL` is refused with an InputError
+    that says how to normalise it (a silent or warned rescaling would hide a wrong
+    state; :func:`mpsobs.evolve.evolve` snapshots are normalised, their loss to
+    truncation kept in ``Snapshot.norm``). A zero or non-finite norm raises InputError
+    too. Cost L chi^3.
     """
     mps = as_mps(state)
     if L is not None and mps.L != L:
@@ -92,8 +120,10 @@ def canonical_state(state, L: int | None = None) -> MPS:
             raise InputError(f"state: MPS tensor {i} contains NaN or infinite entries")
     rc, log_norm = right_canonical_log_norm(mps)
     if abs(log_norm) > NORM_TOL:
-        warnings.warn(f"state: the MPS is not normalised (ln norm = {log_norm:.12g}); it is "
-                      f"normalised before the estimate", UserWarning, stacklevel=3)
+        raise InputError(f"state: the MPS is not normalised (norm = {np.exp(log_norm):.12g}, "
+                         f"ln norm = {log_norm:.3g}, tolerance {NORM_TOL:g}); normalise it "
+                         f"first, e.g. mpsobs.mps.right_canonical(mpsobs.mps.as_mps(state), "
+                         f"normalize=True), or quimb's state.normalize()")
     return rc
 
 
@@ -103,8 +133,21 @@ def _positive_int(value, name: str, minimum: int = 1) -> int:
     return int(value)
 
 
+def check_seed(seed) -> None:
+    """Refuse a ``seed`` that :func:`numpy.random.default_rng` does not take (InputError
+    naming ``seed``)."""
+    if isinstance(seed, str | bytes | float | bool):
+        raise InputError(f"seed: expected None, a non-negative integer, a sequence of them, "
+                         f"a numpy SeedSequence or Generator; got {seed!r}")
+    try:
+        np.random.default_rng(seed)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"seed: expected None, a non-negative integer, a sequence of them, "
+                         f"a numpy SeedSequence or Generator; got {seed!r} ({exc})") from None
+
+
 def _check_options(samples, target_stderr, prune, max_branches, batch, max_samples,
-                   progress) -> None:
+                   progress, seed) -> None:
     if samples is not None:
         _positive_int(samples, "samples", 2)
     if target_stderr is not None:
@@ -114,7 +157,8 @@ def _check_options(samples, target_stderr, prune, max_branches, batch, max_sampl
     if (isinstance(prune, bool) or not isinstance(prune, float | int)
             or not 0.0 <= prune < 1.0):
         raise InputError(f"prune: expected a probability floor in [0, 1), got {prune!r}")
-    _positive_int(max_branches, "max_branches")
+    if max_branches is not None:
+        _positive_int(max_branches, "max_branches")
     if batch is not None:
         _positive_int(batch, "batch")
     _positive_int(max_samples, "max_samples", 2)
@@ -122,6 +166,7 @@ def _check_options(samples, target_stderr, prune, max_branches, batch, max_sampl
         raise InputError(f"samples: {samples} exceeds max_samples = {max_samples}")
     if not isinstance(progress, bool):
         raise InputError(f"progress: expected True or False, got {progress!r}")
+    check_seed(seed)
 
 
 def countable(cg: BlockCoarseGraining) -> bool:
@@ -132,29 +177,29 @@ def countable(cg: BlockCoarseGraining) -> bool:
 
 
 def _resolve_method(method, cg: BlockCoarseGraining, samples, target_stderr) -> str:
-    """The estimator to run: one of METHODS minus "exact", or "auto"."""
+    """The estimator to run: "count", "enumerate", "exact" (not countable: a product
+    over blocks or enumeration), "sample", "sample_strings" or "auto"."""
     if method is not None and (not isinstance(method, str) or method not in METHODS):
         raise InputError(f"method: unknown {method!r}; allowed: None (automatic), "
                          f"{', '.join(map(repr, METHODS))}")
     wide = any(b.readout is None for b in cg.blocks)
-    if method in (None, "exact") and countable(cg):
-        method = "count"
-    elif method is None:
-        method = "auto"
-    elif method == "exact":
-        method = "enumerate"
-    if method == "count" and not countable(cg):
+    if method in ("count", "enumerate", "exact") and (samples is not None
+                                                      or target_stderr is not None):
+        name = "samples" if samples is not None else "target_stderr"
+        raise InputError(f"{name}: method {method!r} is exact and draws no samples; drop "
+                         f"{name} or use method 'sample' or None (automatic)")
+    chosen = method or "auto"
+    if chosen in ("auto", "exact") and countable(cg):
+        chosen = "count"
+    if chosen == "count" and not countable(cg):
         raise InputError(f"method: 'count' evaluates the number coarse-graining in at most "
                          f"{COUNT_MAX_REGIONS} regions; got {cg.label!r} with "
                          f"{len(cg.blocks)} blocks")
-    if wide and method != "count":
+    if wide and chosen != "count":
         raise InputError(f"coarse_graining: blocks wider than {MAX_BLOCK_SITES} sites are "
                          f"evaluated only by method 'count' (number, at most "
                          f"{COUNT_MAX_REGIONS} regions); got {len(cg.blocks)} blocks")
-    if method in ("count", "enumerate") and (samples is not None or target_stderr is not None):
-        name = "samples" if samples is not None else "target_stderr"
-        raise InputError(f"{name}: method {method!r} is exact and draws no samples")
-    return method
+    return chosen
 
 
 # --------------------------------------------------------------------------- results
@@ -203,22 +248,29 @@ class _TooManyBranches(Exception):
     """Enumeration needs more live prefixes than allowed."""
 
 
-def _enumerate(blocks: Sequence[ReadoutBlock], limit: int, prune: float,
-               progress: bool) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progress: bool,
+               budget: float = np.inf) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """Leaves (p, ln V, outcome strings) of the pruned outcome tree, and the pruned mass.
 
     Level k holds the live prefixes i_1 .. i_k, each with its environment normalised to
     unit trace and its ln p; every outcome j of block k + 1 extends all of them in one
-    :func:`transfer` call. Cost sum_k n_k 8 R_k chi^2 (chi_l + chi_r) flops (n_k live
-    prefixes); memory 16 bytes x n_k chi^2 (twice, current and next level), capped at
-    ENUMERATE_BYTES.
+    :func:`transfer` call. Cost sum_k n_k 8 R_k chi_l chi_r (chi_l + chi_r) flops (n_k
+    live prefixes); memory 16 bytes x n_k chi^2 (twice, current and next level), capped
+    at ENUMERATE_BYTES. Raises _TooManyBranches before a level that would take the live
+    prefixes beyond ``limit`` or the flops beyond ``budget``.
     """
     env = np.ones((1, 1, 1), dtype=complex)
     log_p, log_v = np.zeros(1), np.zeros(1)
     outcomes = np.zeros((1, 0), dtype=np.int64)
     pruned = 0.0
+    flops = 0.0
     with _bar(progress, len(blocks), "enumerate") as bar:
         for k, blk in enumerate(blocks):
+            flops += transfer_flops(env.shape[0], blk.tensor.shape)
+            if flops > budget:
+                raise _TooManyBranches(
+                    f"more than {budget:.3g} flops (the cost of sampling) at block {k} "
+                    f"(sites {blk.start}..{blk.stop - 1})")
             chi = blk.tensor.shape[2]
             cap = min(limit, max(1, ENUMERATE_BYTES // (16 * chi * chi)))
             p_parent = np.exp(log_p)
@@ -316,6 +368,61 @@ def _count(mps: MPS, cg: BlockCoarseGraining, bonds: np.ndarray) -> EntropyResul
 # --------------------------------------------------------------------------- sample
 
 
+class _Environments:
+    """Unit-trace matrix environments of n samples, in reused buffers.
+
+    At every block the samples are reordered by their outcome (environments copied into
+    a scratch buffer) so that each outcome's environments are one contiguous slice,
+    advanced together by :func:`mpsobs.blocktensors.transfer` back into the stack.
+    ``held[s]`` is the sample at position s; ``env`` is the (n, chi, chi) stack.
+    """
+
+    def __init__(self, blocks: Sequence[ReadoutBlock], n: int):
+        chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
+        self._stack, self._scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
+        self._work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)),
+                              dtype=complex)
+        self.env = self._stack[:n].reshape(n, 1, 1)
+        self.env[...] = 1.0
+        self.held = np.arange(n)
+        self.flops = 0.0
+
+    def advance(self, blk: ReadoutBlock, outcome: np.ndarray,
+                carried: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray, tuple]:
+        """Advance every environment with the rows of its sample's outcome at ``blk``.
+
+        Returns the traces before renormalisation (the conditional probabilities of the
+        outcomes), the outcomes and the ``carried`` per-sample arrays, all in the new
+        order of the samples.
+        """
+        n = outcome.size
+        cl, _, cr = blk.tensor.shape
+        order = np.argsort(outcome, kind="stable")
+        outcome = outcome[order]
+        self.held = self.held[order]
+        sorted_env = self._scratch[:n * cl * cl].reshape(n, cl, cl)
+        np.take(self.env, order, axis=0, out=sorted_env, mode="clip")
+        self.env = self._stack[:n * cr * cr].reshape(n, cr, cr)
+        present = np.flatnonzero(np.bincount(outcome, minlength=blk.n_outcomes))
+        bounds = np.searchsorted(outcome, present)
+        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [n], strict=True):
+            rows = blk.rows(j)
+            transfer(sorted_env[lo:hi], rows, out=self.env[lo:hi], work=self._work)
+            self.flops += transfer_flops(hi - lo, rows.shape)
+        trace = np.einsum("nii->n", self.env).real
+        self.env /= trace[:, None, None]
+        return trace, outcome, tuple(c[order] for c in carried)
+
+
+def _draw_index(weights: np.ndarray, uniforms: np.ndarray) -> np.ndarray:
+    """Per row of non-negative ``weights`` (n, K), the index drawn with probability
+    proportional to its weight by the uniform in [0, 1) of that row (inverse CDF; 1 - u
+    lies in (0, 1], so the drawn index always has positive weight)."""
+    cum = np.cumsum(weights, axis=1)
+    threshold = (1.0 - uniforms) * cum[:, -1]
+    return np.minimum((cum < threshold[:, None]).sum(axis=1), weights.shape[1] - 1)
+
+
 @dataclass(frozen=True, eq=False)
 class SampleBatch:
     """Samples of coarse outcome strings with their exact probabilities.
@@ -332,7 +439,8 @@ class SampleBatch:
 
 
 def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> SampleBatch:
-    """Sample outcome strings of a right-canonical MPS and their exact probabilities.
+    """Sample outcome strings of a right-canonical MPS and their exact probabilities
+    (the per-string estimator, method "sample_strings").
 
     Parameters
     ----------
@@ -351,15 +459,7 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
     vectors' row amplitudes) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     """
     n, m = uniforms.shape
-    chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
-    # The samples are reordered by outcome at every block (environments copied from
-    # ``stack`` into ``scratch``) so that each outcome's environments are one contiguous
-    # slice; the advanced environments are written back into ``stack``.
-    stack, scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
-    work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)), dtype=complex)
-    env = stack[:n].reshape(n, 1, 1)
-    env[...] = 1.0
-    held = np.arange(n)  # position s of the stacks holds sample held[s]
+    envs = _Environments(blocks, n)
     vec = np.ones((n, 1), dtype=complex)
     log_p = np.zeros(n)
     log_v = np.zeros(n)
@@ -371,32 +471,98 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
         amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(n, n_rows, cr)
         flops += 8.0 * n * cl * n_rows * cr
         weight = (amp.real**2 + amp.imag**2).sum(axis=2)
-        cum = np.cumsum(weight, axis=1)
-        # 1 - u lies in (0, 1], so the chosen row always has positive weight.
-        threshold = (1.0 - uniforms[held, k]) * cum[:, -1]
-        row = np.minimum((cum < threshold[:, None]).sum(axis=1), n_rows - 1)
+        row = _draw_index(weight, uniforms[envs.held, k])
         vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
         outcome = blk.row_outcome[row]
         log_v += blk.log_volumes[outcome]
-        order = np.argsort(outcome, kind="stable")
-        held, vec, log_p, log_v, outcome = (held[order], vec[order], log_p[order],
-                                            log_v[order], outcome[order])
-        sorted_env = scratch[:n * cl * cl].reshape(n, cl, cl)
-        np.take(env, order, axis=0, out=sorted_env, mode="clip")
-        outcomes[held, k] = outcome
-        env = stack[:n * cr * cr].reshape(n, cr, cr)
-        present = np.flatnonzero(np.bincount(outcome, minlength=blk.n_outcomes))
-        bounds = np.searchsorted(outcome, present)
-        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [n], strict=True):
-            rows = blk.rows(j)
-            transfer(sorted_env[lo:hi], rows, out=env[lo:hi], work=work)
-            flops += transfer_flops(hi - lo, rows.shape)
-        trace = np.einsum("nii->n", env).real
+        trace, outcome, (vec, log_p, log_v) = envs.advance(blk, outcome, (vec, log_p, log_v))
+        outcomes[envs.held, k] = outcome
         log_p += np.log(trace)
-        env /= trace[:, None, None]
-    restore = np.argsort(held)
-    log_p, log_v = log_p[restore], log_v[restore]
-    return SampleBatch(outcomes, log_p, log_v, flops)
+    restore = np.argsort(envs.held)
+    return SampleBatch(outcomes, log_p[restore], log_v[restore], flops + envs.flops)
+
+
+def conditional_terms(p: np.ndarray, log_volumes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Shannon and Boltzmann parts of f_k for rows of conditional distributions.
+
+    ``p`` (n, outcomes), ``log_volumes`` (outcomes,): returns -sum_i p_i ln p_i and
+    sum_i p_i ln V_i per row; outcomes with p_i = 0 contribute 0 (also when V_i = 0).
+    """
+    live = p > 0
+    log_p = np.log(p, where=live, out=np.zeros_like(p))
+    log_v = np.where(np.isfinite(log_volumes), log_volumes, 0.0)
+    return -np.sum(p * log_p, axis=1), p @ log_v
+
+
+@dataclass(frozen=True, eq=False)
+class ConditionalBatch:
+    """Coarse outcome paths drawn from their exact conditionals, with their chain-rule
+    values (the conditional estimator, method "sample").
+
+    ``outcomes`` (n, blocks): macrostate index per block; ``shannon`` and ``boltzmann``
+    (n,): sum over blocks k of -sum_i p(i | i_<k) ln p(i | i_<k) and of
+    sum_i p(i | i_<k) ln V_{k,i} along each path (their sum is the path's estimate of
+    S_obs); ``flops``: real floating-point operations of the contractions done.
+    """
+
+    outcomes: np.ndarray
+    shannon: np.ndarray
+    boltzmann: np.ndarray
+    flops: float
+
+
+def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarray],
+                     uniforms: np.ndarray) -> ConditionalBatch:
+    """Draw coarse outcome paths block by block from their exact conditional
+    distributions and add up the exact conditional entropies along each path.
+
+    Parameters
+    ----------
+    blocks : the state's blocks from :func:`mpsobs.blocktensors.readout_blocks`.
+    weights : :func:`mpsobs.blocktensors.outcome_weights` of every block (once per state).
+    uniforms : (n, blocks) numbers in [0, 1); row s, column k draws sample s at block k
+        (so a sample does not depend on which other samples share its batch).
+
+    With the unit-trace environments E of the n paths stacked, all conditionals
+    p(i | i_<k) = Tr[E R_{k,i}] come from one matrix product
+    (:func:`mpsobs.blocktensors.conditional_probabilities`); f_k = sum_i p_i (-ln p_i +
+    ln V_{k,i}) is added to the path's value; i_k is drawn from the same p; E is advanced
+    with the rows of i_k only and renormalised. By the chain rule sum_k E[f_k] = S_obs,
+    so the path value is unbiased; it is exact for a product of blocks. Cost per sample
+    and block 4 chi_l^2 n_out + 8 g chi_l chi_r (chi_l + chi_r) flops (n_out outcomes, g
+    rows of the drawn outcome); memory 16 bytes x n x 2 chi^2 plus
+    :data:`mpsobs.blocktensors.WORK_BYTES`.
+    """
+    n, m = uniforms.shape
+    envs = _Environments(blocks, n)
+    shannon = np.zeros(n)
+    boltzmann = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    flops = 0.0
+    for k, (blk, w) in enumerate(zip(blocks, weights, strict=True)):
+        p = conditional_probabilities(envs.env, w)
+        flops += 2.0 * n * w.size
+        h, b = conditional_terms(p, blk.log_volumes)
+        shannon += h
+        boltzmann += b
+        outcome = _draw_index(p, uniforms[envs.held, k])
+        _, outcome, (shannon, boltzmann) = envs.advance(blk, outcome, (shannon, boltzmann))
+        outcomes[envs.held, k] = outcome
+    restore = np.argsort(envs.held)
+    return ConditionalBatch(outcomes, shannon[restore], boltzmann[restore],
+                            flops + envs.flops)
+
+
+def conditional_sample_flops(blocks: Sequence[ReadoutBlock]) -> float:
+    """Predicted flops of one conditional path: per block the conditionals plus the
+    transfer with the mean drawn group size g = sum_i g_i^2 / R (rows drawn uniformly)."""
+    total = 0.0
+    for blk in blocks:
+        cl, n_rows, cr = blk.tensor.shape
+        sizes = np.diff(blk.offsets)
+        mean_group = float(np.sum(sizes**2)) / n_rows
+        total += 4.0 * cl * cl * blk.n_outcomes + 8.0 * mean_group * cl * cr * (cl + cr)
+    return total
 
 
 def default_batch(blocks: Sequence[ReadoutBlock]) -> int:
@@ -411,44 +577,79 @@ def _mean_err(x: np.ndarray) -> tuple[float, float]:
     return float(np.mean(x)), float(np.std(x, ddof=1) / np.sqrt(x.size))
 
 
-def _sample(blocks: Sequence[ReadoutBlock], cg: BlockCoarseGraining, bonds: np.ndarray, *,
-            samples: int | None, target_stderr: float | None, max_samples: int,
-            batch: int | None, seed, progress: bool) -> EntropyResult:
-    """Draw batches until ``samples`` are drawn, or with ``target_stderr`` until the
-    standard error of S_obs reaches it (after at least ``samples`` or MIN_TARGET_SAMPLES)
-    or ``max_samples`` are drawn."""
-    rng = np.random.default_rng(seed)
-    batch = batch or default_batch(blocks)
-    if target_stderr is None:
-        minimum = goal = samples or DEFAULT_SAMPLES
-    else:
-        minimum, goal = samples or MIN_TARGET_SAMPLES, max_samples
-    parts: list[SampleBatch] = []
-    drawn = 0
-    with _bar(progress, goal, "sample") as bar:
-        while drawn < goal:
-            size = min(batch, goal - drawn)
-            parts.append(draw_samples(blocks, rng.random((size, len(blocks)))))
-            drawn += size
-            bar.update(size)
-            if target_stderr is not None and drawn >= minimum:
-                values = np.concatenate([q.log_v - q.log_p for q in parts])
-                if _mean_err(values)[1] <= target_stderr:
-                    break
-    log_p = np.concatenate([q.log_p for q in parts])
-    log_v = np.concatenate([q.log_v for q in parts])
-    entropy, stderr = _mean_err(log_v - log_p)
-    shannon, shannon_err = _mean_err(-log_p)
-    boltzmann, boltzmann_err = _mean_err(log_v)
-    if target_stderr is not None and stderr > target_stderr:
-        logger.warning("target_stderr %.3g not reached with max_samples = %d (stderr %.3g)",
-                       target_stderr, max_samples, stderr)
-    logger.debug("sampled %d outcome strings, %.3g flops", drawn, sum(q.flops for q in parts))
-    return EntropyResult(entropy=entropy, stderr=stderr, shannon=shannon,
-                         shannon_err=shannon_err, boltzmann=boltzmann,
-                         boltzmann_err=boltzmann_err, max_entropy=cg.max_entropy,
-                         method="sampled", label=cg.label, samples=drawn,
-                         bond_entropies=bonds, algorithm="mps-sample")
+class _Sampling:
+    """Batches of sample values (Shannon and Boltzmann parts) drawn from one generator:
+    sample s always uses row s of its uniforms, whatever the batch size."""
+
+    def __init__(self, blocks: Sequence[ReadoutBlock], conditional: bool, seed,
+                 batch: int | None, bar):
+        self.blocks = blocks
+        self.algorithm = "mps-conditional" if conditional else "mps-sample"
+        self._weights = [outcome_weights(b) for b in blocks] if conditional else None
+        self._rng = np.random.default_rng(seed)
+        self._batch = batch or default_batch(blocks)
+        self._bar = bar
+        self.shannon: list[np.ndarray] = []
+        self.boltzmann: list[np.ndarray] = []
+        self.drawn = 0
+        self.flops = 0.0
+
+    def values(self) -> np.ndarray:
+        return np.concatenate(self.shannon) + np.concatenate(self.boltzmann)
+
+    def draw(self, goal: int, minimum: int, target_stderr: float | None) -> None:
+        """Draw until ``goal`` samples, or with ``target_stderr`` until the standard error
+        of S_obs reaches it after at least ``minimum`` samples."""
+        while self.drawn < goal:
+            if (target_stderr is not None and self.drawn >= minimum
+                    and _mean_err(self.values())[1] <= target_stderr):
+                return
+            size = min(self._batch, goal - self.drawn)
+            uniforms = self._rng.random((size, len(self.blocks)))
+            if self._weights is None:
+                batch = draw_samples(self.blocks, uniforms)
+                h, b = -batch.log_p, batch.log_v
+            else:
+                batch = draw_conditional(self.blocks, self._weights, uniforms)
+                h, b = batch.shannon, batch.boltzmann
+            self.shannon.append(h)
+            self.boltzmann.append(b)
+            self.drawn += size
+            self.flops += batch.flops
+            self._bar.update(size)
+
+    def result(self, cg: BlockCoarseGraining, bonds: np.ndarray,
+               target_stderr: float | None, max_samples: int) -> EntropyResult:
+        entropy, stderr = _mean_err(self.values())
+        shannon, shannon_err = _mean_err(np.concatenate(self.shannon))
+        boltzmann, boltzmann_err = _mean_err(np.concatenate(self.boltzmann))
+        if target_stderr is not None and stderr > target_stderr:
+            logger.warning("target_stderr %.3g not reached with max_samples = %d "
+                           "(stderr %.3g)", target_stderr, max_samples, stderr)
+        logger.debug("%s: %d samples, %.3g flops", self.algorithm, self.drawn, self.flops)
+        return EntropyResult(entropy=entropy, stderr=stderr, shannon=shannon,
+                             shannon_err=shannon_err, boltzmann=boltzmann,
+                             boltzmann_err=boltzmann_err, max_entropy=cg.max_entropy,
+                             method="sampled", label=cg.label, samples=self.drawn,
+                             bond_entropies=bonds, algorithm=self.algorithm)
+
+
+def _block_product(blocks: Sequence[ReadoutBlock]) -> bool:
+    """Whether the state is a product over the blocks (bond dimension 1 at every block
+    boundary): then every conditional is the block's own distribution."""
+    return all(b.tensor.shape[0] == 1 for b in blocks)
+
+
+def _product_result(blocks: Sequence[ReadoutBlock], cg: BlockCoarseGraining,
+                    bonds: np.ndarray) -> EntropyResult:
+    """Exact S_obs of a product over blocks: one conditional path (any uniforms)."""
+    path = draw_conditional(blocks, [outcome_weights(b) for b in blocks],
+                            np.zeros((1, len(blocks))))
+    shannon, boltzmann = float(path.shannon[0]), float(path.boltzmann[0])
+    return EntropyResult(entropy=shannon + boltzmann, stderr=0.0, shannon=shannon,
+                         shannon_err=0.0, boltzmann=boltzmann, boltzmann_err=0.0,
+                         max_entropy=cg.max_entropy, method="exact", label=cg.label,
+                         bond_entropies=bonds, algorithm="mps-conditional")
 
 
 # --------------------------------------------------------------------------- entry point
@@ -459,7 +660,7 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
                               method: Method | None = None,
                               target_stderr: float | None = None,
                               prune: float = DEFAULT_PRUNE,
-                              max_branches: int = DEFAULT_MAX_BRANCHES,
+                              max_branches: int | None = None,
                               batch: int | None = None,
                               max_samples: int = DEFAULT_MAX_SAMPLES,
                               progress: bool = False) -> EntropyResult:
@@ -469,24 +670,31 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     ----------
     state : quimb ``MatrixProductState``, :class:`mpsobs.mps.MPS` or list of (left, 2,
         right) arrays; any L, bond dimension and gauge. It is not modified; a copy is
-        brought to right-canonical form. A state that is not normalised (|ln norm| >
-        :data:`mpsobs.dense.NORM_TOL`) is normalised with a ``UserWarning``.
+        brought to right-canonical form. It must be normalised: |ln norm| >
+        :data:`mpsobs.dense.NORM_TOL` raises InputError (the same rule as for dense
+        vectors; see :func:`canonical_state`).
     coarse_graining : from :func:`mpsobs.coarse.blocks` or :func:`mpsobs.coarse.sequence`
         with the state's L.
-    samples : for ``"sample"``: number of samples (default DEFAULT_SAMPLES = 1000), or
-        with ``target_stderr`` the minimum (default MIN_TARGET_SAMPLES = 100). In
-        automatic mode also the budget of live prefixes tried by enumeration.
+    samples : for ``"sample"`` and ``"sample_strings"``: number of samples (default
+        DEFAULT_SAMPLES = 1000), or with ``target_stderr`` the minimum (default
+        MIN_TARGET_SAMPLES = 100). In automatic mode it also sets the flop budget of
+        enumeration (the cost of that many conditional samples).
     seed : anything :func:`numpy.random.default_rng` takes. Same seed and settings give
         the same numbers; sample s uses the s-th row of uniforms of that generator
         whatever the batch size, so the drawn outcomes do not depend on ``batch``.
-    method : "enumerate", "count", "sample", "exact" or None (automatic; the rule is in
-        the module docstring).
+        Anything else raises InputError naming ``seed``.
+    method : "sample" (conditional chain-rule estimator), "sample_strings" (per-string
+        estimator), "enumerate", "count", "exact" or None (automatic: exact when that is
+        cheaper than sampling to the requested error; the rule is in the module
+        docstring). The exact methods take neither ``samples`` nor ``target_stderr``.
     target_stderr : keep drawing batches until the standard error of S_obs is at most
         this, or ``max_samples`` are drawn (then a warning is logged).
     prune : enumeration drops outcome prefixes of probability below this floor
         (default 1e-12); their total is ``pruned_mass``.
-    max_branches : enumeration gives up (raises InputError naming ``method``) beyond this
-        many live prefixes at one block (default 2**14; also capped by ENUMERATE_BYTES).
+    max_branches : ``"enumerate"`` and ``"exact"`` give up (InputError naming ``method``)
+        beyond this many live prefixes at one block (default DEFAULT_MAX_BRANCHES =
+        2**14); the automatic choice stops enumerating there only if it is given, and
+        otherwise at its flop budget. Always capped by ENUMERATE_BYTES.
     batch : samples contracted together (default: as many as fit in BATCH_BYTES = 256 MiB,
         16 .. MAX_BATCH).
     max_samples : upper bound on samples; with ``target_stderr``, where drawing stops
@@ -495,9 +703,11 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
 
     Returns
     -------
-    EntropyResult: ``method`` "exact" (``algorithm`` "mps-enumerate" or "mps-count",
-    ``pruned_mass``, ``distribution``) or "sampled" (``algorithm`` "mps-sample",
-    ``samples``, ``stderr``, ``shannon_err``, ``boltzmann_err``); ``bond_entropies``, the
+    EntropyResult: ``method`` "exact" (``algorithm`` "mps-enumerate" or "mps-count" with
+    ``pruned_mass`` and ``distribution``, or "mps-conditional" for a product over blocks)
+    or "sampled" (``algorithm`` "mps-conditional" for ``"sample"``, "mps-sample" for
+    ``"sample_strings"``; ``samples``, ``stderr``, ``shannon_err``, ``boltzmann_err``);
+    ``bond_entropies``, the
     von Neumann entropy of every bond (index i cuts sites i | i + 1). At a cut between two
     blocks it is a lower bound: S_obs >= H(p_left) + <ln V_left> >= S_vN(rho_left).
 
@@ -505,9 +715,12 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     -----
     Preparation: L chi^3 (canonical form, bond entropies) plus the rotated block tensors,
     16 bytes x sum_k chi_{k-1} R_k chi_k (R_k = 2**b_k readout rows for one observable).
-    Sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops (g = readout rows of the
-    drawn outcome); working memory 16 bytes x batch x (2 chi^2 + R chi), plus
-    :data:`mpsobs.blocktensors.WORK_BYTES`. Enumeration: per live prefix and block
+    Conditional sampling: once per state 8 chi^3 R flops per block for the R_{k,i}; per
+    sample and block 4 chi^2 n_out + 16 g chi^3 flops (n_out outcomes, g = readout rows
+    of the drawn outcome); working memory 16 bytes x batch x 2 chi^2. Per-string
+    sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops; working memory 16 bytes
+    x batch x (2 chi^2 + R chi). Both plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    Enumeration: per live prefix and block
     16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: 32 chi^3 flops per site
     and live counter value (about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_3^2/2) complex
     multiply-adds for three regions); memory 16 bytes x chi^2 x (3 K + b_last + 1), K =
@@ -520,26 +733,77 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
         raise InputError(f"coarse_graining: expected a block coarse-graining from "
                          f"mpsobs.coarse, got {type(coarse_graining).__name__}")
     cg = coarse_graining
-    _check_options(samples, target_stderr, prune, max_branches, batch, max_samples, progress)
+    _check_options(samples, target_stderr, prune, max_branches, batch, max_samples, progress,
+                   seed)
     chosen = _resolve_method(method, cg, samples, target_stderr)
     mps = canonical_state(state, cg.L)
     bonds = bond_entropies(mps)
     if chosen == "count":
         return _count(mps, cg, bonds)
     blocks = readout_blocks(mps, cg)
-    if chosen in ("enumerate", "auto"):
-        limit = max_branches if chosen == "enumerate" else min(
-            max_branches, samples or DEFAULT_SAMPLES)
+    if chosen in ("exact", "auto") and _block_product(blocks):
+        return _product_result(blocks, cg, bonds)
+    if chosen in ("enumerate", "exact"):
         try:
-            p, log_v, outcomes, pruned = _enumerate(blocks, limit, prune, progress)
+            p, log_v, outcomes, pruned = _enumerate(
+                blocks, max_branches or DEFAULT_MAX_BRANCHES, prune, progress)
         except _TooManyBranches as exc:
-            if chosen == "enumerate":
-                raise InputError(f"method: exact enumeration needs {exc}; raise max_branches "
-                                 f"or prune, or use method='sample'") from None
-            logger.info("enumeration stopped: %s; sampling instead", exc)
-        else:
-            if chosen == "enumerate" or pruned <= AUTO_MAX_PRUNED:
-                return _exact_result(p, log_v, outcomes, cg, "mps-enumerate", pruned, bonds)
-            logger.info("enumeration left out mass %.3g; sampling instead", pruned)
-    return _sample(blocks, cg, bonds, samples=samples, target_stderr=target_stderr,
-                   max_samples=max_samples, batch=batch, seed=seed, progress=progress)
+            raise InputError(f"method: {chosen!r} (exact enumeration) needs {exc}; raise "
+                             f"max_branches or prune, or use method 'sample'") from None
+        return _exact_result(p, log_v, outcomes, cg, "mps-enumerate", pruned, bonds)
+    if target_stderr is None:
+        minimum = goal = samples or DEFAULT_SAMPLES
+    else:
+        minimum, goal = samples or MIN_TARGET_SAMPLES, max_samples
+    with _bar(progress, goal, "sample") as bar:
+        run = _Sampling(blocks, chosen != "sample_strings", seed, batch, bar)
+        if chosen == "auto":
+            exact = _enumerate_if_cheaper(run, blocks, cg, bonds, prune, max_branches,
+                                          progress, minimum, goal, target_stderr, max_samples)
+            if exact is not None:
+                return exact
+        run.draw(goal, minimum, target_stderr)
+    return run.result(cg, bonds, target_stderr, max_samples)
+
+
+def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
+                          cg: BlockCoarseGraining, bonds: np.ndarray, prune: float,
+                          max_branches: int | None, progress: bool, minimum: int,
+                          goal: int,
+                          target_stderr: float | None,
+                          max_samples: int) -> EntropyResult | None:
+    """The automatic choice: the exact enumeration result if it costs no more flops than
+    the conditional sampling it replaces and its pruning error is no larger than the
+    sampling error, else None (with the pilot samples, if any, kept in ``run``).
+
+    Sampling cost: n samples x :func:`conditional_sample_flops`, n = ``goal`` or, with
+    ``target_stderr``, (sigma / target)^2 from the per-sample deviation sigma of a pilot
+    of ``minimum`` samples (the first samples of the run). Sampling error:
+    ``target_stderr``, or sigma / sqrt(goal) (pilot of min(MIN_TARGET_SAMPLES, goal)
+    samples, drawn only when enumeration pruned something).
+    """
+    per_sample = conditional_sample_flops(blocks)
+    if target_stderr is not None:
+        run.draw(minimum, minimum, None)
+        sigma = float(np.std(run.values(), ddof=1))
+        needed = int(np.clip(np.ceil((sigma / target_stderr) ** 2), minimum, max_samples))
+    else:
+        needed = goal
+    budget = max(needed - run.drawn, 0) * per_sample
+    try:
+        p, log_v, outcomes, pruned = _enumerate(blocks, max_branches or np.inf, prune,
+                                                progress, budget)
+    except _TooManyBranches as exc:
+        logger.info("enumeration stopped: %s; sampling instead", exc)
+        return None
+    bound = pruned_entropy_bound(pruned, cg.max_entropy)
+    if bound > 0.0 and target_stderr is None:
+        run.draw(min(MIN_TARGET_SAMPLES, goal), 0, None)
+        error = float(np.std(run.values(), ddof=1)) / np.sqrt(goal)
+    else:
+        error = target_stderr or 0.0
+    if bound <= error:
+        return _exact_result(p, log_v, outcomes, cg, "mps-enumerate", pruned, bonds)
+    logger.info("enumeration left out mass %.3g (entropy bound %.3g > sampling error "
+                "%.3g); sampling instead", pruned, bound, error)
+    return None

@@ -145,7 +145,7 @@ def _estimator_options(estimator: dict, cg: coarse.BlockCoarseGraining) -> dict:
     happen (the exact methods, and "auto" on a countable coarse-graining, take none)."""
     method = None if estimator["method"] == "auto" else estimator["method"]
     options = {"method": method, "prune": estimator["prune"]}
-    if method == "sample" or (method is None and not countable(cg)):
+    if method in ("sample", "sample_strings") or (method is None and not countable(cg)):
         options.update(samples=estimator["samples"],
                        target_stderr=estimator["target_stderr"] or None)
     return options

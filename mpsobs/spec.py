@@ -34,9 +34,11 @@ The schema (defaults in brackets; S = sweepable):
 - ``[[coarse]]`` (one or more): ``observable`` number | energy | fine, or a list of them
   asked in that order; ``block`` (int >= 1 or a list) or ``regions`` (list of
   [start, stop]); ``bin_width`` (> 0 or a list; energy only); ``label`` (str).
-- ``[estimator]``: ``method`` auto | exact | enumerate | count | sample (S) [auto], see
-  :mod:`mpsobs.estimate`; ``samples`` (int >= 1, S) [2000]; ``target_stderr`` (>= 0,
-  0 = off, S) [0]; ``prune`` (0 <= p < 1, S) [1e-12].
+- ``[estimator]``: ``method`` auto | exact | enumerate | count | sample |
+  sample_strings (S) [auto], see :mod:`mpsobs.estimate` (sample: the conditional
+  chain-rule estimator; sample_strings: the per-string estimator, for comparison);
+  ``samples`` (int >= 1, S) [2000]; ``target_stderr`` (>= 0, 0 = off, S) [0]; ``prune``
+  (0 <= p < 1, S) [1e-12].
 - ``[sweep]``: ``zip`` = list of groups of axis names, e.g. [["model.L", "evolution.chi_max"]].
 - ``[output]``: ``dir`` (str) [mpsobs-runs/<name>]; ``checkpoint_seconds`` (>= 0) [300].
 
@@ -70,7 +72,8 @@ MODELS = ("xxz", "ising")
 STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")
 OBSERVABLES = ("number", "energy", "fine")
 FIELD_KINDS = ("uniform", "staggered", "random")
-ESTIMATOR_METHODS = ("auto", "exact", "enumerate", "count", "sample")
+ESTIMATOR_METHODS = ("auto", "exact", "enumerate", "count", "sample", "sample_strings")
+_SAMPLING_METHODS = ("auto", "sample", "sample_strings")
 GAS_FILLS = ("packed", "spread", "ground")
 RANDOM_DRAWS = ("haar", "basis")
 PATTERN_CHARACTERS = "01+-"
@@ -724,9 +727,10 @@ def _check_consistency(body: dict) -> None:
     methods = est["method"] if isinstance(est["method"], list) else [est["method"]]
     targets = est["target_stderr"] if isinstance(est["target_stderr"], list) else [
         est["target_stderr"]]
-    if set(methods) - {"auto", "sample"} and any(t > 0 for t in targets):
+    if set(methods) - set(_SAMPLING_METHODS) and any(t > 0 for t in targets):
         raise _fail("estimator.target_stderr", "a target standard error needs sampling; "
-                    "use estimator.method = 'auto' or 'sample', or drop target_stderr")
+                    "use estimator.method = 'auto', 'sample' or 'sample_strings', or drop "
+                    "target_stderr")
 
 
 def _expand(body: dict, groups: list[tuple[str, ...]]) -> list[Point]:

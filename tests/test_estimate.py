@@ -14,12 +14,20 @@ import pytest
 import quimb.tensor as qtn
 from scipy.stats import binom
 
-from mpsobs import coarse, dense, models
+import mpsobs
+from mpsobs import coarse, dense, models, states
 from mpsobs import mps as mpsmod
-from mpsobs.blocktensors import readout_blocks
+from mpsobs.blocktensors import (
+    conditional_probabilities,
+    outcome_weights,
+    readout_blocks,
+    transfer,
+)
 from mpsobs.errors import InputError
 from mpsobs.estimate import (
     canonical_state,
+    conditional_terms,
+    draw_conditional,
     draw_samples,
     mps_observational_entropy,
     pruned_entropy_bound,
@@ -127,18 +135,21 @@ SAMPLED_CASES = [
 ]
 
 
+@pytest.mark.parametrize("method", ["sample", "sample_strings"])
 @pytest.mark.parametrize("case", range(len(SAMPLED_CASES)))
-def test_sampling_is_unbiased_and_its_error_is_right(case):
+def test_sampling_is_unbiased_and_its_error_is_right(case, method):
     L, seeds, n = 12, 20, 200
     state = mpsmod.random_mps(L, 8, seed=100 + case)
     cg = SAMPLED_CASES[case](L)
     reference = dense.observational_entropy(mpsmod.to_dense(state), cg)  # exact, dense
     # Each run within 4 of its standard errors; the reported error within a factor 2 of
-    # the spread over 20 seeds (the sample std of 20 values is good to ~16%).
-    runs = [mps_observational_entropy(state, cg, method="sample", samples=n, seed=s)
+    # the spread over 20 seeds (the sample std of 20 values is good to ~16%, so 2 is
+    # about 6 of its standard deviations).
+    runs = [mps_observational_entropy(state, cg, method=method, samples=n, seed=s)
             for s in range(seeds)]
+    algorithm = {"sample": "mps-conditional", "sample_strings": "mps-sample"}[method]
     for r in runs:
-        assert r.method == "sampled" and r.samples == n
+        assert r.method == "sampled" and r.samples == n and r.algorithm == algorithm
         assert abs(r.entropy - reference.entropy) <= 4 * r.stderr
         assert abs(r.shannon - reference.shannon) <= 4 * r.shannon_err
         assert abs(r.boltzmann - reference.boltzmann) <= 4 * r.boltzmann_err
@@ -215,9 +226,14 @@ def test_rotated_product_state_against_binomial():
     exact = sum(binomial_block_entropy(b - a_, q) for a_, b in regions)
     assert r.entropy == pytest.approx(exact, abs=1e-10)
 
-    s = mps_observational_entropy(state, coarse.blocks(L, 4), samples=400, seed=2)
-    assert s.method == "sampled"
-    assert abs(s.entropy - 32 * binomial_block_entropy(4, q)) <= 4 * s.stderr
+    strings = mps_observational_entropy(state, coarse.blocks(L, 4), method="sample_strings",
+                                        samples=400, seed=2)
+    assert strings.method == "sampled"
+    assert abs(strings.entropy - 32 * binomial_block_entropy(4, q)) <= 4 * strings.stderr
+    # A product over blocks: automatic and conditional sampling give the exact value.
+    auto = mps_observational_entropy(state, coarse.blocks(L, 4), samples=400, seed=2)
+    assert auto.method == "exact" and auto.algorithm == "mps-conditional"
+    assert auto.entropy == pytest.approx(32 * binomial_block_entropy(4, q), abs=1e-10)
 
     # Enumeration of a nearly polarised chain, pruned: the exact value lies within
     # [entropy, entropy + bound] (bound from Gibbs' inequality, see pruned_entropy_bound).
@@ -253,7 +269,7 @@ def test_long_chain_without_underflow():
     # (L / b) H(Binomial(b, 1/2)). At L = 2048, p_i ~ e^-1064 is below the float range.
     L = 2048
     r = mps_observational_entropy(rotated_product(L, np.pi / 4), coarse.blocks(L, 2),
-                                  method="sample", samples=64, seed=3)
+                                  method="sample_strings", samples=64, seed=3)
     assert r.entropy == pytest.approx(L * np.log(2), rel=1e-10)
     pmf = binom.pmf(np.arange(3), 2, 0.5)
     assert abs(r.shannon - L / 2 * float(-np.sum(pmf * np.log(pmf)))) <= 4 * r.shannon_err
@@ -268,31 +284,209 @@ def test_energy_sampling_matches_enumeration_at_L64():
     exact = mps_observational_entropy(state, cg, method="enumerate", prune=1e-8,
                                       max_branches=2**15)
     bound = pruned_entropy_bound(exact.pruned_mass, exact.max_entropy)
-    sampled = mps_observational_entropy(state, cg, method="sample", samples=4000, seed=6)
+    sampled = mps_observational_entropy(state, cg, method="sample_strings", samples=4000,
+                                        seed=6)
     assert bound < sampled.stderr  # the comparison is limited by sampling, not pruning
     assert abs(sampled.entropy - exact.entropy) <= 4 * sampled.stderr + bound
+
+
+# --------------------------------------------------------------------------- conditional
+
+
+def chain_rule_expectation(blocks):
+    """sum_k E[f_k] by enumerating every outcome prefix, weighted by its probability,
+    with the conditional kernel (outcome_weights, conditional_probabilities,
+    conditional_terms) and the prefix environments advanced by transfer: the Shannon
+    and Boltzmann parts."""
+    env, weight = np.ones((1, 1, 1), dtype=complex), np.ones(1)
+    shannon = boltzmann = 0.0
+    for blk in blocks:
+        p = conditional_probabilities(env, outcome_weights(blk))
+        h, b = conditional_terms(p, blk.log_volumes)
+        shannon += weight @ h
+        boltzmann += weight @ b
+        children, child_weights = [], []
+        for j in range(blk.n_outcomes):
+            live = p[:, j] > 0
+            if live.any():
+                child = transfer(env[live], blk.rows(j))
+                children.append(child / np.einsum("nii->n", child).real[:, None, None])
+                child_weights.append(weight[live] * p[live, j])
+        env, weight = np.concatenate(children), np.concatenate(child_weights)
+    return shannon, boltzmann
+
+
+CHAIN_RULE_CASES = [
+    (10, 8, lambda L: coarse.blocks(L, 2)),
+    (10, 16, lambda L: coarse.blocks(L, 2, "energy", model=models.xxz(L, delta=0.6,
+                                                                     h=0.4))),
+    (8, 8, lambda L: coarse.sequence(coarse.blocks(L, 2), coarse.blocks(L, 2, XX))),
+]
+
+
+@pytest.mark.parametrize("case", range(len(CHAIN_RULE_CASES)))
+def test_chain_rule_identity(case):
+    # Chain rule of entropy, H(i_1 .. i_m) = sum_k H(i_k | i_<k) (Cover and Thomas,
+    # Elements of Information Theory, 2nd ed., Thm 2.5.1; from memory), and
+    # E ln V = sum_k E ln V_k: the expectation of the path value is S_obs exactly.
+    # Reference: the dense engine on the state vector.
+    L, bond, build = CHAIN_RULE_CASES[case]
+    state = mpsmod.random_mps(L, bond, seed=40 + case)
+    cg = build(L)
+    reference = dense.observational_entropy(mpsmod.to_dense(state), cg)
+    shannon, boltzmann = chain_rule_expectation(readout_blocks(canonical_state(state, L), cg))
+    assert shannon == pytest.approx(reference.shannon, abs=1e-10)
+    assert boltzmann == pytest.approx(reference.boltzmann, abs=1e-10)
+
+
+def test_conditional_sampling_agrees_with_enumeration_at_L32():
+    # A weakly entangled 32-site state where pruned enumeration is exact to its bound
+    # (pruned_entropy_bound, from Gibbs' inequality) far below the sampling error.
+    L, seeds, n = 32, 20, 200
+    state = weakly_entangled(L, 0.2, 0.1, seed=1)
+    cg = coarse.blocks(L, 4)
+    exact = mps_observational_entropy(state, cg, method="enumerate", max_branches=2**16)
+    bound = pruned_entropy_bound(exact.pruned_mass, exact.max_entropy)
+    runs = [mps_observational_entropy(state, cg, method="sample", samples=n, seed=s)
+            for s in range(seeds)]
+    reported = np.mean([r.stderr for r in runs])
+    assert bound < 0.01 * reported
+    for r in runs:
+        assert abs(r.entropy - exact.entropy) <= 4 * r.stderr + bound
+        assert abs(r.shannon - exact.shannon) <= 4 * r.shannon_err + bound
+        assert abs(r.boltzmann - exact.boltzmann) <= 4 * r.boltzmann_err + bound
+    # The reported error within a factor 2 of the spread over 20 seeds (see above).
+    values = np.array([r.entropy for r in runs])
+    assert 0.5 <= np.std(values, ddof=1) / reported <= 2.0
+
+
+def block_vectors(state, b):
+    """Dense vectors of the b-site blocks of a bond-1 product MPS (site 0 first)."""
+    sites = [t[0, :, 0] for t in state.tensors]
+    out = []
+    for k in range(0, len(sites), b):
+        v = np.ones(1)
+        for site in sites[k:k + b]:
+            v = np.kron(v, site)
+        out.append(v)
+    return out
+
+
+def test_product_state_is_exact_with_zero_error():
+    # For a product over blocks p and V factorise, so S_obs is the sum of the blocks'
+    # values (fact of the trade), each computed here by the dense engine; every f_k is
+    # then deterministic and the conditional estimator has no variance.
+    L = 64
+    state = states.random_product_state(L, 17)
+    cases = [
+        (4, lambda n: coarse.blocks(n, 4)),
+        (4, lambda n: coarse.blocks(n, 4, "energy", model=models.xxz(n, delta=0.7, h=0.3))),
+        (4, lambda n: coarse.blocks(n, 4, "energy",
+                                    model=models.ising(n, g=1.05, h=0.25))),
+        (2, lambda n: coarse.sequence(coarse.blocks(n, 2), coarse.blocks(n, 2, XX))),
+    ]
+    for b, build in cases:
+        reference = sum(dense.observational_entropy(v, build(b)).entropy
+                        for v in block_vectors(state, b))
+        sampled = mps_observational_entropy(state, build(L), method="sample", samples=50,
+                                            seed=3)
+        assert sampled.entropy == pytest.approx(reference, abs=1e-10)
+        assert sampled.stderr < 1e-12
+        for method in (None, "exact"):
+            exact = mps_observational_entropy(state, build(L), method=method)
+            assert exact.method == "exact" and exact.algorithm == "mps-conditional"
+            assert exact.entropy == pytest.approx(reference, abs=1e-10)
+            assert exact.stderr == 0.0
+
+
+def test_automatic_choice_by_cost_and_error():
+    # Few outcome strings: three energy blocks of 4 on a generic 12-site state are
+    # enumerated exactly (reference: the dense engine).
+    L = 12
+    state = mpsmod.random_mps(L, 64, seed=8)
+    cg = coarse.blocks(L, 4, "energy", model=models.ising(L, g=1.05, h=0.25))
+    auto = mps_observational_entropy(state, cg, samples=2000, seed=1)
+    assert auto.method == "exact" and auto.algorithm == "mps-enumerate"
+    assert auto.entropy == pytest.approx(
+        dense.observational_entropy(mpsmod.to_dense(state), cg).entropy, abs=1e-10)
+    # The t = 0 product state of a quench with energy blocks is exact at any L.
+    L = 64
+    model = models.ising(L, g=1.05, h=0.25)
+    start = states.product_state("0" * L, L)
+    r = mps_observational_entropy(start, coarse.blocks(L, 4, "energy", model=model))
+    assert r.method == "exact" and r.stderr == 0.0
+    # Enumeration that prunes some mass is kept when its entropy bound is below the
+    # sampling error, and replaced by sampling when it is not.
+    L = 20
+    weak = weakly_entangled(L, 0.2, 0.1, seed=1)
+    kept = mps_observational_entropy(weak, coarse.blocks(L, 4), seed=2, prune=1e-10)
+    assert kept.algorithm == "mps-enumerate" and kept.pruned_mass > 1e-9
+    sampled = mps_observational_entropy(weak, coarse.blocks(L, 4), seed=2, prune=1e-5)
+    assert sampled.algorithm == "mps-conditional" and sampled.samples == 1000
+    coarse_bound = pruned_entropy_bound(
+        mps_observational_entropy(weak, coarse.blocks(L, 4), method="enumerate",
+                                  prune=1e-5).pruned_mass, sampled.max_entropy)
+    assert coarse_bound > sampled.stderr
+    assert pruned_entropy_bound(kept.pruned_mass, kept.max_entropy) < sampled.stderr
+
+
+def test_python_errors_name_the_argument():
+    L = 8
+    state = mpsmod.random_mps(L, 4, seed=1)
+    cg = coarse.blocks(L, 2, "energy", model=models.xxz(L))
+    with pytest.raises(InputError, match="^samples: method 'exact'"):
+        mps_observational_entropy(state, cg, method="exact", samples=2000)
+    with pytest.raises(InputError, match="^target_stderr: method 'enumerate'"):
+        mpsobs.observational_entropy(state, cg, method="enumerate", target_stderr=0.1)
+    with pytest.raises(InputError, match="^sample: unknown keyword.*max_branches"):
+        mpsobs.observational_entropy(state, cg, sample=100)
+    with pytest.raises(InputError, match="^sample: unknown keyword"):
+        mpsobs.observational_entropy(mpsmod.to_dense(state), cg, sample=100)
+    for seed in ("abc", 1.5, -3):
+        with pytest.raises(InputError, match="^seed: "):
+            mpsobs.observational_entropy(state, cg, seed=seed)
+    with pytest.raises(InputError, match="^method: unknown 'samples'.*'sample_strings'"):
+        mpsobs.observational_entropy(state, cg, method="samples")
+    with pytest.raises(InputError, match="^prune: dense states are evaluated exactly"):
+        mpsobs.observational_entropy(mpsmod.to_dense(state), cg, prune=1e-3)
 
 
 # --------------------------------------------------------------------------- options
 
 
-def test_reproducible_from_seed_and_independent_of_batch():
+@pytest.mark.parametrize("method", ["sample", "sample_strings"])
+def test_reproducible_from_seed_and_independent_of_batch(method):
     L = 16
     state = mpsmod.random_mps(L, 8, seed=9)
     cg = coarse.blocks(L, 2, "energy", model=models.ising(L, g=0.5))
-    run = [mps_observational_entropy(state, cg, method="sample", samples=120, seed=s, batch=b)
+    run = [mps_observational_entropy(state, cg, method=method, samples=120, seed=s, batch=b)
            for s, b in ((11, 40), (11, 40), (12, 40), (11, 7))]
     assert run[0].entropy == run[1].entropy and run[0].stderr == run[1].stderr
     assert run[0].entropy != run[2].entropy
     assert run[3].entropy == pytest.approx(run[0].entropy, abs=1e-12)
+    # The drawn outcome paths themselves do not depend on the batch they are drawn in.
+    blocks = readout_blocks(canonical_state(state, L), cg)
+    uniforms = np.random.default_rng(5).random((30, len(blocks)))
+    weights = [outcome_weights(b) for b in blocks]
+    whole = draw_conditional(blocks, weights, uniforms)
+    halves = [draw_conditional(blocks, weights, uniforms[lo:lo + 15]) for lo in (0, 15)]
+    np.testing.assert_array_equal(whole.outcomes,
+                                  np.concatenate([h.outcomes for h in halves]))
+    np.testing.assert_allclose(whole.shannon, np.concatenate([h.shannon for h in halves]),
+                               atol=1e-12)
 
 
 def test_target_stderr_and_automatic_choice():
     L = 40
     state = mpsmod.random_mps(L, 8, seed=2)
-    r = mps_observational_entropy(state, coarse.blocks(L, 2), target_stderr=0.1, batch=64,
-                                  seed=1)
-    assert r.method == "sampled" and r.stderr <= 0.1 and r.samples % 64 == 0
+    for method, target in (("sample", 0.01), ("sample_strings", 0.05)):
+        r = mps_observational_entropy(state, coarse.blocks(L, 2), method=method,
+                                      target_stderr=target, batch=64, seed=1)
+        assert r.method == "sampled" and r.stderr <= target and r.samples % 64 == 0
+        assert r.samples > 128  # several batches were needed
+    auto = mps_observational_entropy(state, coarse.blocks(L, 2), target_stderr=0.01,
+                                     batch=64, seed=1)
+    assert auto.algorithm == "mps-conditional" and auto.stderr <= 0.01
     small = mpsmod.random_mps(8, 4, seed=3)
     assert mps_observational_entropy(small, coarse.blocks(8, 2)).algorithm == "mps-enumerate"
     regions = coarse.blocks(L, regions=[(0, 13), (13, 27), (27, 40)])  # wider than 12 sites
@@ -344,9 +538,12 @@ def test_bad_input_names_the_argument():
     zero = [t * 0 for t in state.tensors]
     with pytest.raises(InputError, match="state.*norm"):
         mps_observational_entropy(zero, cg)
-    # Documented choice: an unnormalised state is normalised, with a warning.
+    # Documented choice, the same for dense vectors and MPS: an unnormalised state is
+    # refused with a hint how to normalise it.
     scaled = [state.tensors[0] * 3.0] + list(state.tensors[1:])
-    with pytest.warns(UserWarning, match="not normalised"):
-        r = mps_observational_entropy(scaled, cg, method="enumerate")
-    assert r.entropy == pytest.approx(
-        mps_observational_entropy(state, cg, method="enumerate").entropy, abs=1e-12)
+    with pytest.raises(InputError, match="state: the MPS is not normalised.*normalize"):
+        mps_observational_entropy(scaled, cg, method="enumerate")
+    with pytest.raises(InputError, match="state: not normalised"):
+        mpsobs.observational_entropy(3.0 * mpsmod.to_dense(state), cg)
+    with pytest.raises(InputError, match="state: the MPS is not normalised"):
+        mpsobs.observational_entropy(scaled, cg)

@@ -158,6 +158,21 @@ def _base() -> dict:
     return tomllib.loads(BASE)
 
 
+@pytest.mark.parametrize("method", spec.ESTIMATOR_METHODS)
+def test_every_estimator_method_is_accepted_and_an_unknown_one_refused(method):
+    data = _base()
+    data["estimator"] = {"method": method}
+    if method in ("auto", "sample", "sample_strings"):
+        data["estimator"]["target_stderr"] = 0.05  # these sample, so a target is allowed
+    data["model"]["L"] = 8
+    data["coarse"] = [{"observable": "number", "regions": [[0, 4], [4, 8]]}]
+    point = spec.parse(data).points[0]
+    assert point.params["estimator"]["method"] == method
+    data["estimator"]["method"] = "sample-path"
+    with pytest.raises(InputError, match=r"^estimator\.method: .*'sample_strings'"):
+        spec.parse(data)
+
+
 def test_cartesian_product_and_zip():
     data = _base()
     data["evolution"]["chi_max"] = [16, 32]
