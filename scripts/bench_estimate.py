@@ -1,32 +1,56 @@
-"""Benchmark of the sampled MPS estimator (not a test; prints a table).
+"""Benchmark of the sampled MPS estimators (not a test; prints tables).
 
-1. L = 128, bond 128, blocks of 4 (number and XXZ energy): samples per second, and the
-   achieved flop rate of the contractions (flops counted by ``draw_samples``) divided by
-   numpy's complex matrix-multiply rate (1024 x 1024 zgemm) measured around each run.
+1. L = 128, bond 128, blocks of 4 (number and XXZ energy): samples per second of the
+   per-string sampler, and the achieved flop rate of the contractions (flops counted by
+   ``draw_samples``) divided by numpy's complex matrix-multiply rate (1024 x 1024 zgemm)
+   measured around each run.
 2. Time per sample at L = 64, 128, 256 and bond 128 (number blocks of 4), divided by L.
 3. quimb's fine-grained ``MatrixProductState.sample`` at the same L and bond (steady
    state, after its one-off canonicalisation), against our coarse-grained samples, each
    of which carries its exact probability.
+4. Conditional (``method="sample"``) against per-string (``"sample_strings"``) sampling
+   on quench states of the shipped specs' models, evolved by TEBD until the bond
+   reaches 128: the tilted-field Ising chain of runs/size-scan.toml (g = 1.05, h = 0.25,
+   all up) and the disordered XXZ chain of runs/block-scan.toml (delta = 1, random field
+   of strength 0.5, seed 77; Neel start), L = 64 and 128, number and energy blocks of 4
+   (second-order TEBD, dt = 0.1).
+   Per-sample variance ratio old / new; wall time of each estimator to a standard error
+   of 0.1 nats (``target_stderr``, same state, same run) and their ratio; the flop rate
+   of ``draw_conditional`` against the zgemm rate.
+
+Section 4 adds to each table row whether the two estimates agree (|difference| over the
+combined standard error).
 
 The machine may be shared: figures are noisy. Timings are best-of-``--repeats`` (ours,
 quimb's and zgemm's alike) and ratios are taken against baselines measured in the same
 run, next to each measurement. Under heavy load, running with OPENBLAS_NUM_THREADS=1
 gives steadier ratios.
 
-Usage: python scripts/bench_estimate.py [--bond 128] [--samples 64]
+Usage: python scripts/bench_estimate.py [--bond 128] [--samples 64] [--quick]
+    [--sections 1234] [--cache DIR] [--target 0.1] [--pilot 200]
+--quick runs section 4 only, at L = 64 on the Ising quench; --cache keeps the evolved
+quench states (.npz) between runs.
 """
 
 from __future__ import annotations
 
 import argparse
 import time
+from pathlib import Path
 
 import numpy as np
 
-from mpsobs import coarse, models
+from mpsobs import coarse, models, states
 from mpsobs import mps as mpsmod
-from mpsobs.blocktensors import readout_blocks
-from mpsobs.estimate import canonical_state, default_batch, draw_samples, mps_observational_entropy
+from mpsobs.blocktensors import outcome_weights, readout_blocks
+from mpsobs.estimate import (
+    canonical_state,
+    default_batch,
+    draw_conditional,
+    draw_samples,
+    mps_observational_entropy,
+)
+from mpsobs.evolve import evolve
 
 
 def zgemm_rate(n: int = 1024, repeats: int = 3) -> float:
@@ -71,6 +95,80 @@ def quimb_rate(state: mpsmod.MPS, n: int) -> float:
         best = min(best, time.perf_counter() - t0)
 
 
+QUENCHES = {
+    "ising": (lambda L: models.ising(L, g=1.05, h=0.25), lambda L: states.product_state("0" * L)),
+    "xxz": (lambda L: models.xxz(L, delta=1.0, h=0.5, field="random", seed=77),
+            lambda L: states.neel(L)),
+}
+
+
+def quench_state(name: str, L: int, bond: int, cache: Path | None) -> tuple[mpsmod.MPS, float]:
+    """The quench of ``name`` evolved (second order, dt 0.1, cutoff 1e-10: the estimators
+    only need a typical state at that bond) to the first time on a grid of 0.25 at which
+    the bond dimension reaches ``bond``; with its time."""
+    file = cache / f"{name}-L{L}-chi{bond}.npz" if cache else None
+    if file is not None and file.exists():
+        data = np.load(file)
+        return mpsmod.MPS(tuple(data[f"t{i}"] for i in range(L))), float(data["time"])
+    build_model, build_state = QUENCHES[name]
+    times = np.arange(0.25, 40.0, 0.25)
+    for snap in evolve(build_state(L), build_model(L), times, max_bond=bond, cutoff=1e-10,
+                       dt=0.1, order=2):
+        if snap.max_bond >= bond:
+            break
+    if file is not None:
+        file.parent.mkdir(parents=True, exist_ok=True)
+        np.savez(file, time=snap.t, **{f"t{i}": t for i, t in enumerate(snap.state.tensors)})
+    return snap.state, snap.t
+
+
+def compare_estimators(names, lengths, bond, cache, target, pilot, repeats) -> None:
+    """Section 4: one table row per model, L and coarse-graining."""
+    print(f"\n4. conditional ('sample') vs per-string ('sample_strings') sampling on quench "
+          f"states at bond {bond}; target standard error {target} nats")
+    print(f"{'model':>6} {'L':>4} {'t':>5} {'blocks':>9} {'var old':>9} {'var new':>9} "
+          f"{'ratio':>7} {'n old':>7} {'n new':>6} {'s old':>8} {'s new':>7} {'speed-up':>9} "
+          f"{'GFLOP/s':>8} {'zgemm':>6} {'rate':>5} {'|dS|/err':>8}")
+    for name in names:
+        for L in lengths:
+            t0 = time.perf_counter()
+            state, t = quench_state(name, L, bond, cache)
+            logline = f"   ({name} L = {L} state at t = {t}: {time.perf_counter() - t0:.0f} s)"
+            print(logline, flush=True)
+            model = QUENCHES[name][0](L)
+            for cg in (coarse.blocks(L, 4), coarse.blocks(L, 4, "energy", model=model)):
+                runs = {}
+                for method in ("sample_strings", "sample"):
+                    r = mps_observational_entropy(state, cg, method=method, samples=pilot,
+                                                  seed=1)
+                    var = (r.stderr * np.sqrt(r.samples)) ** 2
+                    t0 = time.perf_counter()
+                    full = mps_observational_entropy(state, cg, method=method, seed=2,
+                                                     target_stderr=target)
+                    runs[method] = (var, full.samples, time.perf_counter() - t0, full)
+                old, new = runs["sample_strings"], runs["sample"]
+                agree = abs(old[3].entropy - new[3].entropy) / np.hypot(old[3].stderr,
+                                                                         new[3].stderr)
+                blocks = readout_blocks(canonical_state(state, L), cg)
+                weights = [outcome_weights(b) for b in blocks]
+                n = default_batch(blocks)
+                draw_conditional(blocks, weights, np.zeros((8, len(blocks))))  # warm-up
+                before = zgemm_rate()
+                best, flops = np.inf, 0.0
+                for seed in range(repeats):
+                    uniforms = np.random.default_rng(seed).random((n, len(blocks)))
+                    t0 = time.perf_counter()
+                    batch = draw_conditional(blocks, weights, uniforms)
+                    wall = time.perf_counter() - t0
+                    if wall < best:
+                        best, flops = wall, batch.flops
+                peak = max(before, zgemm_rate())
+                print(f"{name:>6} {L:4d} {t:5.2f} {cg.label:>9} {old[0]:9.3g} {new[0]:9.3g} "
+                      f"{old[0] / new[0]:7.1f} {old[1]:7d} {new[1]:6d} {old[2]:8.1f} "
+                      f"{new[2]:7.1f} {old[2] / new[2]:9.1f} {flops / best / 1e9:8.1f} "
+                      f"{peak / 1e9:6.1f} {flops / best / peak:5.2f} {agree:8.2f}", flush=True)
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--bond", type=int, default=128)
@@ -78,7 +176,29 @@ def main() -> None:
                         help="samples per timed batch (default: the estimator's batch size)")
     parser.add_argument("--quimb-samples", type=int, default=8)
     parser.add_argument("--repeats", type=int, default=3, help="best-of repeats per timing")
+    parser.add_argument("--sections", default="1234",
+                        help="sections to run: 1-3 (per-string sampler) run together, 4")
+    parser.add_argument("--quick", action="store_true",
+                        help="section 4 only, L = 64, Ising quench")
+    parser.add_argument("--cache", type=Path, default=None,
+                        help="directory keeping the evolved quench states")
+    parser.add_argument("--target", type=float, default=0.1,
+                        help="target standard error of section 4 (nats)")
+    parser.add_argument("--pilot", type=int, default=200,
+                        help="samples of the per-sample variance estimate of section 4")
     args = parser.parse_args()
+    if args.quick:
+        compare_estimators(["ising"], [64], args.bond, args.cache, args.target, args.pilot,
+                           args.repeats)
+        return
+    if set(args.sections) & set("123"):
+        per_string_sections(args)
+    if "4" in args.sections:
+        compare_estimators(list(QUENCHES), [64, 128], args.bond, args.cache, args.target,
+                           args.pilot, args.repeats)
+
+
+def per_string_sections(args) -> None:
     bond, reps = args.bond, args.repeats
     L = 128
     state = mpsmod.random_mps(L, bond, seed=1)
@@ -97,7 +217,7 @@ def main() -> None:
         wall, flops = timed_samples(blocks, n, reps)
         peak = max(before, zgemm_rate())
         t0 = time.perf_counter()
-        mps_observational_entropy(state, cg, method="sample", samples=n, seed=2)
+        mps_observational_entropy(state, cg, method="sample_strings", samples=n, seed=2)
         entry = (time.perf_counter() - t0) / n
         print(f"{cg.label:>10} {n / wall:10.2f} {flops / wall / 1e9:9.1f} {peak / 1e9:7.1f} "
               f"{flops / wall / peak:6.2f} {setup:8.2f} {entry:15.3f}")
@@ -125,6 +245,8 @@ def main() -> None:
           f"(goal <= 25%); the bond is below {bond} near the chain ends, so short chains do "
           f"less work per site: marginal cost per added site {1e3 * low:.3f} ms (64 -> 128) "
           f"and {1e3 * high:.3f} ms (128 -> 256), ratio {high / low:.2f}")
+
+
 
 
 if __name__ == "__main__":
