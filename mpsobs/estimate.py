@@ -769,8 +769,7 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
 def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
                           cg: BlockCoarseGraining, bonds: np.ndarray, prune: float,
                           max_branches: int | None, progress: bool, minimum: int,
-                          goal: int,
-                          target_stderr: float | None,
+                          goal: int, target_stderr: float | None,
                           max_samples: int) -> EntropyResult | None:
     """The automatic choice: the exact enumeration result if it costs no more flops than
     the conditional sampling it replaces and its pruning error is no larger than the
