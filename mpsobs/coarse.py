@@ -31,7 +31,7 @@ from math import comb
 
 import numpy as np
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
 
 __all__ = [
@@ -158,20 +158,19 @@ class ProjectorCoarseGraining:
 
 def _resolve_regions(L: int, size: int | None,
                      regions: Sequence[Sequence[int]] | None) -> list[tuple[int, int]]:
-    if not isinstance(L, int | np.integer) or isinstance(L, bool) or L < 1:
-        raise InputError(f"L: expected a positive integer, got {L!r}")
+    L = integer(L, "L", 1)
     if (size is None) == (regions is None):
         raise InputError("size, regions: give exactly one of them")
     if size is not None:
-        if not isinstance(size, int | np.integer) or isinstance(size, bool) or size < 1:
-            raise InputError(f"size: expected a positive integer, got {size!r}")
+        size = integer(size, "size", 1)
         if size > L:
             raise InputError(f"size: block size {size} is larger than the chain (L = {L})")
         return [(s, min(s + size, L)) for s in range(0, L, size)]
     try:
-        out = [(int(a), int(b)) for a, b in regions]
+        out = [(integer(a, "regions"), integer(b, "regions")) for a, b in regions]
     except (TypeError, ValueError):
-        raise InputError("regions: expected a list of (start, stop) pairs") from None
+        raise InputError(f"regions: expected a list of (start, stop) pairs of integers, "
+                         f"got {regions!r}") from None
     if not out:
         raise InputError("regions: expected at least one (start, stop) pair")
     position = 0
@@ -342,7 +341,7 @@ def blocks(L: int, size: int | None = None, observable="number", *,
         if not (isinstance(observable, str) and observable == "number"):
             raise InputError(f"size: blocks of more than {MAX_BLOCK_SITES} sites are supported "
                              f"only for the 'number' observable; got a block of {widest}")
-    if bin_width is not None and (not np.isfinite(bin_width) or bin_width <= 0):
+    if bin_width is not None and finite_number(bin_width, "bin_width") <= 0:
         raise InputError(f"bin_width: expected a positive number, got {bin_width!r}")
     where = _region_label(size, spans)
     if isinstance(observable, str):
@@ -428,6 +427,9 @@ def projectors(ops: Sequence[np.ndarray], label: str = "projectors",
                tol: float = 1e-10) -> ProjectorCoarseGraining:
     """A general coarse-graining from a complete set of orthogonal projectors on the
     whole space (each Hermitian, idempotent, mutually orthogonal, summing to 1)."""
+    if not isinstance(label, str):
+        raise InputError(f"label: expected a string, got {label!r}")
+    tol = finite_number(tol, "tol")
     mats = [np.asarray(p) for p in ops]
     if not mats:
         raise InputError("projectors: expected at least one projector")

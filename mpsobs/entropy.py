@@ -7,10 +7,12 @@ import numpy as np
 from mpsobs import dense
 from mpsobs.errors import InputError
 from mpsobs.result import EntropyResult
+from mpsobs.threads import limits_threads, state_size
 
 __all__ = ["observational_entropy"]
 
 
+@limits_threads(lambda call: state_size(call.arguments["state"]))
 def observational_entropy(state, coarse_graining, *, samples: int | None = None,
                           seed=None, method: str | None = None, **options) -> EntropyResult:
     """Observational entropy S_obs of ``state`` under ``coarse_graining`` (nats).
