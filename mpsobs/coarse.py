@@ -33,6 +33,7 @@ import numpy as np
 
 from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
+from mpsobs.printing import number, short, size_range
 
 __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",
@@ -58,6 +59,12 @@ class Macrostate:
     label: tuple
     kraus: np.ndarray | None  # None only on number blocks wider than MAX_BLOCK_SITES
     volume: float
+
+    def __repr__(self) -> str:
+        kraus = ("no operator" if self.kraus is None
+                 else f"kraus {self.kraus.shape[0]}x{self.kraus.shape[1]}")
+        label = ", ".join(number(v) for v in self.label)
+        return f"Macrostate(({short(label, 60)}), volume {number(self.volume)}, {kraus})"
 
 
 @dataclass(frozen=True, eq=False)
@@ -86,6 +93,11 @@ class Block:
     def n_outcomes(self) -> int:
         return len(self.macrostates)
 
+    def __repr__(self) -> str:
+        rows = ("volumes only" if self.readout is None
+                else f"readout {self.readout.shape[0]}x{self.readout.shape[1]}")
+        return f"Block(sites {self.start}..{self.stop - 1}, {self.n_outcomes} outcomes, {rows})"
+
 
 @dataclass(frozen=True, eq=False)
 class _Stage:
@@ -96,6 +108,9 @@ class _Stage:
     bases: tuple[np.ndarray, ...]
     outcome: tuple[np.ndarray, ...]
     values: tuple[np.ndarray, ...]
+
+    def __repr__(self) -> str:
+        return f"_Stage({self.name!r}, {len(self.values)} blocks)"
 
 
 @dataclass(frozen=True, eq=False)
@@ -132,6 +147,13 @@ class BlockCoarseGraining:
         """The macrostates (projectors or Kraus operators, volumes) of block k."""
         return self.blocks[k].macrostates
 
+    def __repr__(self) -> str:
+        asked = " then ".join(st.name for st in self.stages)
+        return (f"BlockCoarseGraining({short(self.label, 60)!r}, L={self.L}, "
+                f"{len(self.blocks)} blocks of {size_range(b.size for b in self.blocks)} "
+                f"sites, {size_range(b.n_outcomes for b in self.blocks)} outcomes per block; "
+                f"asks {short(asked, 60)})")
+
 
 @dataclass(frozen=True, eq=False)
 class ProjectorCoarseGraining:
@@ -151,6 +173,11 @@ class ProjectorCoarseGraining:
     @property
     def max_entropy(self) -> float:
         return float(np.log(self.dim))
+
+    def __repr__(self) -> str:
+        return (f"ProjectorCoarseGraining({short(self.label, 60)!r}, dim {self.dim}, "
+                f"{len(self.stages)} stage(s) of {size_range(len(s) for s in self.stages)} "
+                f"projectors)")
 
 
 # --------------------------------------------------------------------------- regions

@@ -27,6 +27,7 @@ import scipy.sparse as sp
 
 from mpsobs.errors import InputError, finite_number, integer, one_of, seed_value
 from mpsobs.mps import MPS, as_mps, from_quimb, norm, product_mps, right_canonical, to_quimb
+from mpsobs.printing import number
 from mpsobs.threads import limits_threads
 
 __all__ = ["Term", "Model", "xxz", "ising", "build", "MODELS", "field_values", "site_values",
@@ -64,6 +65,10 @@ class Term:
     def stop(self) -> int:
         return self.start + self.width
 
+    def __repr__(self) -> str:
+        rows, cols = self.matrix.shape
+        return f"Term(sites {self.start}..{self.stop - 1}, {rows}x{cols})"
+
 
 @dataclass(frozen=True, eq=False)
 class Model:
@@ -84,6 +89,20 @@ class Model:
     terms: tuple[Term, ...]
     conserves_number: bool
     energy_scale: float = field(default=1.0)
+
+    def __repr__(self) -> str:
+        shown = []
+        for key, value in self.params.items():
+            if value is None:
+                continue
+            if isinstance(value, list | tuple):
+                value = f"[{len(value)} values]"
+            elif not isinstance(value, str):
+                value = number(value)
+            shown.append(f"{key}={value}")
+        number_note = "conserves number" if self.conserves_number else "number not conserved"
+        return (f"Model({self.name}, L={self.L}, {', '.join(shown)}; {len(self.terms)} terms, "
+                f"{number_note})")
 
     def block_hamiltonian(self, start: int, stop: int) -> np.ndarray:
         """Sum of the terms lying wholly inside sites ``start .. stop - 1``, as a dense
@@ -145,13 +164,13 @@ def site_values(value: float | Sequence[float], L: int, name: str) -> np.ndarray
     if raw.dtype.kind not in "iuf":
         raise InputError(f"{name}: expected a number or {L} numbers, got {value!r}")
     arr = raw.astype(float)
+    if not np.all(np.isfinite(arr)):
+        raise InputError(f"{name}: values must be finite, got {value!r}")
     if arr.ndim == 0:
         return np.full(L, float(arr))
     if arr.shape != (L,):
         raise InputError(f"{name}: expected a number or {L} values (one per site), "
                          f"got shape {arr.shape}")
-    if not np.all(np.isfinite(arr)):
-        raise InputError(f"{name}: values must be finite")
     return arr
 
 
@@ -387,6 +406,11 @@ class GroundState:
     sweeps: int
     energy_change: float
     energies: tuple[float, ...]
+
+    def __repr__(self) -> str:
+        status = "converged" if self.converged else "NOT converged"
+        return (f"GroundState(E={number(self.energy)}, {status} after {self.sweeps} sweeps "
+                f"(last change {self.energy_change:.2g}), {self.state!r})")
 
 
 @limits_threads(lambda call: call.arguments["max_bond"])

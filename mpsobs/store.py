@@ -229,6 +229,9 @@ class RunStore:
     def __init__(self, root: str | Path):
         self.root = Path(root)
 
+    def __repr__(self) -> str:
+        return f"RunStore({str(self.root)!r})"
+
     @property
     def points_dir(self) -> Path:
         return self.root / POINTS_DIR

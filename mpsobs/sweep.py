@@ -31,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from mpsobs.errors import InputError
+from mpsobs.printing import short
 from mpsobs.spec import Point, RunSpec
 from mpsobs.store import RunStore
 
@@ -72,6 +73,10 @@ class Failure:
     message: str
     bad_input: bool
 
+    def __repr__(self) -> str:
+        return (f"Failure(point {self.point.index} ({short(self.point.label, 60)}), "
+                f"{self.error}: {short(self.message, 120)})")
+
 
 @dataclass(frozen=True)
 class SweepReport:
@@ -85,6 +90,10 @@ class SweepReport:
     failed: tuple[Failure, ...]
     table: pd.DataFrame = field(repr=False)
     task_seconds: tuple[float, ...] = ()
+
+    def __repr__(self) -> str:
+        return (f"SweepReport({self.total} points: {self.computed} computed, {self.skipped} "
+                f"finished before, {len(self.failed)} failed; {len(self.table)} rows)")
 
 
 def _default_kernel() -> Kernel:

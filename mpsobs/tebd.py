@@ -44,6 +44,7 @@ from scipy.linalg import lapack
 from mpsobs.errors import InputError, finite_number, integer, one_of
 from mpsobs.models import Model, bond_hamiltonians
 from mpsobs.mps import MPS, as_mps, right_canonical, robust_svd
+from mpsobs.printing import number
 from mpsobs.threads import kernel_threads
 
 __all__ = ["Snapshot", "evolve", "ORDERS", "Symmetry", "CHARGE_TOL", "BLOCKS_MIN_BOND"]
@@ -92,6 +93,12 @@ class Snapshot:
     energy_drift: float
     half_chain_entanglement: float
     steps: int
+
+    def __repr__(self) -> str:
+        return (f"Snapshot(t={number(self.t)}, L={self.state.L}, max bond {self.max_bond}, "
+                f"discarded weight {self.discarded_weight:.3g}, norm {number(self.norm)}, "
+                f"E={number(self.energy)} (drift {self.energy_drift:.3g}), "
+                f"S_half={number(self.half_chain_entanglement)}, {self.steps} steps)")
 
 
 # ---------------------------------------------------------------- validation

@@ -59,6 +59,7 @@ from mpsobs import gaussian
 from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
 from mpsobs.mps import MPS, as_mps, robust_svd
+from mpsobs.printing import number, with_error
 from mpsobs.threads import limits_threads
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gge", "Method", "Ensemble"]
@@ -103,6 +104,14 @@ class GibbsResult:
     max_bond: int = 0
     steps: int = 0
 
+    def __repr__(self) -> str:
+        extra = (f"; bond {self.max_bond}, {self.steps} steps, discarded weight "
+                 f"{self.discarded_weight:.2g}" if self.method == "purification" else "")
+        return (f"GibbsResult(S = {with_error(self.entropy, self.entropy_err)} nats, beta = "
+                f"{with_error(self.beta, self.beta_err)}, mu = {number(self.mu)}, "
+                f"E = {number(self.energy)}, N = {number(self.number)}; {self.method}, "
+                f"{self.ensemble}{extra})")
+
 
 @dataclass(frozen=True, eq=False)
 class GGEResult:
@@ -118,6 +127,10 @@ class GGEResult:
     energies: np.ndarray
     energy: float
     number: float
+
+    def __repr__(self) -> str:
+        return (f"GGEResult(S = {number(self.entropy)} nats (exact), {len(self.occupations)} "
+                f"modes, E = {number(self.energy)}, N = {number(self.number)})")
 
 
 # --------------------------------------------------------------------------- free fermions

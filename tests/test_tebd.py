@@ -221,6 +221,13 @@ def test_number_blocks_need_definite_numbers():
     ({"model": models.xxz(6)}, "state"),
     ({"model": "xxz"}, "model"),
     ({"symmetry": "u1"}, "symmetry"),
+    ({"dt": "0.1"}, "dt: expected a number"),
+    ({"dt": True}, "dt: expected a number"),
+    ({"cutoff": "0"}, "cutoff: expected a number"),
+    ({"max_bond": 8.0}, "max_bond: expected an integer"),
+    ({"order": 2.0}, "order: expected one of 2, 4"),
+    ({"start_time": "0"}, "start_time: expected a number"),
+    ({"progress": "yes"}, "progress"),
 ])
 def test_bad_evolve_input(kwargs, word):
     args = {"times": [0.5], "model": _xxz(8), "max_bond": 8, "cutoff": 0.0, "dt": 0.1,
