@@ -57,6 +57,11 @@ class ReadoutBlock:
     def n_outcomes(self) -> int:
         return len(self.log_volumes)
 
+    def __repr__(self) -> str:
+        chl, rows, chr_ = self.tensor.shape
+        return (f"ReadoutBlock(sites {self.start}..{self.stop - 1}, {self.n_outcomes} outcomes, "
+                f"tensor {chl}x{rows}x{chr_})")
+
     def rows(self, outcome: int) -> np.ndarray:
         """Contiguous (chi_left, g, chi_right) copy of the g rows of one outcome."""
         lo, hi = self.offsets[outcome], self.offsets[outcome + 1]

@@ -82,7 +82,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     check = commands.add_parser(
         "check", help="validate a spec and list its points (writes nothing)",
-        description="Validate SPEC (default: the built-in scenario) and list its sweep points.")
+        description="Validate SPEC (default: the built-in scenario) and every one of its "
+                    "sweep points (the model, initial state, coarse-grainings and estimator "
+                    "settings each point would use; nothing is evolved), then list the "
+                    "points.")
     check.add_argument("spec", nargs="?", metavar="SPEC", help="TOML spec file")
 
     commands.add_parser(
@@ -114,15 +117,17 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _cmd_run(args) -> int:
+    from mpsobs import point as points
     from mpsobs import spec as specs
     from mpsobs import store, sweep
 
     spec = specs.load(args.spec)
     out = Path(args.out) if args.out else spec.output_dir
     sweep.check_execution(args.workers, args.scheduler)
+    store.check_target(out, spec)  # refuse before any work and before anything is written
+    points.check_points(spec.points)
     if args.scheduler is not None:
         sweep.reach_scheduler(args.scheduler)
-    store.check_target(out, spec)  # refuse before anything is written
     with store.open_run(out, spec) as run:
         handler = logging.FileHandler(run.root / store.LOG_FILE, encoding="utf-8")
         handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
@@ -168,9 +173,11 @@ def _figures(root: Path) -> list[Path]:
 
 
 def _cmd_check(args) -> int:
+    from mpsobs import point as points
     from mpsobs import spec as specs
 
     spec = specs.load(args.spec)
+    points.check_points(spec.points)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
                      for group in spec.axes) or "none"
     print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "

@@ -31,8 +31,9 @@ from math import comb
 
 import numpy as np
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
+from mpsobs.printing import number, short, size_range
 
 __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",
@@ -58,6 +59,12 @@ class Macrostate:
     label: tuple
     kraus: np.ndarray | None  # None only on number blocks wider than MAX_BLOCK_SITES
     volume: float
+
+    def __repr__(self) -> str:
+        kraus = ("no operator" if self.kraus is None
+                 else f"kraus {self.kraus.shape[0]}x{self.kraus.shape[1]}")
+        label = ", ".join(number(v) for v in self.label)
+        return f"Macrostate(({short(label, 60)}), volume {number(self.volume)}, {kraus})"
 
 
 @dataclass(frozen=True, eq=False)
@@ -86,6 +93,11 @@ class Block:
     def n_outcomes(self) -> int:
         return len(self.macrostates)
 
+    def __repr__(self) -> str:
+        rows = ("volumes only" if self.readout is None
+                else f"readout {self.readout.shape[0]}x{self.readout.shape[1]}")
+        return f"Block(sites {self.start}..{self.stop - 1}, {self.n_outcomes} outcomes, {rows})"
+
 
 @dataclass(frozen=True, eq=False)
 class _Stage:
@@ -96,6 +108,9 @@ class _Stage:
     bases: tuple[np.ndarray, ...]
     outcome: tuple[np.ndarray, ...]
     values: tuple[np.ndarray, ...]
+
+    def __repr__(self) -> str:
+        return f"_Stage({self.name!r}, {len(self.values)} blocks)"
 
 
 @dataclass(frozen=True, eq=False)
@@ -132,6 +147,13 @@ class BlockCoarseGraining:
         """The macrostates (projectors or Kraus operators, volumes) of block k."""
         return self.blocks[k].macrostates
 
+    def __repr__(self) -> str:
+        asked = " then ".join(st.name for st in self.stages)
+        return (f"BlockCoarseGraining({short(self.label, 60)!r}, L={self.L}, "
+                f"{len(self.blocks)} blocks of {size_range(b.size for b in self.blocks)} "
+                f"sites, {size_range(b.n_outcomes for b in self.blocks)} outcomes per block; "
+                f"asks {short(asked, 60)})")
+
 
 @dataclass(frozen=True, eq=False)
 class ProjectorCoarseGraining:
@@ -152,26 +174,30 @@ class ProjectorCoarseGraining:
     def max_entropy(self) -> float:
         return float(np.log(self.dim))
 
+    def __repr__(self) -> str:
+        return (f"ProjectorCoarseGraining({short(self.label, 60)!r}, dim {self.dim}, "
+                f"{len(self.stages)} stage(s) of {size_range(len(s) for s in self.stages)} "
+                f"projectors)")
+
 
 # --------------------------------------------------------------------------- regions
 
 
 def _resolve_regions(L: int, size: int | None,
                      regions: Sequence[Sequence[int]] | None) -> list[tuple[int, int]]:
-    if not isinstance(L, int | np.integer) or isinstance(L, bool) or L < 1:
-        raise InputError(f"L: expected a positive integer, got {L!r}")
+    L = integer(L, "L", 1)
     if (size is None) == (regions is None):
         raise InputError("size, regions: give exactly one of them")
     if size is not None:
-        if not isinstance(size, int | np.integer) or isinstance(size, bool) or size < 1:
-            raise InputError(f"size: expected a positive integer, got {size!r}")
+        size = integer(size, "size", 1)
         if size > L:
             raise InputError(f"size: block size {size} is larger than the chain (L = {L})")
         return [(s, min(s + size, L)) for s in range(0, L, size)]
     try:
-        out = [(int(a), int(b)) for a, b in regions]
+        out = [(integer(a, "regions"), integer(b, "regions")) for a, b in regions]
     except (TypeError, ValueError):
-        raise InputError("regions: expected a list of (start, stop) pairs") from None
+        raise InputError(f"regions: expected a list of (start, stop) pairs of integers, "
+                         f"got {regions!r}") from None
     if not out:
         raise InputError("regions: expected at least one (start, stop) pair")
     position = 0
@@ -342,7 +368,7 @@ def blocks(L: int, size: int | None = None, observable="number", *,
         if not (isinstance(observable, str) and observable == "number"):
             raise InputError(f"size: blocks of more than {MAX_BLOCK_SITES} sites are supported "
                              f"only for the 'number' observable; got a block of {widest}")
-    if bin_width is not None and (not np.isfinite(bin_width) or bin_width <= 0):
+    if bin_width is not None and finite_number(bin_width, "bin_width") <= 0:
         raise InputError(f"bin_width: expected a positive number, got {bin_width!r}")
     where = _region_label(size, spans)
     if isinstance(observable, str):
@@ -428,6 +454,9 @@ def projectors(ops: Sequence[np.ndarray], label: str = "projectors",
                tol: float = 1e-10) -> ProjectorCoarseGraining:
     """A general coarse-graining from a complete set of orthogonal projectors on the
     whole space (each Hermitian, idempotent, mutually orthogonal, summing to 1)."""
+    if not isinstance(label, str):
+        raise InputError(f"label: expected a string, got {label!r}")
+    tol = finite_number(tol, "tol")
     mats = [np.asarray(p) for p in ops]
     if not mats:
         raise InputError("projectors: expected at least one projector")

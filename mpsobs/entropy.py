@@ -9,6 +9,7 @@ import numpy as np
 from mpsobs import dense
 from mpsobs.errors import InputError
 from mpsobs.result import EntropyResult
+from mpsobs.threads import limits_threads, state_size
 
 __all__ = ["observational_entropy"]
 
@@ -21,6 +22,7 @@ def _estimator_options() -> tuple[str, ...]:
     return tuple(p.name for p in params if p.kind is inspect.Parameter.KEYWORD_ONLY)
 
 
+@limits_threads(lambda call: state_size(call.arguments["state"]))
 def observational_entropy(state, coarse_graining, *, samples: int | None = None,
                           seed=None, method: str | None = None, **options) -> EntropyResult:
     """Observational entropy S_obs of ``state`` under ``coarse_graining`` (nats).

@@ -1,6 +1,11 @@
-"""The project's one error type for bad input."""
+"""The project's one error type for bad input, and the checks of plain arguments."""
 
 from __future__ import annotations
+
+import math
+from collections.abc import Collection
+
+import numpy as np
 
 
 class InputError(ValueError):
@@ -12,11 +17,50 @@ class InputError(ValueError):
 
 
 def finite_number(value, name: str) -> float:
-    """``value`` as a finite float, or an InputError naming ``name``."""
-    try:
-        out = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{name}: expected a number, got {value!r}") from None
-    if out != out or out in (float("inf"), float("-inf")):
+    """``value`` as a finite float, or an InputError naming ``name``.
+
+    Real numbers only (Python or numpy ints and floats, 0-d real arrays); strings,
+    booleans and complex numbers are refused, not converted.
+    """
+    if (isinstance(value, bool | np.bool_ | str | bytes)
+            or not isinstance(value, int | float | np.integer | np.floating | np.ndarray)
+            or (isinstance(value, np.ndarray) and (value.ndim or value.dtype.kind not in "iuf"))):
+        raise InputError(f"{name}: expected a number, got {value!r}")
+    out = float(value)
+    if not math.isfinite(out):
         raise InputError(f"{name}: expected a finite number, got {value!r}")
     return out
+
+
+def integer(value, name: str, minimum: int | None = None) -> int:
+    """``value`` as an int (Python or numpy integer, not bool), at least ``minimum``."""
+    if isinstance(value, bool | np.bool_) or not isinstance(value, int | np.integer):
+        floor = "" if minimum is None else f" >= {minimum}"
+        raise InputError(f"{name}: expected an integer{floor}, got {value!r}")
+    if minimum is not None and value < minimum:
+        raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
+    return int(value)
+
+
+def one_of(value, name: str, allowed: Collection) -> object:
+    """``value`` if it is one of ``allowed``: strings match strings, integers match
+    integers (not booleans or floats), None matches None."""
+    def same(a) -> bool:
+        if a is None or isinstance(a, bool):
+            return value is a
+        if isinstance(a, str):
+            return isinstance(value, str) and value == a
+        return (not isinstance(value, bool | np.bool_) and isinstance(value, int | np.integer)
+                and value == a)
+
+    if not any(same(a) for a in allowed):
+        raise InputError(f"{name}: expected one of {', '.join(map(repr, allowed))}, "
+                         f"got {value!r}")
+    return value
+
+
+def seed_value(value, name: str = "seed"):
+    """A seed for :func:`numpy.random.default_rng`: an integer >= 0 or a SeedSequence."""
+    if isinstance(value, np.random.SeedSequence):
+        return value
+    return integer(value, name, 0)

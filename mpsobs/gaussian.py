@@ -84,6 +84,10 @@ class QuadraticHamiltonian:
     def L(self) -> int:
         return self.hopping.shape[0]
 
+    def __repr__(self) -> str:
+        return (f"QuadraticHamiltonian(L={self.L}, single-particle energies "
+                f"{self.energies[0]:.6g}..{self.energies[-1]:.6g}, offset {self.offset:.6g})")
+
 
 def _check_model(model) -> Model:
     if not isinstance(model, Model):
@@ -331,6 +335,11 @@ class NumberDistribution:
     min_probability: float
     tail_mass: float
     total_number: int | None
+
+    def __repr__(self) -> str:
+        regions = ", ".join(f"{a}..{b - 1}" for a, b in self.regions)
+        return (f"NumberDistribution(regions {regions}: {len(self.probabilities)} outcomes, "
+                f"tail mass {self.tail_mass:.2g}, total defect {self.total_defect:.2g})")
 
 
 def _check_regions(regions, L: int) -> tuple[tuple[int, int], ...]:

@@ -25,8 +25,10 @@ from typing import Literal, get_args
 import numpy as np
 import scipy.sparse as sp
 
-from mpsobs.errors import InputError, finite_number
+from mpsobs.errors import InputError, finite_number, integer, one_of, seed_value
 from mpsobs.mps import MPS, as_mps, from_quimb, norm, product_mps, right_canonical, to_quimb
+from mpsobs.printing import number
+from mpsobs.threads import limits_threads
 
 __all__ = ["Term", "Model", "xxz", "ising", "build", "MODELS", "field_values", "site_values",
            "FieldKind", "bond_hamiltonians", "mpo_tensors", "to_quimb_mpo", "expectation",
@@ -63,6 +65,10 @@ class Term:
     def stop(self) -> int:
         return self.start + self.width
 
+    def __repr__(self) -> str:
+        rows, cols = self.matrix.shape
+        return f"Term(sites {self.start}..{self.stop - 1}, {rows}x{cols})"
+
 
 @dataclass(frozen=True, eq=False)
 class Model:
@@ -83,6 +89,20 @@ class Model:
     terms: tuple[Term, ...]
     conserves_number: bool
     energy_scale: float = field(default=1.0)
+
+    def __repr__(self) -> str:
+        shown = []
+        for key, value in self.params.items():
+            if value is None:
+                continue
+            if isinstance(value, list | tuple):
+                value = f"[{len(value)} values]"
+            elif not isinstance(value, str):
+                value = number(value)
+            shown.append(f"{key}={value}")
+        number_note = "conserves number" if self.conserves_number else "number not conserved"
+        return (f"Model({self.name}, L={self.L}, {', '.join(shown)}; {len(self.terms)} terms, "
+                f"{number_note})")
 
     def block_hamiltonian(self, start: int, stop: int) -> np.ndarray:
         """Sum of the terms lying wholly inside sites ``start .. stop - 1``, as a dense
@@ -135,18 +155,22 @@ def _embed(matrix: np.ndarray, start: int, width: int, n_sites: int, *, dense: b
 
 
 def site_values(value: float | Sequence[float], L: int, name: str) -> np.ndarray:
-    """A per-site parameter as an array of length L (a number means the same on every site)."""
+    """A per-site parameter as an array of length L (a number means the same on every site).
+    Real numbers only: strings and booleans are refused, not converted."""
     try:
-        arr = np.asarray(value, dtype=float)
+        raw = np.asarray(value)
     except (TypeError, ValueError):
-        raise InputError(f"{name}: expected a number or {L} numbers, got {value!r}") from None
+        raw = np.asarray(None)
+    if raw.dtype.kind not in "iuf":
+        raise InputError(f"{name}: expected a number or {L} numbers, got {value!r}")
+    arr = raw.astype(float)
+    if not np.all(np.isfinite(arr)):
+        raise InputError(f"{name}: values must be finite, got {value!r}")
     if arr.ndim == 0:
         return np.full(L, float(arr))
     if arr.shape != (L,):
         raise InputError(f"{name}: expected a number or {L} values (one per site), "
                          f"got shape {arr.shape}")
-    if not np.all(np.isfinite(arr)):
-        raise InputError(f"{name}: values must be finite")
     return arr
 
 
@@ -158,24 +182,20 @@ def field_values(kind: FieldKind, strength: float, L: int,
     ``"random"``: independent uniform values in [-strength, strength] drawn from
     ``np.random.default_rng(seed)`` (a seed is required, so the field is reproducible).
     """
-    if kind not in get_args(FieldKind):
-        raise InputError(f"field: unknown field kind {kind!r}; allowed: "
-                         f"{', '.join(get_args(FieldKind))}")
+    one_of(kind, "field", get_args(FieldKind))
+    L = integer(L, "L", 1)
     strength = finite_number(strength, "strength")
     if kind == "uniform":
         return np.full(L, strength)
     if kind == "staggered":
         return strength * (-1.0) ** np.arange(L)
-    if seed is None or isinstance(seed, bool) or not (
-            isinstance(seed, int | np.integer | np.random.SeedSequence)):
-        raise InputError(f"seed: a random field needs an integer seed (or SeedSequence), "
-                         f"got {seed!r}")
+    if seed is None:
+        raise InputError("seed: a random field needs an integer seed >= 0 (or SeedSequence)")
     return np.random.default_rng(seed).uniform(-strength, strength, size=L)
 
 
-def _check_length(L: int) -> None:
-    if not isinstance(L, int | np.integer) or L < 2:
-        raise InputError(f"L: expected an integer >= 2, got {L!r}")
+def _check_length(L: int) -> int:
+    return integer(L, "L", 2)
 
 
 def _as_param(value) -> object:
@@ -185,6 +205,9 @@ def _as_param(value) -> object:
 
 def _longitudinal(h, L: int, kind: FieldKind, seed) -> tuple[np.ndarray, dict]:
     """The per-site longitudinal field and its table parameters."""
+    one_of(kind, "field", get_args(FieldKind))
+    if seed is not None:
+        seed = seed_value(seed)
     if kind == "uniform":
         values = site_values(h, L, "h")
     elif np.ndim(h) != 0:
@@ -203,7 +226,7 @@ def xxz(L: int, J: float = 1.0, delta: float = 1.0, h: float | Sequence[float] =
     ``h`` is a number or per-site values; with ``field="staggered"`` or ``"random"`` it is
     the strength given to :func:`field_values` (with ``seed``).
     """
-    _check_length(L)
+    L = _check_length(L)
     J, delta = finite_number(J, "J"), finite_number(delta, "delta")
     fields, field_params = _longitudinal(h, L, field, seed)
     bond = J * (_SPIN_FLIP + delta * np.kron(SPIN_Z, SPIN_Z))
@@ -221,7 +244,7 @@ def ising(L: int, J: float = 1.0, g: float | Sequence[float] = 1.0,
 
     ``g`` is a number or per-site values; ``h`` as in :func:`xxz` (shaped by ``field``).
     """
-    _check_length(L)
+    L = _check_length(L)
     J = finite_number(J, "J")
     gs = site_values(g, L, "g")
     hs, field_params = _longitudinal(h, L, field, seed)
@@ -384,7 +407,13 @@ class GroundState:
     energy_change: float
     energies: tuple[float, ...]
 
+    def __repr__(self) -> str:
+        status = "converged" if self.converged else "NOT converged"
+        return (f"GroundState(E={number(self.energy)}, {status} after {self.sweeps} sweeps "
+                f"(last change {self.energy_change:.2g}), {self.state!r})")
 
+
+@limits_threads(lambda call: call.arguments["max_bond"])
 def dmrg(tensors: Sequence[np.ndarray], *, max_bond: int, cutoff: float, initial: MPS,
          tol: float = 1e-10, max_sweeps: int = 30) -> GroundState:
     """Two-site DMRG (quimb's DMRG2) for the MPO ``tensors`` from the state ``initial``.
@@ -395,10 +424,13 @@ def dmrg(tensors: Sequence[np.ndarray], *, max_bond: int, cutoff: float, initial
     """
     import quimb.tensor as qtn
 
-    if not isinstance(max_bond, int | np.integer) or max_bond < 1:
-        raise InputError(f"max_bond: expected an integer >= 1, got {max_bond!r}")
+    max_bond = integer(max_bond, "max_bond", 1)
+    cutoff = finite_number(cutoff, "cutoff")
     if not 0.0 <= cutoff < 1.0:
         raise InputError(f"cutoff: expected 0 <= cutoff < 1, got {cutoff!r}")
+    if finite_number(tol, "tol") <= 0:
+        raise InputError(f"tol: expected a positive number, got {tol!r}")
+    max_sweeps = integer(max_sweeps, "max_sweeps", 1)
     ramp = [b for b in (8, 16, 32, 64, 128, 256, 512) if b < max_bond] + [int(max_bond)]
     solver = qtn.DMRG2(to_quimb_mpo(tensors), bond_dims=ramp, cutoffs=max(cutoff, 1e-16),
                        p0=to_quimb(initial))
@@ -424,8 +456,10 @@ def ground_state(model: Model, max_bond: int = 64, cutoff: float = 1e-12, *,
     (|0> + |1>)/sqrt(2) slightly randomised by ``seed`` (so no symmetry sector is
     excluded). Cost per sweep L chi^3 w d^2.
     """
+    if not isinstance(model, Model):
+        raise InputError(f"model: expected an mpsobs.models.Model, got {type(model).__name__}")
     if initial is None:
-        rng = np.random.default_rng(seed)
+        rng = np.random.default_rng(seed_value(seed))
         vecs = 1.0 + 0.1 * rng.normal(size=(model.L, 2))
         initial = product_mps(vecs / np.linalg.norm(vecs, axis=1, keepdims=True))
     initial = as_mps(initial)

@@ -18,6 +18,7 @@ import numpy as np
 import scipy.linalg as sla
 
 from mpsobs.errors import InputError
+from mpsobs.printing import size_range
 
 __all__ = ["MPS", "as_mps", "from_quimb", "to_quimb", "from_dense", "to_dense",
            "right_canonical", "right_canonical_log_norm", "bond_entropies", "random_mps",
@@ -42,6 +43,11 @@ class MPS:
     @property
     def max_bond(self) -> int:
         return max(self.bond_dims, default=1)
+
+    def __repr__(self) -> str:
+        size = sum(t.nbytes for t in self.tensors)
+        return (f"MPS(L={self.L}, bond dimensions {size_range(self.bond_dims or (1,))}, "
+                f"{size / 2**20:.3g} MiB)")
 
 
 def _validated(tensors) -> MPS:

@@ -21,13 +21,13 @@ from __future__ import annotations
 import logging
 import math
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
 
-from mpsobs import __version__, coarse, evolve, gaussian, models, states, thermo
+from mpsobs import __version__, coarse, gaussian, models, states, tebd, thermo
 from mpsobs.columns import EXTRA, REQUIRED
 from mpsobs.entropy import observational_entropy
 from mpsobs.errors import InputError
@@ -35,8 +35,8 @@ from mpsobs.estimate import countable
 from mpsobs.mps import MPS
 from mpsobs.spec import Point
 
-__all__ = ["compute_point", "build_model", "build_coarse_grainings", "initial_state",
-           "total_number", "ROW_COLUMNS"]
+__all__ = ["compute_point", "check_point", "check_points", "build_model",
+           "build_coarse_grainings", "initial_state", "total_number", "ROW_COLUMNS"]
 
 log = logging.getLogger(__name__)
 
@@ -67,25 +67,44 @@ def build_model(params: dict, L: int) -> models.Model:
 
 def build_coarse_grainings(entries: list[dict], model: models.Model
                            ) -> list[tuple[str, int, coarse.BlockCoarseGraining]]:
-    """(label, block size or 0, coarse-graining) for each resolved ``[[coarse]]`` entry."""
+    """(label, block size or 0, coarse-graining) for each resolved ``[[coarse]]`` entry.
+    An InputError names the entry (its label, or observable and blocks)."""
     out = []
     for entry in entries:
         parts = []
-        for name in entry["observable"]:
-            energy = name == "energy"
-            parts.append(coarse.blocks(model.L, entry["block"], name,
-                                       model=model if energy else None,
-                                       bin_width=entry["bin_width"] if energy else None,
-                                       regions=entry["regions"]))
-        cg = parts[0] if len(parts) == 1 else coarse.sequence(*parts)
+        try:
+            for name in entry["observable"]:
+                energy = name == "energy"
+                parts.append(coarse.blocks(model.L, entry["block"], name,
+                                           model=model if energy else None,
+                                           bin_width=entry["bin_width"] if energy else None,
+                                           regions=entry["regions"]))
+            cg = parts[0] if len(parts) == 1 else coarse.sequence(*parts)
+        except InputError as exc:
+            raise InputError(f"coarse-graining {_entry_name(entry)}: {exc}") from None
         out.append((entry["label"] or cg.label, entry["block"] or 0, cg))
     return out
 
 
-def initial_state(params: dict, model: models.Model, evolution: dict) -> MPS:
+def _entry_name(entry: dict) -> str:
+    if entry["label"]:
+        return repr(entry["label"])
+    where = (f"block {entry['block']}" if entry["block"] is not None
+             else f"regions {entry['regions']}")
+    return f"{'>'.join(entry['observable'])} {where}"
+
+
+def initial_state(params: dict, model: models.Model, evolution: dict, *,
+                  cheap_only: bool = False) -> MPS:
     """The initial MPS of a resolved ``[state]`` section (a ground state is found with
-    the evolution's chi_max and cutoff)."""
+    the evolution's chi_max and cutoff).
+
+    With ``cheap_only``, a state that needs DMRG (``ground``, a gas filled by ``ground``)
+    is not computed: its arguments and pre-quench model are checked and the all-empty
+    product state stands in for it (for :func:`check_point`).
+    """
     L, kind = model.L, params["kind"]
+    stand_in = states.product_state("0" * L)
     if kind == "product":
         return states.product_state(params["pattern"] * (L // len(params["pattern"])))
     if kind == "domain_wall":
@@ -94,12 +113,17 @@ def initial_state(params: dict, model: models.Model, evolution: dict) -> MPS:
         return states.neel(L)
     if kind == "gas":
         start, stop = params["box"]
-        return states.gas_in_box(L, start, stop, params["number"], params["fill"],
-                                 model=model, max_bond=evolution["chi_max"])
+        args = (L, start, stop, params["number"], params["fill"])
+        if cheap_only and params["fill"] == "ground":
+            states.check_gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
+            return stand_in
+        return states.gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
     if kind == "random_product":
         return states.random_product_state(L, params["seed"], params["draw"])
     if kind == "ground":
         pre = build_model({**params["prequench"], "name": model.name}, L)
+        if cheap_only:
+            return stand_in
         return states.ground_state(pre, max_bond=evolution["chi_max"]).state
     raise InputError(f"state.kind: unknown {kind!r}")
 
@@ -156,6 +180,49 @@ def _estimator_seed(point_seed: int, time_index: int, cg_index: int) -> int:
                .generate_state(1, np.uint64)[0] >> 1)
 
 
+def _prepare(point: Point) -> tuple[models.Model, list, list[dict]]:
+    """The point's model, coarse-grainings and estimator options."""
+    p = point.params
+    model = build_model(p["model"], p["model"]["L"])
+    cgs = build_coarse_grainings(p["coarse"], model)
+    return model, cgs, [_estimator_options(p["estimator"], cg) for _, _, cg in cgs]
+
+
+def check_point(point: Point) -> None:
+    """Raise every InputError that :func:`compute_point` would raise from the point's
+    parameters, without its expensive part.
+
+    The same builders as compute_point make the model, the coarse-grainings, the
+    estimator options and the initial state (only checked where it needs DMRG, see
+    :func:`initial_state`); the evolution is set up (its arguments are checked at the
+    call) but not stepped; each estimator, with the point's options, evaluates the
+    all-empty product state (bond dimension 1). Cost: the block eigendecompositions of
+    energy coarse-grainings (2**b per block) and the estimators on a bond-1 state.
+    """
+    p = point.params
+    evo = p["evolution"]
+    model, cgs, options = _prepare(point)
+    state = initial_state(p["state"], model, evo, cheap_only=True)
+    tebd.evolve(state, model, p["times"]["values"], max_bond=evo["chi_max"],
+                cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"])
+    blank = states.product_state("0" * model.L)
+    for j, (label, _, cg) in enumerate(cgs):
+        try:
+            observational_entropy(blank, cg, seed=_estimator_seed(point.seed, 0, j),
+                                  **options[j])
+        except InputError as exc:
+            raise InputError(f"coarse-graining {label!r}: {exc}") from None
+
+
+def check_points(points: Sequence[Point]) -> None:
+    """:func:`check_point` for every point; the error names the point."""
+    for point in points:
+        try:
+            check_point(point)
+        except InputError as exc:
+            raise InputError(f"point {point.index} ({point.label}): {exc}") from None
+
+
 def compute_point(point: Point, *, progress: Callable[[int, int], None] | None = None,
                   resume: tuple[list[np.ndarray], dict] | None = None,
                   save: Callable[[list[np.ndarray], dict], None] | None = None
@@ -177,11 +244,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     """
     clock = time.monotonic()
     p = point.params
-    L, evo, est = p["model"]["L"], p["evolution"], p["estimator"]
-    times = p["times"]["values"]
-    model = build_model(p["model"], L)
-    cgs = build_coarse_grainings(p["coarse"], model)
-    options = [_estimator_options(est, cg) for _, _, cg in cgs]
+    evo, times = p["evolution"], p["times"]["values"]
+    model, cgs, options = _prepare(point)
     total_steps = max(1, round(times[-1] / evo["dt"]))
     if resume is not None and resume[1].get("point_id") == point.point_id:
         tensors, meta = resume
@@ -202,7 +266,7 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
             "S_thermo_err": ref.S_thermo_err, "S_gge": ref.S_gge, "beta": ref.beta,
             "mpsobs_version": __version__}
     remaining = times[done:]
-    snapshots = (evolve.evolve(state, model, remaining, max_bond=evo["chi_max"],
+    snapshots = (tebd.evolve(state, model, remaining, max_bond=evo["chi_max"],
                                cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"],
                                start_time=t_start) if remaining else ())
     for k, snap in enumerate(snapshots, start=done):

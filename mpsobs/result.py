@@ -7,6 +7,8 @@ from typing import Literal
 
 import numpy as np
 
+from mpsobs.printing import number, short, with_error
+
 __all__ = ["OutcomeDistribution", "EntropyResult", "entropy_from_distribution"]
 
 
@@ -23,6 +25,11 @@ class OutcomeDistribution:
     outcomes: np.ndarray       # (n, k) int
     probabilities: np.ndarray  # (n,)
     volumes: np.ndarray        # (n,)
+
+    def __repr__(self) -> str:
+        n, k = (self.outcomes.shape + (1,))[:2] if self.outcomes.ndim else (0, 0)
+        return (f"OutcomeDistribution({n} outcomes of {k} parts, total probability "
+                f"{number(float(np.sum(self.probabilities)))})")
 
 
 @dataclass(frozen=True, eq=False)
@@ -58,6 +65,16 @@ class EntropyResult:
     def knowledge(self) -> float:
         """ln dim - S_obs = D_KL(p || V / dim) (error: ``stderr``)."""
         return self.max_entropy - self.entropy
+
+    def __repr__(self) -> str:
+        if self.method == "sampled":
+            how = f"sampled, {self.samples} samples"
+        else:
+            how = "exact" + (f", pruned mass {self.pruned_mass:.2g}" if self.pruned_mass else "")
+        label = f" [{short(self.label, 60)}]" if self.label else ""
+        return (f"S_obs = {with_error(self.entropy, self.stderr)} nats ({how}; Shannon "
+                f"{with_error(self.shannon, self.shannon_err)}, Boltzmann "
+                f"{with_error(self.boltzmann, self.boltzmann_err)}){label}")
 
     @property
     def half_chain_entropy(self) -> float | None:

@@ -64,6 +64,7 @@ import numpy as np
 from mpsobs.coarse import MAX_BLOCK_SITES
 from mpsobs.errors import InputError
 from mpsobs.estimate import COUNT_MAX_REGIONS
+from mpsobs.printing import short
 
 __all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
            "MODELS", "STATES", "OBSERVABLES", "FIELD_KINDS", "ESTIMATOR_METHODS"]
@@ -218,6 +219,12 @@ class Point:
     def L(self) -> int:
         return self.params["model"]["L"]
 
+    def __repr__(self) -> str:
+        p = self.params
+        return (f"Point({self.index}, id {self.point_id}, {short(self.label, 100)!r}: "
+                f"{p['model']['name']} L={self.L}, state {p['state']['kind']}, "
+                f"{len(p['times']['values'])} times, {len(p['coarse'])} coarse-grainings)")
+
 
 @dataclass(frozen=True)
 class RunSpec:
@@ -237,6 +244,13 @@ class RunSpec:
     run_id: str
     output_dir: Path
     checkpoint_seconds: float = field(default=300.0)
+
+    def __repr__(self) -> str:
+        axes = " x ".join("zip(" + ", ".join(g) + ")" if len(g) > 1 else g[0]
+                          for g in self.axes) or "none"
+        return (f"RunSpec({short(self.name, 40)!r}, {len(self.points)} points, axes "
+                f"{short(axes, 100)}, run id {self.run_id[:12]}, from "
+                f"{short(self.source, 60)})")
 
 
 def default_spec_path() -> Path:

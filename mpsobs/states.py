@@ -20,11 +20,12 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from mpsobs.errors import InputError
+from mpsobs.errors import InputError, finite_number, integer, one_of, seed_value
 from mpsobs.models import GroundState, Model, dmrg, expectation, ground_state, mpo_tensors
 from mpsobs.mps import MPS, product_mps, right_canonical
 
-__all__ = ["product_state", "neel", "domain_wall", "gas_in_box", "random_product_state",
+__all__ = ["product_state", "neel", "domain_wall", "gas_in_box", "check_gas_in_box",
+           "random_product_state",
            "ground_state", "GasPreparation", "PATTERN_CHARACTERS"]
 
 _SQRT_HALF = 1.0 / np.sqrt(2.0)
@@ -38,9 +39,7 @@ NUMBER_VARIANCE_TOL = 1e-8
 
 
 def _check_L(L) -> int:
-    if isinstance(L, bool) or not isinstance(L, int | np.integer) or L < 1:
-        raise InputError(f"L: expected an integer >= 1, got {L!r}")
-    return int(L)
+    return integer(L, "L", 1)
 
 
 def product_state(pattern: str | Sequence, L: int | None = None) -> MPS:
@@ -58,10 +57,13 @@ def product_state(pattern: str | Sequence, L: int | None = None) -> MPS:
         vectors = [np.array(PATTERN_CHARACTERS[c], dtype=complex) for c in pattern]
     else:
         try:
-            arr = np.asarray(pattern, dtype=complex)
+            arr = np.asarray(pattern)
         except (TypeError, ValueError):
-            raise InputError("pattern: expected a string, a list of 0/1 or of "
-                             "2-vectors") from None
+            arr = np.asarray(None)
+        if arr.dtype.kind not in "iufc":
+            raise InputError(f"pattern: expected a string of {', '.join(PATTERN_CHARACTERS)}, "
+                             f"a list of 0/1 or of 2-vectors, got {pattern!r}")
+        arr = arr.astype(complex)
         if arr.ndim == 1:
             if not np.all(np.isin(arr, (0, 1))):
                 raise InputError("pattern: a list of numbers must hold only 0 and 1")
@@ -84,8 +86,7 @@ def product_state(pattern: str | Sequence, L: int | None = None) -> MPS:
 def neel(L: int, first: Literal[0, 1] = 0) -> MPS:
     """The Neel state: sites alternate 0, 1, 0, ... starting with ``first``."""
     L = _check_L(L)
-    if first not in (0, 1):
-        raise InputError(f"first: expected 0 or 1, got {first!r}")
+    one_of(first, "first", (0, 1))
     return product_state([(i + first) % 2 for i in range(L)])
 
 
@@ -97,8 +98,7 @@ def domain_wall(L: int, filled: Literal["left", "right"] = "left",
     n = L // 2 if n is None else n
     if isinstance(n, bool) or not isinstance(n, int | np.integer) or not 0 <= n <= L:
         raise InputError(f"n: expected an integer in 0..{L}, got {n!r}")
-    if filled not in ("left", "right"):
-        raise InputError(f"filled: expected 'left' or 'right', got {filled!r}")
+    one_of(filled, "filled", ("left", "right"))
     left = [1] * n + [0] * (L - n)
     return product_state(left if filled == "left" else left[::-1])
 
@@ -109,11 +109,10 @@ def random_product_state(L: int, seed: int | np.random.SeedSequence,
     sphere (normalised complex Gaussian vectors), ``"basis"`` draws |0> or |1> with
     probability 1/2 each."""
     L = _check_L(L)
-    if kind not in ("haar", "basis"):
-        raise InputError(f"kind: expected 'haar' or 'basis', got {kind!r}")
+    one_of(kind, "kind", ("haar", "basis"))
     if seed is None:
         raise InputError("seed: a random state needs a seed (results are reproducible)")
-    rng = np.random.default_rng(seed)
+    rng = np.random.default_rng(seed_value(seed))
     if kind == "basis":
         return product_state(list(rng.integers(0, 2, size=L)))
     return product_state(rng.normal(size=(L, 2)) + 1j * rng.normal(size=(L, 2)))
@@ -181,6 +180,36 @@ def _sector_ground_state(box: Model, n: int, max_bond: int, cutoff: float,
     return gs
 
 
+def check_gas_in_box(L: int, start: int, stop: int, n: int,
+                     prepare: GasPreparation = "packed", *, model: Model | None = None,
+                     max_bond: int = 64, cutoff: float = 1e-12, tol: float = 1e-10) -> None:
+    """The argument checks of :func:`gas_in_box` alone (InputError naming the argument),
+    without building the state; cheap even for ``prepare="ground"``."""
+    L = _check_L(L)
+    for name, value in (("start", start), ("stop", stop), ("n", n)):
+        integer(value, name)
+    if not 0 <= start < stop <= L:
+        raise InputError(f"start, stop: expected 0 <= start < stop <= {L}, got [{start}, {stop})")
+    if not 0 <= n <= stop - start:
+        raise InputError(f"n: expected 0 <= n <= {stop - start} (the box size), got {n}")
+    one_of(prepare, "prepare", get_args(GasPreparation))
+    integer(max_bond, "max_bond", 1)
+    if not 0.0 <= finite_number(cutoff, "cutoff") < 1.0:
+        raise InputError(f"cutoff: expected 0 <= cutoff < 1, got {cutoff!r}")
+    if finite_number(tol, "tol") <= 0:
+        raise InputError(f"tol: expected a positive number, got {tol!r}")
+    if prepare != "ground":
+        return
+    if not isinstance(model, Model):
+        raise InputError("model: prepare='ground' needs an mpsobs.models.Model")
+    if model.L != L:
+        raise InputError(f"model: has L = {model.L}, expected {L}")
+    if not model.conserves_number:
+        raise InputError(f"model: {model.name} with these parameters does not conserve the "
+                         f"particle number; prepare='ground' needs one that does "
+                         f"(xxz, or ising with g = 0)")
+
+
 def gas_in_box(L: int, start: int, stop: int, n: int,
                prepare: GasPreparation = "packed", *, model: Model | None = None,
                max_bond: int = 64, cutoff: float = 1e-12, tol: float = 1e-10) -> MPS:
@@ -195,28 +224,11 @@ def gas_in_box(L: int, start: int, stop: int, n: int,
       of exactly n particles, by DMRG (``max_bond``, ``cutoff``, ``tol``; see
       :func:`_sector_ground_state`). Needs a number-conserving model on L sites.
     """
-    L = _check_L(L)
-    for name, value in (("start", start), ("stop", stop), ("n", n)):
-        if isinstance(value, bool) or not isinstance(value, int | np.integer):
-            raise InputError(f"{name}: expected an integer, got {value!r}")
-    if not 0 <= start < stop <= L:
-        raise InputError(f"start, stop: expected 0 <= start < stop <= {L}, got [{start}, {stop})")
-    if not 0 <= n <= stop - start:
-        raise InputError(f"n: expected 0 <= n <= {stop - start} (the box size), got {n}")
-    if prepare not in get_args(GasPreparation):
-        raise InputError(f"prepare: expected one of {', '.join(get_args(GasPreparation))}, "
-                         f"got {prepare!r}")
+    check_gas_in_box(L, start, stop, n, prepare, model=model, max_bond=max_bond,
+                     cutoff=cutoff, tol=tol)
     if prepare != "ground":
         filled = set(_box_sites(start, stop, n, prepare)) if n else set()
         return product_state([1 if i in filled else 0 for i in range(L)])
-    if not isinstance(model, Model):
-        raise InputError("model: prepare='ground' needs an mpsobs.models.Model")
-    if model.L != L:
-        raise InputError(f"model: has L = {model.L}, expected {L}")
-    if not model.conserves_number:
-        raise InputError(f"model: {model.name} with these parameters does not conserve the "
-                         f"particle number; prepare='ground' needs one that does "
-                         f"(xxz, or ising with g = 0)")
     if n in (0, stop - start) or stop - start == 1:
         return gas_in_box(L, start, stop, n, "packed")
     box = _sector_ground_state(model.restricted(start, stop), n, max_bond, cutoff, tol).state

@@ -132,6 +132,7 @@ def check_target(root: Path, spec: RunSpec) -> None:
     """
     root = Path(root)
     if not root.exists():
+        _check_creatable(root)
         return
     if not root.is_dir():
         raise RunDirError(f"--out: {root} exists and is not a directory")
@@ -146,6 +147,24 @@ def check_target(root: Path, spec: RunSpec) -> None:
             f"--out: {root} holds another run (spec {stored.get('name')!r} from "
             f"{stored.get('source')}); its results would mix with this spec's. Choose "
             f"another directory (--out or output.dir) or delete that run")
+
+
+def _check_creatable(root: Path) -> None:
+    """RunDirError unless the missing directory ``root`` can be made: its nearest
+    existing ancestor is a writable directory. Reads only."""
+    parent = root.absolute().parent
+    while not parent.exists():
+        parent = parent.parent
+    if not parent.is_dir() or not os.access(parent, os.W_OK | os.X_OK):
+        raise RunDirError(f"--out: cannot create {root}: {parent} is not a writable "
+                          f"directory")
+
+
+def _make_dir(root: Path) -> None:
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise RunDirError(f"--out: cannot create {root} ({exc.strerror or exc})") from None
 
 
 # --------------------------------------------------------------------------- lock
@@ -209,6 +228,9 @@ class RunStore:
 
     def __init__(self, root: str | Path):
         self.root = Path(root)
+
+    def __repr__(self) -> str:
+        return f"RunStore({str(self.root)!r})"
 
     @property
     def points_dir(self) -> Path:
@@ -322,7 +344,7 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     """
     root = Path(root)
     check_target(root, spec)
-    root.mkdir(parents=True, exist_ok=True)
+    _make_dir(root)
     lock = root / LOCK_FILE
     _take_lock(lock)
     try:

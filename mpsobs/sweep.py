@@ -19,6 +19,7 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
+import signal
 import socket
 import threading
 import time
@@ -30,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from mpsobs.errors import InputError
+from mpsobs.printing import short
 from mpsobs.spec import Point, RunSpec
 from mpsobs.store import RunStore
 
@@ -71,6 +73,10 @@ class Failure:
     message: str
     bad_input: bool
 
+    def __repr__(self) -> str:
+        return (f"Failure(point {self.point.index} ({short(self.point.label, 60)}), "
+                f"{self.error}: {short(self.message, 120)})")
+
 
 @dataclass(frozen=True)
 class SweepReport:
@@ -84,6 +90,10 @@ class SweepReport:
     failed: tuple[Failure, ...]
     table: pd.DataFrame = field(repr=False)
     task_seconds: tuple[float, ...] = ()
+
+    def __repr__(self) -> str:
+        return (f"SweepReport({self.total} points: {self.computed} computed, {self.skipped} "
+                f"finished before, {len(self.failed)} failed; {len(self.table)} rows)")
 
 
 def _default_kernel() -> Kernel:
@@ -142,16 +152,46 @@ def _progress_reporter(point: Point) -> Callable[[int, int], None] | None:
 
 
 @contextlib.contextmanager
+def _workers_ignore_sigint() -> Iterator[None]:
+    """Ignore SIGINT in this process while the worker processes are started: they
+    inherit the disposition, so a Ctrl-C (sent to the whole process group) reaches only
+    the client, which stops the cluster. A Ctrl-C during the start-up itself is lost."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+@contextlib.contextmanager
 def local_cluster(workers: int | None = None):
     """A LocalCluster with ``workers`` single-threaded worker processes (default: one per
-    core) and BLAS pinned to one thread per worker; yields a connected Client."""
+    core) and BLAS pinned to one thread per worker; yields a connected Client.
+
+    The workers ignore SIGINT. On KeyboardInterrupt in the client, the cluster is shut
+    down with its warnings about workers stopped mid-task muted.
+    """
     from distributed import Client, LocalCluster
 
     n = workers or os.cpu_count() or 1
-    with LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                      dashboard_address=":0", env=dict(WORKER_ENV),
-                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
-        yield client
+    dask_log = logging.getLogger("distributed")
+    level = dask_log.level
+    try:
+        with _workers_ignore_sigint():
+            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                   dashboard_address=":0", env=dict(WORKER_ENV),
+                                   silence_logs=logging.ERROR)
+        with cluster, Client(cluster) as client:
+            try:
+                yield client
+            except KeyboardInterrupt:
+                dask_log.setLevel(logging.CRITICAL)  # killed workers are expected now
+                raise
+    finally:
+        dask_log.setLevel(level)
 
 
 @contextlib.contextmanager

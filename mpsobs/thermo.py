@@ -56,9 +56,11 @@ from scipy.optimize import brentq
 from scipy.special import expit
 
 from mpsobs import gaussian
-from mpsobs.errors import InputError, finite_number
+from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
 from mpsobs.mps import MPS, as_mps, robust_svd
+from mpsobs.printing import number, with_error
+from mpsobs.threads import limits_threads
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gge", "Method", "Ensemble"]
 
@@ -102,6 +104,14 @@ class GibbsResult:
     max_bond: int = 0
     steps: int = 0
 
+    def __repr__(self) -> str:
+        extra = (f"; bond {self.max_bond}, {self.steps} steps, discarded weight "
+                 f"{self.discarded_weight:.2g}" if self.method == "purification" else "")
+        return (f"GibbsResult(S = {with_error(self.entropy, self.entropy_err)} nats, beta = "
+                f"{with_error(self.beta, self.beta_err)}, mu = {number(self.mu)}, "
+                f"E = {number(self.energy)}, N = {number(self.number)}; {self.method}, "
+                f"{self.ensemble}{extra})")
+
 
 @dataclass(frozen=True, eq=False)
 class GGEResult:
@@ -117,6 +127,10 @@ class GGEResult:
     energies: np.ndarray
     energy: float
     number: float
+
+    def __repr__(self) -> str:
+        return (f"GGEResult(S = {number(self.entropy)} nats (exact), {len(self.occupations)} "
+                f"modes, E = {number(self.energy)}, N = {number(self.number)})")
 
 
 # --------------------------------------------------------------------------- free fermions
@@ -519,6 +533,7 @@ def _reweight(tensors: Sequence[np.ndarray], number: float) -> float:
     raise InputError(f"number: {number!r} could not be reached by the purified state")
 
 
+@limits_threads(lambda call: call.arguments["max_bond"])
 def _purification_gibbs(model: Model, target: float | None, beta: float | None,
                         mu: float | None, number: float | None, *, max_bond: int,
                         dbeta: float, cutoff: float, beta_max: float) -> GibbsResult:
@@ -608,10 +623,7 @@ def _check_number(model: Model, number, ensemble: Ensemble) -> float | None:
     if not model.conserves_number:
         raise InputError(f"number: the {model.name} chain with these parameters does not "
                          f"conserve the particle number; give number=None")
-    try:
-        value = float(number)
-    except (TypeError, ValueError):
-        raise InputError(f"number: expected a number, got {number!r}") from None
+    value = finite_number(number, "number")
     if ensemble == "canonical":
         if value != round(value) or not 0 <= value <= model.L:
             raise InputError(f"number: the canonical ensemble needs an integer in 0..{model.L}, "
@@ -632,11 +644,10 @@ def _check_options(model, method, ensemble, max_bond, dbeta, cutoff) -> None:
                          f"'purification'")
     if ensemble not in ("grand", "canonical"):
         raise InputError(f"ensemble: unknown {ensemble!r}; allowed: 'grand', 'canonical'")
-    if not isinstance(max_bond, int | np.integer) or max_bond < 1:
-        raise InputError(f"max_bond: expected a positive integer, got {max_bond!r}")
-    if not (isinstance(dbeta, float | int) and np.isfinite(dbeta) and dbeta > 0):
+    integer(max_bond, "max_bond", 1)
+    if not finite_number(dbeta, "dbeta") > 0:
         raise InputError(f"dbeta: expected a positive number, got {dbeta!r}")
-    if not (isinstance(cutoff, float | int) and 0 <= cutoff < 1):
+    if not 0 <= finite_number(cutoff, "cutoff") < 1:
         raise InputError(f"cutoff: expected a number in [0, 1), got {cutoff!r}")
 
 
@@ -687,8 +698,8 @@ def gibbs(model: Model, energy: float, number: float | None = None, *,
     modes = _pick(model, method, ensemble, value)
     if modes is not None:
         return _free_gibbs(modes, model.L, model.energy_scale, target, value, ensemble)
-    if beta_max is None:
-        beta_max = 20.0 / model.energy_scale
+    beta_max = 20.0 / model.energy_scale if beta_max is None else finite_number(beta_max,
+                                                                                 "beta_max")
     return _purification_gibbs(model, target, None, None, value, max_bond=max_bond,
                                dbeta=dbeta, cutoff=cutoff, beta_max=float(beta_max))
 
@@ -699,13 +710,8 @@ def gibbs_at(model: Model, beta: float, mu: float | None = None, *, method: Meth
     chemical potential (None: mu = 0; needs a number-conserving model otherwise).
     Options as :func:`gibbs`; the purification's steps are adjusted to end on beta."""
     _check_options(model, method, "grand", max_bond, dbeta, cutoff)
-    try:
-        beta = float(beta)
-        mu_value = None if mu is None else float(mu)
-    except (TypeError, ValueError):
-        raise InputError(f"beta, mu: expected numbers, got {beta!r}, {mu!r}") from None
-    if not np.isfinite(beta) or (mu_value is not None and not np.isfinite(mu_value)):
-        raise InputError(f"beta, mu: expected finite numbers, got {beta!r}, {mu!r}")
+    beta = finite_number(beta, "beta")
+    mu_value = None if mu is None else finite_number(mu, "mu")
     if mu_value is not None and not model.conserves_number:
         raise InputError(f"mu: the {model.name} chain with these parameters does not conserve "
                          f"the particle number")

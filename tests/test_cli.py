@@ -265,3 +265,96 @@ def test_template_and_check(capsys):
     assert cli.main(["check"]) == 0
     listing = capsys.readouterr().out
     assert all(p.point_id in listing for p in spec.load(None).points)
+
+
+# A point-level refusal must come from `check` and `run` alike, before any work or any
+# directory. Each case parses as a spec; the point builders or the estimator refuse it.
+REFUSAL = """\
+name = "refused"
+[model]
+name = "xxz"
+L = {L}
+[state]
+{state}
+[evolution]
+chi_max = 8
+[times]
+values = [0.0, 0.1]
+[[coarse]]
+{coarse}
+{estimator}
+[output]
+dir = "{out}"
+"""
+REFUSALS = {
+    # blocks wider than MAX_BLOCK_SITES: number only, counted in at most three regions
+    "wide number blocks, five regions": (
+        "60", 'kind = "neel"', 'observable = "number"\nblock = 13', "", "point 0"),
+    "wide number blocks at one L of a sweep": (
+        "[20, 60]", 'kind = "neel"', 'observable = "number"\nblock = 13', "", "point 1"),
+    "wide regions by enumeration": (
+        "40", 'kind = "domain_wall"',
+        'observable = "number"\nregions = [[0, 13], [13, 26], [26, 40]]',
+        '[estimator]\nmethod = "enumerate"', "'count'"),
+    "energy blocks too wide": (
+        "30", 'kind = "neel"', 'observable = "energy"\nblock = 13', "", "coarse[0].block"),
+    "gas box outside the chain at one L": (
+        "[16, 10]", 'kind = "gas"\nbox = [0, 12]', 'observable = "number"\nblock = 2', "",
+        "state.box"),
+    "pattern not dividing one L": (
+        "[12, 10]", 'kind = "product"\npattern = "0110"', 'observable = "number"\nblock = 2',
+        "", "state.pattern"),
+}
+
+
+@pytest.mark.parametrize("case", list(REFUSALS))
+def test_point_refusals_come_before_any_work(case, tmp_path, capsys):
+    L, state, coarse, estimator, words = REFUSALS[case]
+    out = tmp_path / "run"
+    path = tmp_path / "refused.toml"
+    path.write_text(REFUSAL.format(L=L, state=state, coarse=coarse, estimator=estimator,
+                                   out=out))
+    for argv in (["check", str(path)],
+                 ["run", str(path), "--workers", "1", "--no-progress", "--no-plots"]):
+        assert cli.main(argv) == 2, argv
+        err = capsys.readouterr().err
+        assert err.startswith("mpsobs: error: ") and words in err, err
+        assert len(err.strip().splitlines()) == 1
+        assert not out.exists()
+
+
+def test_uncreatable_run_directory_is_a_usage_error(tmp_path, capsys):
+    path = tmp_path / "fine.toml"
+    path.write_text(REFUSAL.format(L="8", state='kind = "neel"',
+                                   coarse='observable = "number"\nblock = 2', estimator="",
+                                   out=tmp_path / "unused"))
+    blocker = tmp_path / "a-file"
+    blocker.write_text("")
+    for target in ("/proc/mpsobs-cannot-create/run", str(blocker / "run")):
+        assert cli.main(["run", str(path), "--out", target, "--no-progress"]) == 2
+        err = capsys.readouterr().err
+        assert err.startswith("mpsobs: error: --out: cannot create"), err
+        assert len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "unused").exists()
+
+
+def test_ctrl_c_exits_130_quietly_and_the_rerun_resumes(spec_file, reference, tmp_path):
+    out = tmp_path / "run"
+    args = _mpsobs("run", str(spec_file), "--out", str(out), "--workers", "1",
+                   "--no-progress", "--no-plots")
+    proc = subprocess.Popen(args, env=_env(), start_new_session=True, text=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    try:   # interrupt while the workers compute (a checkpoint is written per time)
+        _wait_for(lambda: any(out.glob("checkpoints/*.npz")) or any(out.glob("points/*")),
+                  "the workers at work")
+        os.killpg(proc.pid, signal.SIGINT)   # as a terminal's Ctrl-C: the whole group
+        _, err = proc.communicate(timeout=WAIT)
+    finally:
+        _kill_group(proc)
+    assert proc.returncode == 130
+    assert "interrupted" in err
+    for noise in ("Traceback", "KeyboardInterrupt", "leaked", "WARNING distributed"):
+        assert noise not in err, err
+    rerun = subprocess.run(args, env=_env(), capture_output=True, text=True, timeout=WAIT)
+    assert rerun.returncode == 0, rerun.stderr
+    pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)

@@ -16,6 +16,21 @@ from mpsobs.errors import InputError
 from mpsobs.random_states import random_hermitian
 
 
+@pytest.mark.parametrize(("call", "word"), [
+    (lambda: coarse.blocks(8, "2"), "size: expected an integer"),
+    (lambda: coarse.blocks(8.0, 2), "L: expected an integer"),
+    (lambda: coarse.blocks(8, 2, "energy", model=models.xxz(8), bin_width="0.5"),
+     "bin_width: expected a number"),
+    (lambda: coarse.blocks(8, regions=[(0, 4.5), (4.5, 8)]), "regions: expected"),
+    (lambda: coarse.blocks(8, regions=[("0", "8")]), "regions: expected"),
+    (lambda: coarse.blocks(8, 2, "spin"), "observable: unknown 'spin'; allowed: 'number'"),
+    (lambda: coarse.projectors([np.eye(2)], label=3), "label: expected a string"),
+])
+def test_bad_coarse_input(call, word):
+    with pytest.raises(InputError, match=word):
+        call()
+
+
 def test_number_blocks_volumes_and_labels():
     cg = coarse.blocks(10, 4)
     assert cg.regions == ((0, 4), (4, 8), (8, 10))

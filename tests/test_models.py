@@ -120,6 +120,20 @@ def test_build_registry():
     (lambda: models.xxz(6, h=[1.0] * 6, field="staggered"), "h"),
     (lambda: models.xxz(6, h=[1.0] * 5), "h"),
     (lambda: models.ising(1), "L"),
+    # numbers given as strings or booleans are refused, not converted
+    (lambda: models.xxz(6, delta="0.5"), "delta: expected a number, got '0.5'"),
+    (lambda: models.xxz(6, J=True), "J: expected a number"),
+    (lambda: models.xxz(6, h="1"), "h: expected a number"),
+    (lambda: models.ising(6, g=["1"] * 6), "g: expected a number"),
+    (lambda: models.ising(6, h=float("nan")), "h"),
+    (lambda: models.xxz(6.0), "L: expected an integer"),
+    (lambda: models.xxz(True), "L: expected an integer"),
+    (lambda: models.xxz(6, seed="abc"), "seed: expected an integer"),
+    (lambda: models.xxz(6, field=1), "field: expected one of 'uniform', 'staggered'"),
+    (lambda: models.ground_state(models.xxz(4), max_bond="8"), "max_bond"),
+    (lambda: models.ground_state(models.xxz(4), cutoff="0"), "cutoff"),
+    (lambda: models.ground_state(models.xxz(4), seed="abc"), "seed"),
+    (lambda: models.ground_state("xxz"), "model: expected an mpsobs.models.Model"),
 ])
 def test_bad_model_input(call, word):
     with pytest.raises(InputError, match=word):

@@ -129,6 +129,14 @@ def test_gas_in_box_edge_cases():
     (lambda: states.gas_in_box(8, 2, 6, 2, "ground"), "model"),
     (lambda: states.gas_in_box(8, 2, 6, 2, "ground", model=models.ising(8, g=0.5)), "model"),
     (lambda: states.gas_in_box(8, 2, 6, 2, "ground", model=models.xxz(6)), "model"),
+    (lambda: states.neel("8"), "L: expected an integer"),
+    (lambda: states.neel(8, first=True), "first: expected one of 0, 1"),
+    (lambda: states.product_state(["0", "1"]), "pattern: expected a string"),
+    (lambda: states.random_product_state(4, seed="abc"), "seed: expected an integer"),
+    (lambda: states.gas_in_box(8, 2.0, 6, 2), "start: expected an integer"),
+    (lambda: states.gas_in_box(8, 2, 6, 2, cutoff="0"), "cutoff: expected a number"),
+    (lambda: states.gas_in_box(8, 2, 6, 2, "ground", model=models.xxz(8), max_bond=0),
+     "max_bond"),
 ])
 def test_bad_state_input(call, word):
     with pytest.raises(InputError, match=word):

@@ -8,11 +8,10 @@ import numpy as np
 import pytest
 from scipy.sparse.linalg import expm_multiply
 
-from mpsobs import evolve as evolve_module
-from mpsobs import models, states
+from mpsobs import models, states, tebd
 from mpsobs.errors import InputError
-from mpsobs.evolve import Snapshot, evolve
 from mpsobs.mps import MPS, right_canonical_defect, to_dense, to_quimb
+from mpsobs.tebd import Snapshot, evolve
 
 FULL = 4096   # a bond limit no state here reaches: no truncation by bond dimension
 #: Drops only Schmidt weight at rounding level (the discarded weight is checked), which
@@ -169,9 +168,9 @@ def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     def failing_robust(m):
         raise np.linalg.LinAlgError("SVD did not converge")
 
-    monkeypatch.setattr(evolve_module, "_GESDD", failing_gesdd)   # -> mps.robust_svd
+    monkeypatch.setattr(tebd, "_GESDD", failing_gesdd)   # -> mps.robust_svd
     robust = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
-    monkeypatch.setattr(evolve_module, "robust_svd", failing_robust)   # -> Gram + eigh
+    monkeypatch.setattr(tebd, "robust_svd", failing_robust)   # -> Gram + eigh
     gram = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
     assert abs(np.vdot(reference, robust)) ** 2 == pytest.approx(1.0, abs=1e-12)
     assert abs(np.vdot(reference, gram)) ** 2 == pytest.approx(1.0, abs=1e-10)
@@ -222,6 +221,13 @@ def test_number_blocks_need_definite_numbers():
     ({"model": models.xxz(6)}, "state"),
     ({"model": "xxz"}, "model"),
     ({"symmetry": "u1"}, "symmetry"),
+    ({"dt": "0.1"}, "dt: expected a number"),
+    ({"dt": True}, "dt: expected a number"),
+    ({"cutoff": "0"}, "cutoff: expected a number"),
+    ({"max_bond": 8.0}, "max_bond: expected an integer"),
+    ({"order": 2.0}, "order: expected one of 2, 4"),
+    ({"start_time": "0"}, "start_time: expected a number"),
+    ({"progress": "yes"}, "progress"),
 ])
 def test_bad_evolve_input(kwargs, word):
     args = {"times": [0.5], "model": _xxz(8), "max_bond": 8, "cutoff": 0.0, "dt": 0.1,

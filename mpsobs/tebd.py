@@ -41,9 +41,11 @@ from typing import Literal, get_args
 import numpy as np
 from scipy.linalg import lapack
 
-from mpsobs.errors import InputError, finite_number
+from mpsobs.errors import InputError, finite_number, integer, one_of
 from mpsobs.models import Model, bond_hamiltonians
 from mpsobs.mps import MPS, as_mps, right_canonical, robust_svd
+from mpsobs.printing import number
+from mpsobs.threads import kernel_threads
 
 __all__ = ["Snapshot", "evolve", "ORDERS", "Symmetry", "CHARGE_TOL", "BLOCKS_MIN_BOND"]
 
@@ -92,6 +94,12 @@ class Snapshot:
     half_chain_entanglement: float
     steps: int
 
+    def __repr__(self) -> str:
+        return (f"Snapshot(t={number(self.t)}, L={self.state.L}, max bond {self.max_bond}, "
+                f"discarded weight {self.discarded_weight:.3g}, norm {number(self.norm)}, "
+                f"E={number(self.energy)} (drift {self.energy_drift:.3g}), "
+                f"S_half={number(self.half_chain_entanglement)}, {self.steps} steps)")
+
 
 # ---------------------------------------------------------------- validation
 
@@ -112,14 +120,12 @@ def _check_times(times, start_time) -> tuple[np.ndarray, float]:
 
 
 def _check_options(max_bond, cutoff, dt, order) -> None:
-    if isinstance(max_bond, bool) or not isinstance(max_bond, int | np.integer) or max_bond < 1:
-        raise InputError(f"max_bond: expected an integer >= 1, got {max_bond!r}")
-    if not isinstance(cutoff, int | float | np.floating) or not 0.0 <= cutoff < 1.0:
+    integer(max_bond, "max_bond", 1)
+    if not 0.0 <= finite_number(cutoff, "cutoff") < 1.0:
         raise InputError(f"cutoff: expected a number with 0 <= cutoff < 1, got {cutoff!r}")
-    if not isinstance(dt, int | float | np.floating) or not (np.isfinite(dt) and dt > 0):
+    if not finite_number(dt, "dt") > 0:
         raise InputError(f"dt: expected a positive finite time step, got {dt!r}")
-    if order not in ORDERS:
-        raise InputError(f"order: expected one of {ORDERS}, got {order!r}")
+    one_of(order, "order", ORDERS)
 
 
 # ---------------------------------------------------------------- schedule and gates
@@ -377,6 +383,9 @@ class _Chain:
         self.center = i - 1
         return r
 
+    def max_bond(self) -> int:
+        return max(t.shape[2] for t in self.tensors)
+
     def move_to(self, target: int) -> None:
         while self.center < target:
             self.move_right()
@@ -496,9 +505,9 @@ def evolve(state, model: Model, times: Sequence[float], *, max_bond: int, cutoff
         raise InputError("state: time evolution needs at least two sites")
     ts, t0 = _check_times(times, start_time)
     _check_options(max_bond, cutoff, dt, order)
-    if symmetry not in get_args(Symmetry):
-        raise InputError(f"symmetry: expected one of {', '.join(get_args(Symmetry))}, "
-                         f"got {symmetry!r}")
+    one_of(symmetry, "symmetry", get_args(Symmetry))
+    if not isinstance(progress, bool):
+        raise InputError(f"progress: expected True or False, got {progress!r}")
     tensors = list(right_canonical(mps, normalize=True).tensors)
     charges = None
     if symmetry == "number" or (symmetry == "auto" and max_bond >= BLOCKS_MIN_BOND):
@@ -518,21 +527,24 @@ def _run(chain: _Chain, model: Model, ts: np.ndarray, t0: float, max_bond: int,
 
     bond_hams = [np.asarray(h, dtype=complex) for h in bond_hamiltonians(model)]
     gates = _Gates(bond_hams, conserve_number=chain.charges is not None)
-    _, e0, ent = chain.readout(bond_hams)
+    with kernel_threads(chain.max_bond()):
+        _, e0, ent = chain.readout(bond_hams)
     discarded, steps, t_now = 0.0, 0, t0
     bar = tqdm(total=float(ts[-1] - t0), disable=not progress, unit="t", leave=False)
     try:
         for t in ts:
             step_list = _step_lengths(float(t - t_now), dt)
             for parity, tau in _layer_schedule(order, step_list):
-                discarded += chain.apply_layer(parity, gates.layer(parity, tau), max_bond,
-                                               cutoff)
+                with kernel_threads(chain.max_bond()):  # not held across the yield
+                    discarded += chain.apply_layer(parity, gates.layer(parity, tau),
+                                                   max_bond, cutoff)
             steps += len(step_list)
             bar.update(float(t - t_now))
-            norm2, e, ent = chain.readout(bond_hams)
+            with kernel_threads(chain.max_bond()):
+                norm2, e, ent = chain.readout(bond_hams)
             t_now = float(t)
-            logger.debug("t = %g: max bond %d, discarded %.3g", t_now,
-                         max(x.shape[2] for x in chain.tensors), discarded)
+            logger.debug("t = %g: max bond %d, discarded %.3g", t_now, chain.max_bond(),
+                         discarded)
             yield _snapshot(t_now, chain.tensors, norm2, e, e0, ent, discarded, steps)
     finally:
         bar.close()
