@@ -108,7 +108,7 @@ def canonical_state(state, L: int | None = None) -> MPS:
     (left, 2, right) arrays, in any gauge. One rule for dense vectors and MPS alike: a
     state with |ln norm| > :data:`mpsobs.dense.NORM_TOL` is refused with an InputError
     that says how to normalise it (a silent or warned rescaling would hide a wrong
-    state; :func:`mpsobs.evolve.evolve` snapshots are normalised, their loss to
+    state; :func:`mpsobs.tebd.evolve` snapshots are normalised, their loss to
     truncation kept in ``Snapshot.norm``). A zero or non-finite norm raises InputError
     too. Cost L chi^3.
     """

@@ -50,7 +50,7 @@ from mpsobs.estimate import (
     draw_samples,
     mps_observational_entropy,
 )
-from mpsobs.evolve import evolve
+from mpsobs.tebd import evolve
 
 
 def zgemm_rate(n: int = 1024, repeats: int = 3) -> float:
