@@ -110,7 +110,9 @@ class GGEResult:
     occupations of a state: ``entropy`` = sum_k h(occupations_k), h(x) = -x ln x -
     (1 - x) ln(1 - x) (nats, exact: ``entropy_err`` = 0); ``energies`` the
     single-particle energies of the modes; ``energy`` and ``number`` of the ensemble
-    (equal to the state's)."""
+    (equal to the state's); ``correlation`` its correlation matrix C_ij = <c_i^dagger c_j>,
+    the state's with the coherences between modes of different energies removed (its
+    infinite-time average)."""
 
     entropy: float
     entropy_err: float
@@ -118,6 +120,7 @@ class GGEResult:
     energies: np.ndarray
     energy: float
     number: float
+    correlation: np.ndarray
 
 
 # --------------------------------------------------------------------------- free fermions
@@ -871,8 +874,13 @@ def gge(model: Model, state) -> GGEResult:
     ham = gaussian.quadratic_hamiltonian(model)
     corr = _state_correlation(state, model.L)
     occ = gaussian.mode_occupations(ham, corr)
-    return GGEResult(float(np.sum(_entropy_of_occupations(occ))), 0.0, occ, ham.energies,
-                     float(ham.offset + np.dot(ham.energies, occ)), float(occ.sum()))
+    eps = ham.energies
+    level = np.cumsum(np.concatenate([[0], np.diff(eps) > 1e-9 * max(1.0, np.abs(eps).max())]))
+    in_modes = ham.modes.T @ corr @ ham.modes.conj()
+    in_modes[level[:, None] != level[None, :]] = 0.0
+    dephased = ham.modes.conj() @ in_modes @ ham.modes.T
+    return GGEResult(float(np.sum(_entropy_of_occupations(occ))), 0.0, occ, eps,
+                     float(ham.offset + np.dot(eps, occ)), float(occ.sum()), dephased)
 
 
 def _state_correlation(state, L: int) -> np.ndarray:
