@@ -592,7 +592,7 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
             break
         alpha0 = a1
         log.info("purification: new sweep at alpha = %.6g", alpha0)
-    _, (s2, b2, _, e2, n2) = run(2, max_bond)
+    _, (s2, b2, a2, e2, n2) = run(2, max_bond)
     trotter = abs(s1 - s2) / 3
     truncation = 0.0
     if main.max_bond >= max_bond:  # the bond limit truncated: compare with half of it
@@ -601,7 +601,9 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
     entropy = s1 + (s1 - s2) / 3
     beta_out = b1 + (b1 - b2) / 3
     e1, n1 = e1 + (e1 - e2) / 3, n1 + (n1 - n2) / 3  # unchanged when matched to a target
-    mu_out = None if (number is None and mu is None) else _mu(a1, b1)
+    # alpha extrapolated like beta, so that (beta, mu) together name the matched ensemble
+    alpha_out = a1 + (a1 - a2) / 3 if mu is None else a1
+    mu_out = None if (number is None and mu is None) else _mu(alpha_out, beta_out)
     conserves = model.conserves_number
     beta_err = abs(b1 - b2) / 3 + (abs(b1 - b3) if truncation else 0.0)
     return GibbsResult(float(entropy), float(trotter + truncation), float(beta_out),
