@@ -227,7 +227,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         output time.
     resume : a checkpoint (tensors, meta) offered earlier through ``save``; the
         evolution restarts from its state and time, with its cumulative discarded weight,
-        norm and initial energy, and its rows are kept.
+        norm, initial energy and reference, and its rows are kept (a checkpoint of another
+        point, or one without the S_obs_eq reference, is ignored: the point starts over).
     save : called after each output time with a checkpoint (tensors, meta).
 
     Cost: the evolution, O(t_max / dt * L chi^3) (x3 for order 4), plus the estimators
@@ -242,7 +243,9 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     options = [_estimator_options(est, cg) for _, _, cg in cgs]
     eq_seeds = [_estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
-    if resume is not None and resume[1].get("point_id") == point.point_id:
+    # a checkpoint written before the equilibrium columns existed is not resumed
+    if (resume is not None and resume[1].get("point_id") == point.point_id
+            and "S_obs_eq" in resume[1].get("reference", {})):
         tensors, meta = resume
         state = MPS(tuple(np.asarray(t, dtype=complex) for t in tensors))
         done, t_start = meta["done"], meta["t"]
