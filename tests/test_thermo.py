@@ -418,3 +418,22 @@ def test_entropy_shift_bound_is_the_sharp_continuity_bound():
     assert abs(thermo.entropy_shift_bound(t, np.log(d)) - attained) < 1e-12
     assert thermo.entropy_shift_bound(0.0, np.log(d)) == 0.0
     assert thermo.entropy_shift_bound(1.0, np.log(d)) == np.log(d)
+
+
+def test_gge_correlation_commutes_with_the_hopping_matrix_and_keeps_occupations():
+    """The GGE correlation matrix is the state's, dephased in the single-particle
+    eigenbasis: it commutes with the single-particle matrix A = conj(V) diag(eps) V^T (the
+    convention of gaussian.gibbs_correlation) and its eigenvalues (numpy's eigvalsh) are
+    the conserved occupations; its trace is the number (fact of the trade)."""
+    L = 10
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(8).uniform(-1, 1, L))
+    ham = gaussian.quadratic_hamiltonian(model)
+    a = (ham.modes.conj() * ham.energies) @ ham.modes.T
+    corr = gaussian.evolve_correlation(ham, gaussian.product_correlation([1, 1, 0, 0, 1] * 2),
+                                       0.7)
+    res = thermo.gge(model, corr)
+    c = res.correlation
+    assert np.allclose(a @ c, c @ a, atol=1e-12)
+    assert not np.allclose(a @ corr, corr @ a, atol=1e-6)  # the state itself is not dephased
+    assert np.allclose(np.linalg.eigvalsh(c), np.sort(res.occupations), atol=1e-12)
+    assert abs(np.trace(c).real - 6) < 1e-12
