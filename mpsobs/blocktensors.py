@@ -19,6 +19,13 @@ given a prefix of environment E is Tr[E R_i] / Tr E with R_i = sum_{r in i} A_r 
 
 Only the fields of :class:`ReadoutBlock` are used here: any number R of rows per block
 (ancilla rows of a purification included) works the same way.
+
+A purification (:class:`mpsobs.mps.PurifiedMPS`, local dimension 4 = physical x ancilla)
+is handled the same way: the block contracts to (chi_left, 2**b, 2**b, chi_right)
+(physical, ancilla), the readout rotates the physical leg, and every readout row r becomes
+2**b rows (r, a), one per ancilla string a, in r's outcome group. Then
+E <- sum_{r in outcome} sum_a A_{r,a}^dagger E A_{r,a} traces the ancilla inside every
+environment update, and sum over all rows of A A^dagger = 1 still holds.
 """
 
 from __future__ import annotations
@@ -28,7 +35,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from mpsobs.coarse import BlockCoarseGraining
-from mpsobs.mps import MPS
+from mpsobs.mps import MPS, PurifiedMPS
 
 __all__ = ["ReadoutBlock", "block_tensor", "readout_blocks", "transfer", "transfer_flops",
            "outcome_weights", "conditional_probabilities", "WORK_BYTES"]
@@ -68,9 +75,9 @@ class ReadoutBlock:
         return np.ascontiguousarray(self.tensor[:, lo:hi, :])
 
 
-def block_tensor(mps: MPS, start: int, stop: int) -> np.ndarray:
-    """Contract sites ``start .. stop - 1`` into (chi_left, 2**b, chi_right), the first
-    site most significant. Cost chi^3 2**(b + 1)."""
+def block_tensor(mps: MPS | PurifiedMPS, start: int, stop: int) -> np.ndarray:
+    """Contract sites ``start .. stop - 1`` into (chi_left, d**b, chi_right) (local
+    dimension d), the first site most significant. Cost chi^3 d**(b + 1)."""
     out = mps.tensors[start]
     for site in range(start + 1, stop):
         nxt = mps.tensors[site]
@@ -78,12 +85,15 @@ def block_tensor(mps: MPS, start: int, stop: int) -> np.ndarray:
     return out
 
 
-def readout_blocks(mps: MPS, coarse_graining: BlockCoarseGraining) -> tuple[ReadoutBlock, ...]:
+def readout_blocks(mps: MPS | PurifiedMPS, coarse_graining: BlockCoarseGraining
+                   ) -> tuple[ReadoutBlock, ...]:
     """Every block of ``mps`` rotated by its readout (all blocks need one, i.e. blocks of
-    at most :data:`mpsobs.coarse.MAX_BLOCK_SITES` sites).
+    at most :data:`mpsobs.coarse.MAX_BLOCK_SITES` sites); for a purification the ancilla
+    strings are folded into the rows (module docstring).
 
     Cost per block chi^3 2**(b+1) + chi^2 R 2**b; memory 16 bytes x sum over blocks of
-    chi_left R chi_right (R = 2**b for a single observable).
+    chi_left R chi_right (R = 2**b for a single observable). A purification has 2**b
+    times more rows: cost chi^3 4**(b+1) + chi^2 R 4**b, memory and row count x 2**b.
     """
     out = []
     for block in coarse_graining.blocks:
@@ -92,9 +102,16 @@ def readout_blocks(mps: MPS, coarse_graining: BlockCoarseGraining) -> tuple[Read
         row_outcome = block.group[order]
         offsets = np.searchsorted(row_outcome, np.arange(block.n_outcomes + 1))
         t = block_tensor(mps, block.start, block.stop)
-        rotated = np.tensordot(readout, t, axes=(1, 1))  # (R, chi_l, chi_r)
-        out.append(ReadoutBlock(block.start, block.stop,
-                                np.ascontiguousarray(rotated.transpose(1, 0, 2)),
+        cl, cr = t.shape[0], t.shape[2]
+        if isinstance(mps, PurifiedMPS):
+            b = block.stop - block.start
+            legs = t.reshape(cl, *(2,) * (2 * b), cr)  # s_0 a_0 s_1 a_1 ...
+            phys, anc = list(range(1, 2 * b + 1, 2)), list(range(2, 2 * b + 2, 2))
+            t = legs.transpose(0, *phys, *anc, 2 * b + 1).reshape(cl, 2**b, 2**b * cr)
+            row_outcome, offsets = np.repeat(row_outcome, 2**b), offsets * 2**b
+        rotated = np.tensordot(readout, t, axes=(1, 1))  # (R, chi_l, [ancilla x] chi_r)
+        rows = rotated.transpose(1, 0, 2).reshape(cl, -1, cr)  # row index r 2**b + a
+        out.append(ReadoutBlock(block.start, block.stop, np.ascontiguousarray(rows),
                                 offsets, row_outcome, np.log(block.volumes)))
     return tuple(out)
 

@@ -45,6 +45,9 @@ EXTRA = (
     "norm",              # norm of the state at t before renormalisation
     "elapsed_s",         # wall time of the point
     "mpsobs_version",
+    "S_obs_eq",          # S_obs of the Gibbs ensemble behind S_thermo (the equilibrium value)
+    "S_obs_eq_err",      # its error: stderr + pruned-mass bound + Gibbs-state error bound
+    "S_obs_gge",         # S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions)
 )
 
 

@@ -31,9 +31,11 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
     ----------
     state : a dense state vector (2**L,) or density matrix (2**L, 2**L), evaluated
         exactly by :mod:`mpsobs.dense`; or a matrix-product state (quimb
-        ``MatrixProductState`` or :class:`mpsobs.mps.MPS`), evaluated by
-        :mod:`mpsobs.estimate`. Either kind must be normalised (one rule for both: an
-        unnormalised state raises InputError saying how to normalise it).
+        ``MatrixProductState`` or :class:`mpsobs.mps.MPS`), or a mixed state as a
+        purification (:class:`mpsobs.mps.PurifiedMPS`, e.g. the Gibbs state of
+        :func:`mpsobs.thermo.gibbs_state`), evaluated by :mod:`mpsobs.estimate`.
+        Every kind must be normalised (one rule for all: an unnormalised state
+        raises InputError saying how to normalise it).
     coarse_graining : from :mod:`mpsobs.coarse`.
     samples, seed, method, options : estimator settings for MPS states (see
         :func:`mpsobs.estimate.mps_observational_entropy`: ``method`` None, "sample",

@@ -53,7 +53,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal
 
 import numpy as np
@@ -70,7 +70,7 @@ from mpsobs.blocktensors import (
 from mpsobs.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
 from mpsobs.dense import NORM_TOL
 from mpsobs.errors import InputError
-from mpsobs.mps import MPS, as_mps, bond_entropies, right_canonical_log_norm
+from mpsobs.mps import MPS, PurifiedMPS, as_mps, bond_entropies, right_canonical_log_norm
 from mpsobs.result import EntropyResult, OutcomeDistribution
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
@@ -101,18 +101,19 @@ COUNT_MAX_REGIONS = 3
 # --------------------------------------------------------------------------- input
 
 
-def canonical_state(state, L: int | None = None) -> MPS:
+def canonical_state(state, L: int | None = None) -> MPS | PurifiedMPS:
     """A right-canonical copy of a normalised ``state`` (the input is never modified).
 
     ``state`` is an :class:`mpsobs.mps.MPS`, a quimb ``MatrixProductState`` or a list of
-    (left, 2, right) arrays, in any gauge. One rule for dense vectors and MPS alike: a
-    state with |ln norm| > :data:`mpsobs.dense.NORM_TOL` is refused with an InputError
-    that says how to normalise it (a silent or warned rescaling would hide a wrong
-    state; :func:`mpsobs.tebd.evolve` snapshots are normalised, their loss to
-    truncation kept in ``Snapshot.norm``). A zero or non-finite norm raises InputError
-    too. Cost L chi^3.
+    (left, 2, right) arrays, in any gauge; or a :class:`mpsobs.mps.PurifiedMPS`, brought
+    to the right-canonical form of its local dimension 4 (a PurifiedMPS is returned).
+    One rule for dense vectors and MPS alike: a state with |ln norm| >
+    :data:`mpsobs.dense.NORM_TOL` is refused with an InputError that says how to
+    normalise it (a silent or warned rescaling would hide a wrong state;
+    :func:`mpsobs.tebd.evolve` snapshots are normalised, their loss to truncation kept in
+    ``Snapshot.norm``). A zero or non-finite norm raises InputError too. Cost L chi^3 d.
     """
-    mps = as_mps(state)
+    mps = MPS(state.tensors) if isinstance(state, PurifiedMPS) else as_mps(state)
     if L is not None and mps.L != L:
         raise InputError(f"coarse_graining: it is for L = {L} sites, the state has {mps.L}")
     for i, t in enumerate(mps.tensors):
@@ -124,6 +125,8 @@ def canonical_state(state, L: int | None = None) -> MPS:
                          f"ln norm = {log_norm:.3g}, tolerance {NORM_TOL:g}); normalise it "
                          f"first, e.g. mpsobs.mps.right_canonical(mpsobs.mps.as_mps(state), "
                          f"normalize=True), or quimb's state.normalize()")
+    if isinstance(state, PurifiedMPS):
+        return replace(state, tensors=rc.tensors)
     return rc
 
 
@@ -314,15 +317,17 @@ def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progr
 
 def _count_left(env: np.ndarray, tensors: Sequence[np.ndarray]) -> np.ndarray:
     """Append a counted region to a stack of left environments: (K, l, l) ->
-    (K (b + 1), c, c), the new counter (sites in |1> of the region) varying fastest."""
+    (K (b + 1), c, c), the new counter (sites in |1> of the region) varying fastest.
+    The site's rows of |0> and of |1> are the first and second half of its index (one
+    row, or two ancilla rows for a purification)."""
     cur = env[:, None]
     for t in tensors:
         n_prev, n_cnt, cl, _ = cur.shape
-        cr = t.shape[2]
+        cr, half = t.shape[2], t.shape[1] // 2
         flat = cur.reshape(n_prev * n_cnt, cl, cl)
         new = np.zeros((n_prev, n_cnt + 1, cr, cr), dtype=complex)
-        new[:, :-1] += transfer(flat, t[:, 0:1, :]).reshape(n_prev, n_cnt, cr, cr)
-        new[:, 1:] += transfer(flat, t[:, 1:2, :]).reshape(n_prev, n_cnt, cr, cr)
+        new[:, :-1] += transfer(flat, t[:, :half, :]).reshape(n_prev, n_cnt, cr, cr)
+        new[:, 1:] += transfer(flat, t[:, half:, :]).reshape(n_prev, n_cnt, cr, cr)
         cur = new
     return cur.reshape(-1, *cur.shape[2:])
 
@@ -334,15 +339,16 @@ def _count_right(tensors: Sequence[np.ndarray]) -> np.ndarray:
     for t in reversed(tensors):
         adj = t.conj().transpose(2, 1, 0)
         n = right.shape[0]
-        cl = t.shape[0]
+        cl, half = t.shape[0], t.shape[1] // 2
         new = np.zeros((n + 1, cl, cl), dtype=complex)
-        new[:-1] += transfer(right, adj[:, 0:1, :])
-        new[1:] += transfer(right, adj[:, 1:2, :])
+        new[:-1] += transfer(right, adj[:, :half, :])
+        new[1:] += transfer(right, adj[:, half:, :])
         right = new
     return right
 
 
-def _count(mps: MPS, cg: BlockCoarseGraining, bonds: np.ndarray) -> EntropyResult:
+def _count(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining,
+           bonds: np.ndarray | None) -> EntropyResult:
     """Exact joint distribution of the numbers n_1 .. n_k (k <= 3 regions).
 
     Left environments carry the counters of regions 1 .. k-1 (K = prod (b_i + 1) of them
@@ -669,10 +675,14 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     Parameters
     ----------
     state : quimb ``MatrixProductState``, :class:`mpsobs.mps.MPS` or list of (left, 2,
-        right) arrays; any L, bond dimension and gauge. It is not modified; a copy is
-        brought to right-canonical form. It must be normalised: |ln norm| >
-        :data:`mpsobs.dense.NORM_TOL` raises InputError (the same rule as for dense
-        vectors; see :func:`canonical_state`).
+        right) arrays; any L, bond dimension and gauge. Or a mixed state as a
+        :class:`mpsobs.mps.PurifiedMPS` (e.g. :func:`mpsobs.thermo.gibbs_state`): the
+        coarse-graining acts on the physical sites, the ancillas are traced inside the
+        block contractions (:mod:`mpsobs.blocktensors`; 2**b times the readout rows,
+        so sampling and enumeration cost about 2**b times more per block). It is not
+        modified; a copy is brought to right-canonical form. It must be normalised:
+        |ln norm| > :data:`mpsobs.dense.NORM_TOL` raises InputError (the same rule as for
+        dense vectors; see :func:`canonical_state`).
     coarse_graining : from :func:`mpsobs.coarse.blocks` or :func:`mpsobs.coarse.sequence`
         with the state's L.
     samples : for ``"sample"`` and ``"sample_strings"``: number of samples (default
@@ -710,6 +720,8 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     ``bond_entropies``, the
     von Neumann entropy of every bond (index i cuts sites i | i + 1). At a cut between two
     blocks it is a lower bound: S_obs >= H(p_left) + <ln V_left> >= S_vN(rho_left).
+    ``bond_entropies`` is None for a purification (its bond entropies are those of the
+    chain with its ancillas, not of the mixed state).
 
     Notes
     -----
@@ -737,7 +749,7 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
                    seed)
     chosen = _resolve_method(method, cg, samples, target_stderr)
     mps = canonical_state(state, cg.L)
-    bonds = bond_entropies(mps)
+    bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     if chosen == "count":
         return _count(mps, cg, bonds)
     blocks = readout_blocks(mps, cg)

@@ -7,6 +7,10 @@ significant bit of a dense index (as quimb). "Right-canonical" means
 sum_s A[:, s, :] @ A[:, s, :]^dagger = 1 at every site but the first, so the right
 environment of any site is the identity and <psi|psi> = ||A_0||^2.
 
+A :class:`PurifiedMPS` represents a mixed state rho = Tr_ancilla |psi><psi| by a pure
+state of L (physical, ancilla) site pairs: tensors (chi_left, 4, chi_right) whose middle
+index is 2 s + a, s the physical and a the ancilla value (physical most significant).
+
 Functions never modify their inputs; every transformation returns a new MPS.
 """
 
@@ -22,7 +26,7 @@ from mpsobs.printing import size_range
 
 __all__ = ["MPS", "as_mps", "from_quimb", "to_quimb", "from_dense", "to_dense",
            "right_canonical", "right_canonical_log_norm", "bond_entropies", "random_mps",
-           "product_mps", "norm", "robust_svd", "right_canonical_defect"]
+           "product_mps", "norm", "robust_svd", "right_canonical_defect", "PurifiedMPS"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -48,6 +52,56 @@ class MPS:
         size = sum(t.nbytes for t in self.tensors)
         return (f"MPS(L={self.L}, bond dimensions {size_range(self.bond_dims or (1,))}, "
                 f"{size / 2**20:.3g} MiB)")
+
+
+@dataclass(frozen=True, eq=False)
+class PurifiedMPS:
+    """A mixed state of L spins as a purification (see the module docstring for the
+    (chi_left, 4, chi_right) tensors, index 2 s + a).
+
+    ``beta``, ``mu`` and ``number`` name the Gibbs ensemble it purifies
+    (exp(-beta (H - mu N)) / Z, or with ``number`` the sector N = number of exp(-beta H);
+    ``mu`` None for mu = 0 or in a sector). ``error`` is an estimate of the trace
+    distance between the represented rho and the exact ensemble (Trotter and truncation,
+    see :func:`mpsobs.thermo.gibbs_state`); ``discarded_weight`` the summed relative
+    truncation weight of the imaginary-time evolution that built it.
+    """
+
+    tensors: tuple[np.ndarray, ...]
+    beta: float = 0.0
+    mu: float | None = None
+    number: int | None = None
+    error: float = 0.0
+    discarded_weight: float = 0.0
+
+    def __post_init__(self) -> None:
+        arrs = tuple(np.asarray(t, dtype=complex) for t in self.tensors)
+        if not arrs:
+            raise InputError("state: a purification needs at least one site")
+        for i, t in enumerate(arrs):
+            if t.ndim != 3 or t.shape[1] != 4:
+                raise InputError(f"state: purification tensor {i} has shape {t.shape}, "
+                                 f"expected (left bond, 4 = physical x ancilla, right bond)")
+            if i and arrs[i - 1].shape[2] != t.shape[0]:
+                raise InputError(f"state: bond {i - 1}-{i} dimensions disagree "
+                                 f"({arrs[i - 1].shape[2]} vs {t.shape[0]})")
+        if arrs[0].shape[0] != 1 or arrs[-1].shape[2] != 1:
+            raise InputError("state: the outer bonds of a purification must have dimension 1")
+        object.__setattr__(self, "tensors", arrs)
+
+    @property
+    def L(self) -> int:
+        return len(self.tensors)
+
+    @property
+    def max_bond(self) -> int:
+        return max((t.shape[2] for t in self.tensors[:-1]), default=1)
+
+    def __repr__(self) -> str:
+        number = "" if self.number is None else f", number={self.number}"
+        return (f"PurifiedMPS(L={self.L}, max_bond={self.max_bond}, beta={self.beta:.6g}, "
+                f"mu={self.mu if self.mu is None else format(self.mu, '.6g')}{number}, "
+                f"error={self.error:.3g}, discarded_weight={self.discarded_weight:.3g})")
 
 
 def _validated(tensors) -> MPS:

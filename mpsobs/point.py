@@ -4,12 +4,23 @@
 the same point gives the same rows whatever worker, order or interruption. Randomness
 comes only from seeds in the point: the random field (``model.field.seed``), a random
 product state (``state.seed``) and the sampled estimators, whose generator for time
-index k and coarse-graining j is ``SeedSequence(point.seed, spawn_key=(k, j))``.
+index k and coarse-graining j is ``SeedSequence(point.seed, spawn_key=(k, j))``; the
+equilibrium estimate of coarse-graining j (below) uses the key (len(times), j), one past
+the last time index, so it never shares a stream with the time series.
 
 The thermodynamic reference is computed once per point from the initial state
 (:mod:`mpsobs.thermo`): the Gibbs entropy at its energy and, when the model conserves
 it, its particle number (grand ensemble; for XX chains with a definite number, exactly
 that sector), and for XX chains the generalised Gibbs entropy of its mode occupations.
+With it, per coarse-graining, ``S_obs_eq``: S_obs of that same Gibbs ensemble (same
+beta, mu or sector), the value a thermalizing chain should reach, from the purification
+of :func:`mpsobs.thermo.gibbs_state` (bond :data:`EQ_MAX_BOND`, at most the evolution's
+chi_max) and the point's estimator settings. ``S_obs_eq_err`` = sampling stderr +
+the pruned-mass bound of enumeration + :func:`mpsobs.thermo.entropy_shift_bound` of the
+purification's trace-distance error (the Trotter and truncation estimate of the state).
+For XX chains ``S_obs_gge`` is S_obs of the generalised Gibbs ensemble of the initial
+mode occupations (a Gaussian state; grand in the particle number), exact by counting
+statistics for number coarse-grainings of at most three regions, NaN otherwise.
 
 Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
 block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
@@ -31,7 +42,7 @@ from mpsobs import __version__, coarse, gaussian, models, states, tebd, thermo
 from mpsobs.columns import EXTRA, REQUIRED
 from mpsobs.entropy import observational_entropy
 from mpsobs.errors import InputError
-from mpsobs.estimate import countable
+from mpsobs.estimate import countable, pruned_entropy_bound
 from mpsobs.mps import MPS
 from mpsobs.spec import Point
 
@@ -45,16 +56,24 @@ ROW_COLUMNS = (*REQUIRED, *EXTRA, "block_size")
 _NUMBER = np.diag([0.0, 1.0])  # sites in |1>
 #: <N> this close to an integer is taken as that integer (a state of definite number).
 NUMBER_TOL = 1e-8
+#: Largest bond of the Gibbs-state purification behind ``S_obs_eq`` (the evolution's
+#: chi_max if smaller). Its sampling costs about 2**b chi^3 per block and sample (b sites
+#: per block), so the bond is kept modest; the truncation it causes is in S_obs_eq_err.
+EQ_MAX_BOND = 24
 
 
 @dataclass(frozen=True)
 class _Reference:
-    """Thermodynamic reference of a point (nats)."""
+    """Thermodynamic reference of a point (nats); the last three have one entry per
+    coarse-graining."""
 
     S_thermo: float
     S_thermo_err: float
     beta: float
     S_gge: float
+    S_obs_eq: tuple[float, ...]
+    S_obs_eq_err: tuple[float, ...]
+    S_obs_gge: tuple[float, ...]
 
 
 def build_model(params: dict, L: int) -> models.Model:
@@ -145,23 +164,62 @@ def _is_xx(model: models.Model) -> bool:
     return True
 
 
-def _reference(model: models.Model, state: MPS, energy: float) -> _Reference:
+def _reference(model: models.Model, state: MPS, energy: float, cgs, options: list[dict],
+               seeds: list[int], max_bond: int) -> _Reference:
     """Gibbs entropy at the state's energy (and number, where conserved); the GGE entropy
-    of its mode occupations for XX chains. A state with every site empty or every site
-    filled is alone in its sector: entropy 0."""
+    of its mode occupations for XX chains; S_obs of both ensembles per coarse-graining
+    (see the module docstring). A state with every site empty or every site filled is
+    alone in its sector: entropy 0, and its own S_obs is the equilibrium value."""
     number = None
     if model.conserves_number:
         number = total_number(state)
         if abs(number - round(number)) < NUMBER_TOL:
             number = float(round(number))
         if number in (0.0, float(model.L)):
-            return _Reference(S_thermo=0.0, S_thermo_err=0.0, beta=math.nan, S_gge=math.nan)
+            eq = [_estimate(state, cg, opts, seed, 0.0)
+                  for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
+            return _Reference(0.0, 0.0, math.nan, math.nan, *map(tuple, zip(*eq, strict=True)),
+                              S_obs_gge=(math.nan,) * len(cgs))
     xx = _is_xx(model)
     ensemble = "canonical" if xx and number is not None and number.is_integer() else "grand"
     gibbs = thermo.gibbs(model, energy, number, ensemble=ensemble)
-    gge = thermo.gge(model, state).entropy if xx else math.nan
+    gge = thermo.gge(model, state) if xx else None
+    eq = [(math.nan, math.nan)] * len(cgs)
+    sector = int(number) if ensemble == "canonical" else None
+    mu = None if sector is not None else gibbs.mu
+    if np.isfinite(gibbs.beta) and (mu is None or np.isfinite(mu)):
+        rho = thermo.gibbs_state(model, gibbs.beta, mu, number=sector,
+                                 max_bond=min(max_bond, EQ_MAX_BOND))
+        eq = [_estimate(rho, cg, opts, seed, rho.error)
+              for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
+    else:
+        log.warning("S_obs_eq: no Gibbs state at beta = %g, mu = %s (ground or ceiling "
+                    "energy, or infinite temperature off half filling); NaN", gibbs.beta, mu)
+    gge_obs = tuple(_gge_entropy(gge, cg) for _, _, cg in cgs)
+    eq_values, eq_errors = (tuple(col) for col in zip(*eq, strict=True))
     return _Reference(S_thermo=float(gibbs.entropy), S_thermo_err=float(gibbs.entropy_err),
-                      beta=float(gibbs.beta), S_gge=float(gge))
+                      beta=float(gibbs.beta),
+                      S_gge=float(gge.entropy) if gge is not None else math.nan,
+                      S_obs_eq=eq_values, S_obs_eq_err=eq_errors, S_obs_gge=gge_obs)
+
+
+def _estimate(state, cg: coarse.BlockCoarseGraining, options: dict, seed: int,
+              trace_distance: float) -> tuple[float, float]:
+    """(S_obs, error) of an equilibrium state: stderr + pruned-mass bound + the shift
+    bound of the state's trace-distance error."""
+    res = observational_entropy(state, cg, seed=seed, **options)
+    err = (res.stderr + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
+           + thermo.entropy_shift_bound(trace_distance, res.max_entropy))
+    return float(res.entropy), float(err)
+
+
+def _gge_entropy(gge: thermo.GGEResult | None, cg: coarse.BlockCoarseGraining) -> float:
+    """S_obs of the XX generalised Gibbs ensemble (correlation matrix U diag(n) U^dagger in
+    the single-particle eigenmodes U) by counting statistics, for number coarse-grainings
+    of at most three regions; NaN otherwise."""
+    if gge is None or not countable(cg):
+        return math.nan
+    return float(gaussian.number_entropy(gge.correlation, cg.regions).entropy)
 
 
 def _estimator_options(estimator: dict, cg: coarse.BlockCoarseGraining) -> dict:
@@ -236,7 +294,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         output time.
     resume : a checkpoint (tensors, meta) offered earlier through ``save``; the
         evolution restarts from its state and time, with its cumulative discarded weight,
-        norm and initial energy, and its rows are kept.
+        norm, initial energy and reference, and its rows are kept (a checkpoint of another
+        point, or one without the S_obs_eq reference, is ignored: the point starts over).
     save : called after each output time with a checkpoint (tensors, meta).
 
     Cost: the evolution, O(t_max / dt * L chi^3) (x3 for order 4), plus the estimators
@@ -246,20 +305,24 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     p = point.params
     evo, times = p["evolution"], p["times"]["values"]
     model, cgs, options = _prepare(point)
+    eq_seeds = [_estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
-    if resume is not None and resume[1].get("point_id") == point.point_id:
+    # a checkpoint written before the equilibrium columns existed is not resumed
+    if (resume is not None and resume[1].get("point_id") == point.point_id
+            and "S_obs_eq" in resume[1].get("reference", {})):
         tensors, meta = resume
         state = MPS(tuple(np.asarray(t, dtype=complex) for t in tensors))
         done, t_start = meta["done"], meta["t"]
         discarded0, norm0, energy0 = meta["discarded_weight"], meta["norm"], meta["energy0"]
-        ref = _Reference(**meta["reference"])
+        ref = _Reference(**{k: tuple(v) if isinstance(v, list) else v
+                            for k, v in meta["reference"].items()})
         rows, elapsed0 = list(meta["rows"]), meta["elapsed_s"]
         log.info("point %s: resuming at t = %g (%d of %d times done)", point.point_id,
                  t_start, done, len(times))
     else:
         state = initial_state(p["state"], model, evo)
         energy0 = models.energy(model, state)
-        ref = _reference(model, state, energy0)
+        ref = _reference(model, state, energy0, cgs, options, eq_seeds, evo["chi_max"])
         done, t_start, discarded0, norm0 = 0, 0.0, 0.0, 1.0
         rows, elapsed0 = [], 0.0
     base = {"seed": point.seed, "point_id": point.point_id, "S_thermo": ref.S_thermo,
@@ -267,8 +330,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
             "mpsobs_version": __version__}
     remaining = times[done:]
     snapshots = (tebd.evolve(state, model, remaining, max_bond=evo["chi_max"],
-                               cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"],
-                               start_time=t_start) if remaining else ())
+                             cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"],
+                             start_time=t_start) if remaining else ())
     for k, snap in enumerate(snapshots, start=done):
         discarded = discarded0 + snap.discarded_weight
         norm = norm0 * snap.norm
@@ -285,7 +348,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
                 "S_boltzmann_err": res.boltzmann_err, "pruned_mass": res.pruned_mass,
                 "samples": res.samples, "algorithm": res.algorithm, "energy": snap.energy,
                 "energy_drift": snap.energy - energy0, "norm": norm,
-                "block_size": block_size})
+                "S_obs_eq": ref.S_obs_eq[j], "S_obs_eq_err": ref.S_obs_eq_err[j],
+                "S_obs_gge": ref.S_obs_gge[j], "block_size": block_size})
         elapsed = elapsed0 + time.monotonic() - clock
         if progress is not None:
             progress(round(times[k] / evo["dt"]), total_steps)

@@ -58,11 +58,12 @@ from scipy.special import expit
 from mpsobs import gaussian
 from mpsobs.errors import InputError, finite_number, integer
 from mpsobs.models import Model
-from mpsobs.mps import MPS, as_mps, robust_svd
+from mpsobs.mps import MPS, PurifiedMPS, as_mps, right_canonical_log_norm, robust_svd
 from mpsobs.printing import number, with_error
 from mpsobs.threads import limits_threads
 
-__all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gge", "Method", "Ensemble"]
+__all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
+           "entropy_shift_bound", "Method", "Ensemble"]
 
 log = logging.getLogger(__name__)
 
@@ -119,7 +120,9 @@ class GGEResult:
     occupations of a state: ``entropy`` = sum_k h(occupations_k), h(x) = -x ln x -
     (1 - x) ln(1 - x) (nats, exact: ``entropy_err`` = 0); ``energies`` the
     single-particle energies of the modes; ``energy`` and ``number`` of the ensemble
-    (equal to the state's)."""
+    (equal to the state's); ``correlation`` its correlation matrix C_ij = <c_i^dagger c_j>,
+    the state's with the coherences between modes of different energies removed (its
+    infinite-time average)."""
 
     entropy: float
     entropy_err: float
@@ -127,6 +130,7 @@ class GGEResult:
     energies: np.ndarray
     energy: float
     number: float
+    correlation: np.ndarray
 
     def __repr__(self) -> str:
         return (f"GGEResult(S = {number(self.entropy)} nats (exact), {len(self.occupations)} "
@@ -416,6 +420,42 @@ class _Purification:
             self.update(b, half[b], max_bond, cutoff, move_right=False)
 
 
+def _infinite_temperature(L: int, alpha: float, number: int | None = None) -> _Purification:
+    """The normalised purification of exp(alpha N) (or, with ``number``, of the projector
+    on the sector N = number) as the start of a sweep, with its ln Z = ln Tr.
+
+    Without a number: prod_i (|00> + e^{alpha/2} |11>), bond 1. With one: the sum of
+    |s>|s> over the strings s with ``number`` sites in |1>, an MPS whose bond index counts
+    the particles to its left (bond <= min(N, L - N) + 1), brought to right-canonical form;
+    ln Z = ln C(L, N).
+    """
+    if number is None:
+        site = np.zeros((1, 4, 1))
+        site[0, 0, 0], site[0, 3, 0] = 1.0, np.exp(alpha / 2)
+        site /= np.sqrt(1 + np.exp(alpha))
+        return _Purification([site.copy() for _ in range(L)], L * float(np.logaddexp(0, alpha)))
+    tensors = []
+    for i in range(L):
+        left = np.arange(max(0, number - (L - i)), min(i, number) + 1)
+        right = np.arange(max(0, number - (L - i - 1)), min(i + 1, number) + 1)
+        t = np.zeros((left.size, 4, right.size))
+        for a, n in enumerate(left):
+            for value, index in ((n, 0), (n + 1, 3)):  # |00> keeps the count, |11> adds one
+                hit = np.flatnonzero(right == value)
+                if hit.size:
+                    t[a, index, hit[0]] = 1.0
+        tensors.append(t)
+    rc, log_norm = right_canonical_log_norm(MPS(tuple(tensors)))
+    return _Purification([t.real.copy() for t in rc.tensors], 2 * log_norm,
+                         max_bond=max(t.shape[2] for t in rc.tensors))
+
+
+def _step_gates(bonds: Sequence[np.ndarray], dbeta: float) -> tuple[list[np.ndarray],
+                                                                    np.ndarray]:
+    """Gates of one symmetric sweep step exp(-dbeta H / 2) (see :meth:`_Purification.step`)."""
+    return [sla.expm(-dbeta / 4 * h) for h in bonds], sla.expm(-dbeta / 2 * bonds[-1])
+
+
 def _closing(left: np.ndarray, bra: np.ndarray, ket: np.ndarray,
              right: np.ndarray) -> np.ndarray:
     """sum over bonds of conj(bra[a, p, c]) left[a, b] ket[b, p, d] right[d, c], per p."""
@@ -489,13 +529,8 @@ def _sweep(model: Model, sign: int, alpha0: float, dbeta: float, n_steps: int,
     ``beta`` and ``energy`` of the curve are for H itself (beta = sign * steps * dbeta).
     """
     bonds = [sign * h for h in _bond_hamiltonians(model)]
-    L = model.L
-    site = np.zeros((1, 4, 1))
-    site[0, 0, 0], site[0, 3, 0] = 1.0, np.exp(alpha0 / 2)
-    norm0 = np.sqrt(1 + np.exp(alpha0))
-    state = _Purification([site / norm0 for _ in range(L)], L * float(np.logaddexp(0, alpha0)))
-    half = [sla.expm(-dbeta / 4 * h) for h in bonds]
-    turn = sla.expm(-dbeta / 2 * bonds[-1])
+    state = _infinite_temperature(model.L, alpha0)
+    half, turn = _step_gates(bonds, dbeta)
     rows = []
     after = None
     for step in range(n_steps + 1):
@@ -572,7 +607,7 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
             break
         alpha0 = a1
         log.info("purification: new sweep at alpha = %.6g", alpha0)
-    _, (s2, b2, _, e2, n2) = run(2, max_bond)
+    _, (s2, b2, a2, e2, n2) = run(2, max_bond)
     trotter = abs(s1 - s2) / 3
     truncation = 0.0
     if main.max_bond >= max_bond:  # the bond limit truncated: compare with half of it
@@ -581,7 +616,9 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
     entropy = s1 + (s1 - s2) / 3
     beta_out = b1 + (b1 - b2) / 3
     e1, n1 = e1 + (e1 - e2) / 3, n1 + (n1 - n2) / 3  # unchanged when matched to a target
-    mu_out = None if (number is None and mu is None) else _mu(a1, b1)
+    # alpha extrapolated like beta, so that (beta, mu) together name the matched ensemble
+    alpha_out = a1 + (a1 - a2) / 3 if mu is None else a1
+    mu_out = None if (number is None and mu is None) else _mu(alpha_out, beta_out)
     conserves = model.conserves_number
     beta_err = abs(b1 - b2) / 3 + (abs(b1 - b3) if truncation else 0.0)
     return GibbsResult(float(entropy), float(trotter + truncation), float(beta_out),
@@ -725,6 +762,112 @@ def gibbs_at(model: Model, beta: float, mu: float | None = None, *, method: Meth
                                dbeta=dbeta, cutoff=cutoff, beta_max=abs(beta))
 
 
+def gibbs_state(model: Model, beta: float, mu: float | None = None, *,
+                number: int | None = None, max_bond: int = 64, dbeta: float = 0.05,
+                cutoff: float = 1e-20) -> PurifiedMPS:
+    """The Gibbs state exp(-beta (H - mu N)) / Z as a purification MPS.
+
+    Parameters
+    ----------
+    model : the chain (any model with one- and two-site terms).
+    beta : inverse temperature, any sign (finite).
+    mu : chemical potential (None: mu = 0; needs a number-conserving model otherwise).
+    number : the canonical ensemble instead: P_N exp(-beta H) / Z_N in the sector of N =
+        ``number`` sites in |1> (number-conserving models; mu must be None).
+    max_bond, dbeta, cutoff : bond dimension limit, imaginary-time step (adjusted down
+        so that the steps end on beta) and relative squared singular value kept.
+
+    Returns
+    -------
+    PurifiedMPS |psi> = exp(-beta H / 2) |I> / norm, |I> the infinite-temperature state
+    of the chain and its ancillas (Phys. Rev. Lett. 93, 207204 (2004)), so that
+    Tr_ancilla |psi><psi| is the Gibbs state; tensors (chi_l, 4, chi_r), index 2 s + a.
+
+    Notes
+    -----
+    ``error`` estimates the trace distance to the exact Gibbs state. The state is built
+    again with twice the step; for the second-order splitting the purification distance
+    of the returned state from the exact one is then about a third of
+    d = (1 - |<psi_dbeta|psi_2dbeta>|^2)^(1/2), and the purification distance bounds the
+    trace distance of the reduced states (Fuchs-van de Graaf; Nielsen and Chuang,
+    Quantum Computation and Quantum Information, sec. 9.2). When the bond limit is reached
+    the state is built once more at half the bond and that distance is added (an estimate,
+    not a bound, like the truncation companion of the evolution). Cost: the three sweeps,
+    about 1.6 x (|beta| / dbeta) L (4 chi)^3 for the SVDs.
+    """
+    _check_options(model, "purification", "grand", max_bond, dbeta, cutoff)
+    beta = finite_number(beta, "beta")
+    if mu is not None:
+        mu = finite_number(mu, "mu")
+        if not model.conserves_number:
+            raise InputError(f"mu: the {model.name} chain with these parameters does not "
+                             f"conserve the particle number")
+    if number is not None:
+        if mu is not None:
+            raise InputError("mu: the canonical ensemble (number given) has no chemical "
+                             "potential; give mu=None")
+        value = _check_number(model, number, "canonical")
+        number = int(value)
+    alpha = 0.0 if mu is None else beta * mu
+    bonds = [np.sign(beta) * h for h in _bond_hamiltonians(model)]
+    n_steps = int(np.ceil(abs(beta) / dbeta / 2)) * 2
+
+    def build(steps: int, bond: int) -> _Purification:
+        state = _infinite_temperature(model.L, alpha, number)
+        if steps:
+            half, turn = _step_gates(bonds, abs(beta) / steps)
+            for _ in range(steps):
+                state.step(half, turn, bond, cutoff)
+        return state
+
+    main = build(n_steps, max_bond)
+    error = _purification_distance(main.tensors, build(n_steps // 2, max_bond).tensors) / 3
+    if main.max_bond >= max_bond and n_steps:
+        error += _purification_distance(main.tensors,
+                                        build(n_steps, max(1, max_bond // 2)).tensors)
+    log.debug("gibbs_state: beta %.6g, %d steps, bond %d, error %.3g", beta, n_steps,
+              main.max_bond, error)
+    return PurifiedMPS(tuple(main.tensors), beta=beta, mu=mu, number=number,
+                       error=float(error), discarded_weight=float(main.discarded))
+
+
+def _purification_distance(a: Sequence[np.ndarray], b: Sequence[np.ndarray]) -> float:
+    """(1 - |<a|b>|^2 / (<a|a> <b|b>))^(1/2) of two MPS of the same local dimension.
+    Environments are rescaled at every site. Cost L chi^3 d."""
+    envs = {pair: np.ones((1, 1), dtype=complex) for pair in ("aa", "ab", "bb")}
+    logs = dict.fromkeys(envs, 0.0)
+    for ta, tb in zip(a, b, strict=True):
+        for pair, (x, y) in {"aa": (ta, ta), "ab": (ta, tb), "bb": (tb, tb)}.items():
+            env = np.tensordot(np.tensordot(envs[pair], y, axes=(1, 0)), x.conj(),
+                               axes=([0, 1], [0, 1])).T
+            scale = float(np.abs(env).max()) or 1.0
+            envs[pair], logs[pair] = env / scale, logs[pair] + np.log(scale)
+    ratio = (abs(envs["ab"][0, 0]) ** 2 / (envs["aa"][0, 0].real * envs["bb"][0, 0].real)
+             * np.exp(2 * logs["ab"] - logs["aa"] - logs["bb"]))
+    return float(np.sqrt(max(0.0, 1.0 - ratio)))
+
+
+def entropy_shift_bound(trace_distance: float, max_entropy: float) -> float:
+    """Largest change of S_obs (any coarse-graining) between two states at
+    ``trace_distance`` T <= 1, in a space of ln dim = ``max_entropy``:
+    T ln(dim - 1) + h(T), h the binary entropy.
+
+    S_obs(rho) is the Shannon entropy of the fine distribution p_i / V_i spread over the
+    macrostate i; measuring contracts the trace distance, so the two fine distributions
+    are within total variation T, and the sharp continuity bound of the Shannon entropy
+    applies (K. M. R. Audenaert, J. Phys. A 40, 8127 (2007), from memory). At T >= 1 - 1/dim
+    it is ``max_entropy``.
+    """
+    t = float(trace_distance)
+    dim_minus_one = np.expm1(max_entropy) if max_entropy < 700 else np.inf
+    if t <= 0.0:
+        return 0.0
+    if t >= 1.0 - 1.0 / (dim_minus_one + 1.0):
+        return float(max_entropy)
+    log_dm1 = np.log(dim_minus_one) if np.isfinite(dim_minus_one) else max_entropy
+    return float(t * log_dm1 - t * np.log(t) - (1 - t) * np.log1p(-t))
+
+
 def gge(model: Model, state) -> GGEResult:
     """The generalised Gibbs ensemble of an XX chain fixed by a state's conserved mode
     occupations, and its entropy sum_k h(n_k) (nats).
@@ -739,8 +882,13 @@ def gge(model: Model, state) -> GGEResult:
     ham = gaussian.quadratic_hamiltonian(model)
     corr = _state_correlation(state, model.L)
     occ = gaussian.mode_occupations(ham, corr)
-    return GGEResult(float(np.sum(_entropy_of_occupations(occ))), 0.0, occ, ham.energies,
-                     float(ham.offset + np.dot(ham.energies, occ)), float(occ.sum()))
+    eps = ham.energies
+    level = np.cumsum(np.concatenate([[0], np.diff(eps) > 1e-9 * max(1.0, np.abs(eps).max())]))
+    in_modes = ham.modes.T @ corr @ ham.modes.conj()
+    in_modes[level[:, None] != level[None, :]] = 0.0
+    dephased = ham.modes.conj() @ in_modes @ ham.modes.T
+    return GGEResult(float(np.sum(_entropy_of_occupations(occ))), 0.0, occ, eps,
+                     float(ham.offset + np.dot(eps, occ)), float(occ.sum()), dephased)
 
 
 def _state_correlation(state, L: int) -> np.ndarray:

@@ -8,7 +8,13 @@ Prints wall times, and their ratio to a yardstick measured in the same run (one 
   plain method (det(1 + (Z - 1) C) by LU on the full (b + 1)^2 grid of the two free
   regions, extrapolated from a sample of grid points);
 - purification: transverse Ising at L = 32 (error per site against the exact free-fermion
-  entropy) and the Heisenberg chain at L = 32 and 64, bond <= 64, to beta = 1.
+  entropy) and the Heisenberg chain at L = 32 and 64, bond <= 64, to beta = 1;
+- S_obs_eq per point at L = 64 and 128 (tilted-field Ising, the built-in scenario's
+  model and state, hot, and the all-up state, colder): the Gibbs reference, the
+  purified Gibbs state (bond mpsobs.point.EQ_MAX_BOND) and its sampled S_obs for number
+  and energy blocks of 4,
+  against the same estimator (1000 samples) on the evolved state at t = 2 (bond 32),
+  i.e. the cost of one output time of the time series.
 
 Under heavy load, OPENBLAS_NUM_THREADS=1 avoids BLAS threads competing for the cores.
 Usage: python scripts/bench_thermo.py [--quick]
@@ -21,8 +27,9 @@ import time
 
 import numpy as np
 
-from mpsobs import gaussian, thermo
-from mpsobs.models import ising, xxz
+from mpsobs import coarse, evolve, gaussian, observational_entropy, states, thermo
+from mpsobs.models import energy, ising, xxz
+from mpsobs.point import EQ_MAX_BOND
 
 
 def timed(func):
@@ -101,6 +108,41 @@ def main() -> None:
         print(f"xxz delta=1 L={L} beta=1: {t_run:6.1f} s ({t_run / unit:6.0f} x yardstick), "
               f"S/L = {res.entropy / L:.6f} +- {res.entropy_err / L:.1e}, bond {res.max_bond}, "
               f"discarded {res.discarded_weight:.1e}")
+
+    print(f"\n# S_obs_eq per point (Gibbs state purified at bond {EQ_MAX_BOND}, 1000 samples)")
+    for pattern in ("0001", "0"):
+        for L in ((64,) if args.quick else (64, 128)):
+            equilibrium_cost(L, unit, pattern)
+
+
+def equilibrium_cost(L: int, unit: float, pattern: str) -> None:
+    """Seconds of the S_obs_eq columns of one point against one output time's estimates,
+    for the product state of ``pattern`` quenched in the tilted-field Ising chain."""
+    model = ising(L, J=1.0, g=1.0, h=0.5)
+    psi0 = states.product_state(pattern * (L // len(pattern)))
+    (snap,) = evolve.evolve(psi0, model, [2.0], max_bond=32, cutoff=1e-10, dt=0.25,
+                             order=4)
+    cgs = [coarse.blocks(L, 4, "number"), coarse.blocks(L, 4, "energy", model=model,
+                                                          bin_width=1.0)]
+    ref, t_ref = timed(lambda: thermo.gibbs(model, energy(model, psi0)))
+    rho, t_state = timed(lambda: thermo.gibbs_state(model, ref.beta, max_bond=EQ_MAX_BOND))
+    t_eq = t_series = 0.0
+    for cg in cgs:
+        eq, t = timed(lambda cg=cg: observational_entropy(rho, cg, method="sample",
+                                                           samples=1000, seed=1))
+        t_eq += t
+        now, t = timed(lambda cg=cg: observational_entropy(snap.state, cg, method="sample",
+                                                            samples=1000, seed=1))
+        t_series += t
+        print(f"L={L:4d} {cg.label:14s} S_obs_eq/L = {eq.entropy / L:.4f} +- "
+              f"{eq.stderr / L:.1e}; at t = 2: S_obs/L = {now.entropy / L:.4f}")
+    total = t_ref + t_state + t_eq
+    print(f"L={L:4d} pattern {pattern!r} beta {ref.beta:.3f}: Gibbs reference {t_ref:6.1f} s, "
+          f"purified state {t_state:6.1f} s "
+          f"(bond {rho.max_bond}, error {rho.error:.1e}), its estimates {t_eq:6.1f} s; "
+          f"one output time's estimates {t_series:6.1f} s (bond {snap.state.max_bond}); "
+          f"S_obs_eq total = {total / t_series:5.1f} output times "
+          f"({total / unit:6.0f} x yardstick)")
 
 
 if __name__ == "__main__":

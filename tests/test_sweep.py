@@ -6,6 +6,7 @@ from __future__ import annotations
 import os
 import sys
 import uuid
+from pathlib import Path
 
 import cloudpickle
 import numpy as np
@@ -337,6 +338,10 @@ def test_initial_state_kinds(scheduler, state, s0, n):
         # one of that sector, entropy ln C(L, N) (fact of the trade)
         assert abs(first["energy"]) < 1e-12
         assert abs(first["S_thermo"] - log(comb(8, n))) < 1e-8
+        # and the number blocks' S_obs of that state is ln C(L, N) too: the sector's
+        # projector commutes with them and is uniform inside each (fact of the trade)
+        eq = rows[rows["coarse_graining"] == "number:b2"]["S_obs_eq"]
+        assert np.allclose(eq, log(comb(8, n)), atol=1e-9)
     # free fermions: the GGE entropy of L modes lies in [0, L ln 2] (fact of the trade)
     assert 0.0 <= first["S_gge"] <= 8 * LN2 + 1e-12
 
@@ -358,3 +363,33 @@ def test_ground_state_of_the_prequench_model(scheduler):
     number = np.diag([0.0, 1.0, 1.0, 2.0])
     assert abs(rows.iloc[0]["S_obs"] - _block_entropy(psi, 8, 2, [number] * 4)) < 1e-7
     assert rows.iloc[0]["pre_delta"] == 2.0 and rows.iloc[0]["delta"] == 0.0
+
+
+RUNS = Path(__file__).resolve().parents[1] / "runs"
+
+
+@pytest.mark.parametrize("path", [None, *sorted(RUNS.glob("*.toml"))],
+                         ids=lambda p: "default" if p is None else p.name)
+def test_equilibrium_value_lies_between_gibbs_entropy_and_maximum(path):
+    """S_thermo <= S_obs_eq <= S_max on every row of small versions (L = 8, two times,
+    bond 16) of the shipped specs: S_vN(rho) <= S_obs(rho) <= ln dim for the Gibbs state
+    rho (Phys. Rev. A 99, 010101(R) (2019), from memory), within the reported errors."""
+    import tomllib
+
+    from mpsobs.point import compute_point
+
+    data = tomllib.loads((path or spec.default_spec_path()).read_text())
+    data["model"]["L"] = 8
+    data["evolution"]["chi_max"] = 16
+    data["times"] = {"values": [0.0, 0.5]}
+    data["estimator"]["samples"] = 300
+    data.pop("sweep", None)
+    data.pop("output", None)
+    for point in spec.parse(data).points:
+        rows = compute_point(point)
+        slack = 4 * rows["S_obs_eq_err"] + rows["S_thermo_err"] + 1e-9
+        assert (rows["S_obs_eq"].notna()).all()
+        assert (rows["S_thermo"] <= rows["S_obs_eq"] + slack).all()
+        assert (rows["S_obs_eq"] <= rows["S_max"] + slack).all()
+        # the free-fermion GGE value is NaN off XX chains
+        assert rows["S_obs_gge"].isna().all()

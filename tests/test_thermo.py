@@ -269,3 +269,171 @@ def test_bad_input_names_the_argument():
         thermo.gge(xxz(6, delta=1.0), [0, 1] * 3)
     with pytest.raises(InputError, match="state"):
         thermo.gge(xx, [0, 1] * 4)
+
+
+# --------------------------------------------------------------------------- Gibbs states
+
+
+def _dense_gibbs_matrix(model, beta, mu=None, number=None):
+    """exp(-beta (H - mu N)) / Z with scipy.linalg.expm of the dense H, or the same of H
+    alone restricted to the sector N = number."""
+    n = _numbers(model.L)
+    shift = 0.0 if mu is None else mu * np.diag(n)
+    rho = sla.expm(-beta * (model.dense_hamiltonian() - shift))
+    if number is not None:
+        keep = (n == number).astype(float)
+        rho = keep[:, None] * rho * keep[None, :]
+    return rho / np.trace(rho).real
+
+
+GIBBS_CASES = [
+    (xxz(8, J=1.0, delta=0.6, h=0.4, field="staggered"), 0.7, None, None),
+    (xxz(8, J=1.0, delta=0.6, h=0.4, field="staggered"), -0.5, 0.3, None),
+    (xxz(8, J=1.0, delta=1.0, h=np.random.default_rng(4).uniform(-1, 1, 8)), 0.6, None, 3),
+    (ising(8, J=1.0, g=1.05, h=0.25), 0.8, None, None),
+]
+
+
+@pytest.mark.parametrize("model, beta, mu, number", GIBBS_CASES,
+                         ids=["xxz", "xxz-negative-beta-mu", "xxz-sector", "ising"])
+def test_gibbs_state_observational_entropy_matches_dense(model, beta, mu, number):
+    """S_obs of the purification (enumeration, counting, sampling) against the dense
+    engine on scipy's expm(-beta H) / Z, within the purification's reported error."""
+    from mpsobs import coarse, dense, observational_entropy
+
+    L = model.L
+    state = thermo.gibbs_state(model, beta, mu, number=number, max_bond=32)
+    rho = _dense_gibbs_matrix(model, beta, mu, number)
+    energy = coarse.blocks(L, 2, "energy", model=model)
+    cgs = [coarse.blocks(L, 2, "number"), energy,
+           coarse.sequence(energy, coarse.blocks(L, 2, "number")),
+           coarse.blocks(L, regions=[(0, 3), (3, 5), (5, 8)])]
+    bound = thermo.entropy_shift_bound(state.error, L * np.log(2))
+    assert state.error < 1e-3  # the step 0.05 and bond 32 are fine at L = 8
+    for cg in cgs:
+        want = dense.observational_entropy(rho, cg).entropy
+        methods = ["enumerate", "count"] if cg.label.startswith("number:r") else ["enumerate"]
+        for method in methods:
+            got = observational_entropy(state, cg, method=method)
+            assert abs(got.entropy - want) <= bound + 1e-10, (cg.label, method)
+            assert got.bond_entropies is None
+        sampled = observational_entropy(state, cg, method="sample", samples=2000, seed=3)
+        assert abs(sampled.entropy - want) <= 4 * sampled.stderr + bound, cg.label
+
+
+def test_xx_gibbs_state_number_regions_against_free_fermions():
+    """XX chain at L = 64: the number distribution in three regions of the purified Gibbs
+    state against the free-fermion Gibbs correlation matrix and its counting statistics
+    (Phys. Rev. Lett. 102, 100502 (2009))."""
+    from mpsobs import coarse, observational_entropy
+
+    L, beta, mu = 64, 0.8, 0.2
+    model = xxz(L, J=1.0, delta=0.0, h=0.3, field="staggered")
+    state = thermo.gibbs_state(model, beta, mu, max_bond=24)
+    corr = gaussian.gibbs_correlation(gaussian.quadratic_hamiltonian(model), beta, mu)
+    for regions in ([(0, 20), (20, 45), (45, 64)], [(0, 32), (32, 64)]):
+        got = observational_entropy(state, coarse.blocks(L, regions=regions), method="count")
+        want = gaussian.number_entropy(corr, regions)
+        tol = (thermo.entropy_shift_bound(state.error, L * np.log(2))
+               + want.pruned_mass * L + 1e-9)
+        assert abs(got.entropy - want.entropy) <= tol
+        assert tol < 0.05  # the bound is informative: below 1e-3 nats per site
+
+
+def test_xx_gibbs_state_small_blocks_against_dense_diagonal():
+    """XX chain at L = 12, number blocks of 2 and 3: the purified Gibbs state against the
+    diagonal of exp(-beta (H - mu N)) / Z from numpy's eigh of every number sector."""
+    from mpsobs import coarse, observational_entropy
+
+    L, beta, mu = 12, 1.0, -0.3
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(6).uniform(-0.5, 0.5, L))
+    dense_h, n = model.dense_hamiltonian(), _numbers(L)
+    diag = np.zeros(2**L)
+    for value in np.unique(n):
+        sector = np.flatnonzero(n == value)
+        e, v = np.linalg.eigh(dense_h[np.ix_(sector, sector)])
+        diag[sector] = (np.abs(v) ** 2) @ np.exp(-beta * (e - mu * value))
+    diag /= diag.sum()
+    state = thermo.gibbs_state(model, beta, mu, max_bond=32)
+    bound = thermo.entropy_shift_bound(state.error, L * np.log(2))
+    bits = (np.arange(2**L)[:, None] >> np.arange(L - 1, -1, -1)) & 1  # site 0 first
+    for b in (2, 3):
+        per_block = bits.reshape(-1, L // b, b).sum(axis=2)
+        _, label = np.unique(per_block, axis=0, return_inverse=True)
+        p = np.bincount(label.ravel(), weights=diag)
+        sizes = np.bincount(label.ravel())  # V = prod C(b, n_k) = configurations per string
+        live = p > 0
+        want = float(-np.sum(p[live] * np.log(p[live] / sizes[live])))
+        got = observational_entropy(state, coarse.blocks(L, b, "number"), method="enumerate")
+        assert abs(got.entropy - want) <= bound + 1e-10
+
+
+def test_infinite_temperature_gives_ln_dim_and_ln_sector_size():
+    """beta = 0: rho = 1 / 2^L gives S_obs = L ln 2 for every coarse-graining; the sector
+    N of the canonical ensemble gives S_obs = ln C(L, N) for number blocks, which the
+    sector's projector commutes with and is uniform in (fact of the trade)."""
+    from math import comb, log
+
+    from mpsobs import coarse, observational_entropy
+
+    model = xxz(10, J=1.0, delta=0.6, h=0.4, field="staggered")
+    grand = thermo.gibbs_state(model, 0.0)
+    assert grand.error == 0.0
+    energy = coarse.blocks(10, 3, "energy", model=model)
+    for cg in (coarse.blocks(10, 2, "number"), energy,
+               coarse.sequence(energy, coarse.blocks(10, 3, "number"))):
+        got = observational_entropy(grand, cg, method="enumerate").entropy
+        assert abs(got - 10 * log(2)) < 1e-10
+    for L, number, regions in ((10, 3, None), (64, 20, [(0, 10), (10, 40), (40, 64)])):
+        sector = thermo.gibbs_state(xxz(L, J=1.0, delta=0.6), 0.0, number=number)
+        cg = coarse.blocks(L, 2, "number") if regions is None else coarse.blocks(
+            L, regions=regions)
+        got = observational_entropy(sector, cg, method="exact").entropy
+        assert abs(got - log(comb(L, number))) < 1e-9
+
+
+def test_gibbs_state_repr_and_bad_input():
+    from mpsobs.mps import PurifiedMPS
+
+    state = thermo.gibbs_state(ising(512, J=1.0, g=1.0, h=0.2), 0.0)
+    assert len(repr(state)) < 300 and "L=512" in repr(state)
+    with pytest.raises(InputError, match="purification tensor 0"):
+        PurifiedMPS((np.ones((1, 2, 1)),))
+    with pytest.raises(InputError, match="mu"):
+        thermo.gibbs_state(ising(6, J=1.0, g=1.0, h=0.2), 0.5, mu=0.1)
+    with pytest.raises(InputError, match="mu"):
+        thermo.gibbs_state(xxz(6, J=1.0, delta=0.5), 0.5, mu=0.1, number=3)
+    with pytest.raises(InputError, match="number"):
+        thermo.gibbs_state(xxz(6, J=1.0, delta=0.5), 0.5, number=7)
+    with pytest.raises(InputError, match="beta"):
+        thermo.gibbs_state(xxz(6, J=1.0, delta=0.5), float("nan"))
+
+
+def test_entropy_shift_bound_is_the_sharp_continuity_bound():
+    """T ln(d - 1) + h(T) (Audenaert, J. Phys. A 40, 8127 (2007), from memory): attained
+    by p = (1, 0, ..) and q = (1 - T, T / (d - 1), ..)."""
+    d, t = 16, 0.1
+    q = np.array([1 - t] + [t / (d - 1)] * (d - 1))
+    attained = float(-np.sum(q * np.log(q)))
+    assert abs(thermo.entropy_shift_bound(t, np.log(d)) - attained) < 1e-12
+    assert thermo.entropy_shift_bound(0.0, np.log(d)) == 0.0
+    assert thermo.entropy_shift_bound(1.0, np.log(d)) == np.log(d)
+
+
+def test_gge_correlation_commutes_with_the_hopping_matrix_and_keeps_occupations():
+    """The GGE correlation matrix is the state's, dephased in the single-particle
+    eigenbasis: it commutes with the single-particle matrix A = conj(V) diag(eps) V^T (the
+    convention of gaussian.gibbs_correlation) and its eigenvalues (numpy's eigvalsh) are
+    the conserved occupations; its trace is the number (fact of the trade)."""
+    L = 10
+    model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(8).uniform(-1, 1, L))
+    ham = gaussian.quadratic_hamiltonian(model)
+    a = (ham.modes.conj() * ham.energies) @ ham.modes.T
+    corr = gaussian.evolve_correlation(ham, gaussian.product_correlation([1, 1, 0, 0, 1] * 2),
+                                       0.7)
+    res = thermo.gge(model, corr)
+    c = res.correlation
+    assert np.allclose(a @ c, c @ a, atol=1e-12)
+    assert not np.allclose(a @ corr, corr @ a, atol=1e-6)  # the state itself is not dephased
+    assert np.allclose(np.linalg.eigvalsh(c), np.sort(res.occupations), atol=1e-12)
+    assert abs(np.trace(c).real - 6) < 1e-12
