@@ -76,11 +76,11 @@ def test_truncation_error_covers_the_true_error_against_exact_evolution(
     cutoff = 0, so that the bond cap is the only truncation: the cutoff truncates both
     evolutions alike and the check does not see it (with cutoff = 1e-10 this scenario
     has a true error of 1.3e-5 at t = 1 from a discarded weight of 1.4e-8, against a
-    reported 4e-8; see the README). At chi_max = 16 the check covers every time up to
-    t = 12. At chi_max = 8 it covers the trusted range (t <= 3) and t <= 10 but not
-    t = 11, 12: there both bonds are far too small (discarded weight 0.54 at chi_max)
-    and their results are close to each other while both are 0.3 off; the check is
-    asserted on the trusted range only."""
+    reported 2e-8 at chi_max = 16; see the README). At chi_max = 16 the check covers
+    every time up to t = 12. At chi_max = 8 it covers the trusted range (t <= 3) and
+    t <= 10 but not t = 11, 12: there both bonds are far too small (discarded weight
+    0.54 at chi_max) and their results are close to each other while both are 0.3 off;
+    the check is asserted on the trusted range only."""
     times = QUENCH_TIMES
     (point,) = spec.parse(_quench(QUENCH_L, chi_max, times, cutoff=0.0)).points
     assert point.params["evolution"]["chi_check"] == chi_max // 2

@@ -60,6 +60,11 @@ def edit(old: str, new: str) -> str:
     return BASE.replace(old, new)
 
 
+def with_evolution(line: str) -> str:
+    """BASE with one more line in its [evolution] table."""
+    return edit("chi_max = 16", f"chi_max = 16\n{line}")
+
+
 # (case id, spec text, key path the message must name, a word of the allowed values)
 MALFORMED = [
     ("unknown-top-key", 'colour = "red"\n' + BASE, "colour", "allowed"),
@@ -71,20 +76,17 @@ MALFORMED = [
     ("order-3", edit("order = 4", "order = 3"), "evolution.order", "2, 4"),
     ("chi-max-zero", edit("chi_max = 16", "chi_max = 0"), "evolution.chi_max", ">= 1"),
     ("cutoff-above-one", edit("cutoff = 1e-10", "cutoff = 1.5"), "evolution.cutoff", "< 1"),
-    ("chi-check-negative", edit("chi_max = 16", "chi_max = 16\nchi_check = -1"),
-     "evolution.chi_check", ">= 0"),
-    ("chi-check-float", edit("chi_max = 16", "chi_max = 16\nchi_check = 7.5"),
-     "evolution.chi_check", "integer"),
-    ("chi-check-not-below-chi-max", edit("chi_max = 16", "chi_max = 16\nchi_check = 16"),
-     "evolution.chi_check", "below evolution.chi_max = 16"),
-    ("chi-check-swept-above", edit("chi_max = 16", "chi_max = 16\nchi_check = [8, 32]"),
-     "evolution.chi_check", "below evolution.chi_max = 16"),
-    ("trust-rtol-negative", edit("chi_max = 16", "chi_max = 16\ntrust_rtol = -0.1"),
-     "evolution.trust_rtol", ">= 0"),
-    ("trust-rtol-above-one", edit("chi_max = 16", "chi_max = 16\ntrust_rtol = 2"),
-     "evolution.trust_rtol", "<= 1"),
-    ("trust-rtol-list", edit("chi_max = 16", "chi_max = 16\ntrust_rtol = [0.01, 0.1]"),
-     "evolution.trust_rtol", "cannot be swept"),
+    ("chi-check-negative", with_evolution("chi_check = -1"), "evolution.chi_check", ">= 0"),
+    ("chi-check-float", with_evolution("chi_check = 7.5"), "evolution.chi_check", "integer"),
+    ("chi-check-not-below-chi-max", with_evolution("chi_check = 16"), "evolution.chi_check",
+     "below evolution.chi_max = 16"),
+    ("chi-check-swept-above", with_evolution("chi_check = [8, 32]"), "evolution.chi_check",
+     "below evolution.chi_max = 16"),
+    ("trust-rtol-negative", with_evolution("trust_rtol = -0.1"), "evolution.trust_rtol",
+     ">= 0"),
+    ("trust-rtol-above-one", with_evolution("trust_rtol = 2"), "evolution.trust_rtol", "<= 1"),
+    ("trust-rtol-list", with_evolution("trust_rtol = [0.01, 0.1]"), "evolution.trust_rtol",
+     "cannot be swept"),
     ("model-name", edit('name = "xxz"', 'name = "heisenberg"'), "model.name", "'ising'"),
     ("L-one", edit("L = [8, 10]", "L = 1"), "model.L", ">= 2"),
     ("L-float", edit("L = [8, 10]", "L = [8, 10.5]"), "model.L[1]", "integer"),
