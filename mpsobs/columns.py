@@ -48,6 +48,13 @@ EXTRA = (
     "S_obs_eq",          # S_obs of the Gibbs ensemble behind S_thermo (the equilibrium value)
     "S_obs_eq_err",      # its error: stderr + pruned-mass bound + Gibbs-state error bound
     "S_obs_gge",         # S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions)
+    # truncation check: the same point evolved at bond chi_check (evolution.chi_check),
+    # estimated with the same seeds; all NaN when the check is off (chi_check = 0)
+    "S_obs_trunc_err",         # |S_obs(chi_max) - S_obs(chi_check)|: an error estimate, not a bound
+    "S_shannon_trunc_err",     # the same for the Shannon part
+    "S_boltzmann_trunc_err",   # the same for the Boltzmann part
+    "check_discarded_weight",  # cumulative discarded weight of the check evolution up to t
+    "t_trusted",               # end of the trusted time range of the (point, coarse-graining)
 )
 
 

@@ -22,6 +22,21 @@ For XX chains ``S_obs_gge`` is S_obs of the generalised Gibbs ensemble of the in
 mode occupations (a Gaussian state; grand in the particle number), exact by counting
 statistics for number coarse-grainings of at most three regions, NaN otherwise.
 
+Truncation check (``evolution.chi_check`` > 0): a second state starts from the same
+initial state and is evolved alongside the main one at the smaller bond chi_check with
+the same gates, steps, cutoff and output times; at every output time it is estimated
+with the same seeds and, where the main estimate was exact, exactly, where it was
+sampled, with the same number of samples, so the sampling noise largely cancels in the
+difference. ``S_obs_trunc_err`` = |S_obs(chi_max) - S_obs(chi_check)| (and the same for
+the Shannon and Boltzmann parts) is a heuristic error estimate of the truncation at
+chi_max, not a bound: it assumes that the error at chi_max is smaller than the change
+from chi_check to chi_max. It does not see errors of the initial state (a ground state
+found at chi_max is the starting point of both). ``check_discarded_weight`` is the check
+evolution's own cumulative discarded weight. ``t_trusted`` (one value per
+coarse-graining, see :func:`trusted_time`) is the end of the time range where the
+truncation error stays within ``evolution.trust_rtol`` times S_obs or within the
+sampling error. Without the check all four error columns and ``t_trusted`` are NaN.
+
 Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
 block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
 point's parameters. Entropies in nats.
@@ -32,7 +47,7 @@ from __future__ import annotations
 import logging
 import math
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -44,10 +59,12 @@ from mpsobs.entropy import observational_entropy
 from mpsobs.errors import InputError
 from mpsobs.estimate import countable, pruned_entropy_bound
 from mpsobs.mps import MPS
+from mpsobs.result import EntropyResult
 from mpsobs.spec import Point
 
 __all__ = ["compute_point", "check_point", "check_points", "build_model",
-           "build_coarse_grainings", "initial_state", "total_number", "ROW_COLUMNS"]
+           "build_coarse_grainings", "initial_state", "total_number", "trusted_time",
+           "ROW_COLUMNS", "ROUNDOFF_NATS"]
 
 log = logging.getLogger(__name__)
 
@@ -60,6 +77,8 @@ NUMBER_TOL = 1e-8
 #: chi_max if smaller). Its sampling costs about 2**b chi^3 per block and sample (b sites
 #: per block), so the bond is kept modest; the truncation it causes is in S_obs_eq_err.
 EQ_MAX_BOND = 24
+#: Truncation errors up to this (nats) are round-off for the trusted time range.
+ROUNDOFF_NATS = 1e-9
 
 
 @dataclass(frozen=True)
@@ -281,9 +300,78 @@ def check_points(points: Sequence[Point]) -> None:
             raise InputError(f"point {point.index} ({point.label}): {exc}") from None
 
 
+def _paired_options(main: EntropyResult, estimator: dict) -> dict:
+    """Estimator settings for the check state that repeat the main estimate: exact where
+    it was exact, else sampling with the same number of samples (with the same seed the
+    s-th sample then uses the same uniforms in both)."""
+    if main.method == "exact":
+        return {"method": "exact", "prune": estimator["prune"]}
+    sampler = "sample_strings" if main.algorithm == "mps-sample" else "sample"
+    return {"method": sampler, "samples": main.samples}
+
+
+def _check_estimate(state: MPS, cg: coarse.BlockCoarseGraining, main: EntropyResult,
+                    seed: int, estimator: dict, options: dict) -> EntropyResult:
+    """The estimate of the check state paired with ``main``; where an exact enumeration
+    of the check state exceeds its limits, the point's own settings (``options``)."""
+    try:
+        return observational_entropy(state, cg, seed=seed, **_paired_options(main, estimator))
+    except InputError as exc:
+        log.info("check state of %s: %s; using the point's estimator settings", cg.label, exc)
+        return observational_entropy(state, cg, seed=seed, **options)
+
+
+def _truncation_columns(main: EntropyResult, check: EntropyResult | None,
+                        check_discarded: float) -> dict:
+    """The truncation-error columns of a row (NaN without a check evolution)."""
+    if check is None:
+        return {"S_obs_trunc_err": math.nan, "S_shannon_trunc_err": math.nan,
+                "S_boltzmann_trunc_err": math.nan, "check_discarded_weight": math.nan}
+    return {"S_obs_trunc_err": abs(main.entropy - check.entropy),
+            "S_shannon_trunc_err": abs(main.shannon - check.shannon),
+            "S_boltzmann_trunc_err": abs(main.boltzmann - check.boltzmann),
+            "check_discarded_weight": check_discarded}
+
+
+def trusted_time(t: np.ndarray, S_obs: np.ndarray, S_obs_err: np.ndarray,
+                 trunc_err: np.ndarray, rtol: float) -> float:
+    """The end of the trusted time range of one curve (one point and coarse-graining).
+
+    An output time passes when its truncation error is within the tolerance or hidden
+    in the sampling noise::
+
+        S_obs_trunc_err <= max(rtol * |S_obs|, S_obs_err, ROUNDOFF_NATS)
+
+    and the trusted range ends at the last output time before the first time that fails
+    (later times that pass again do not count). Returns that time; ``inf`` when no time
+    fails (the check says nothing beyond the last computed time); ``-inf`` when the
+    first output time already fails; NaN when there is no check evolution (NaN
+    truncation errors). The arrays are in time order.
+    """
+    trunc_err = np.asarray(trunc_err, dtype=float)
+    if np.isnan(trunc_err).all():
+        return math.nan
+    allowed = np.maximum(np.maximum(rtol * np.abs(S_obs), S_obs_err), ROUNDOFF_NATS)
+    failing = np.flatnonzero(~(trunc_err <= allowed))
+    if failing.size == 0:
+        return math.inf
+    return float(t[failing[0] - 1]) if failing[0] > 0 else -math.inf
+
+
+def _with_trusted_times(frame: pd.DataFrame, rtol: float) -> pd.DataFrame:
+    """``frame`` with the column ``t_trusted`` (:func:`trusted_time` per coarse-graining)."""
+    frame["t_trusted"] = math.nan
+    for _, curve in frame.groupby("coarse_graining", sort=False):
+        curve = curve.sort_values("t")
+        frame.loc[curve.index, "t_trusted"] = trusted_time(
+            curve["t"].to_numpy(), curve["S_obs"].to_numpy(), curve["S_obs_err"].to_numpy(),
+            curve["S_obs_trunc_err"].to_numpy(), rtol)
+    return frame
+
+
 def compute_point(point: Point, *, progress: Callable[[int, int], None] | None = None,
-                  resume: tuple[list[np.ndarray], dict] | None = None,
-                  save: Callable[[list[np.ndarray], dict], None] | None = None
+                  resume: tuple[list[list[np.ndarray]], dict] | None = None,
+                  save: Callable[[list[list[np.ndarray]], dict], None] | None = None
                   ) -> pd.DataFrame:
     """Rows of one sweep point (see the module docstring).
 
@@ -292,28 +380,36 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     point : the resolved point.
     progress : called as ``progress(done, total)`` in time steps (t / dt) after each
         output time.
-    resume : a checkpoint (tensors, meta) offered earlier through ``save``; the
-        evolution restarts from its state and time, with its cumulative discarded weight,
-        norm, initial energy and reference, and its rows are kept (a checkpoint of another
-        point, or one without the S_obs_eq reference, is ignored: the point starts over).
-    save : called after each output time with a checkpoint (tensors, meta).
+    resume : a checkpoint (tensors of each state, meta) offered earlier through
+        ``save``; the evolution restarts from its states and time, with their cumulative
+        discarded weights, norm, initial energy and reference, and its rows are kept. A
+        checkpoint of another point, with another number of states, or without the
+        S_obs_eq reference, is ignored: the point starts over.
+    save : called after each output time with a checkpoint (tensors of the main state
+        and, when there is a check evolution, of the check state; meta).
 
     Cost: the evolution, O(t_max / dt * L chi^3) (x3 for order 4), plus the estimators
-    at every output time (see :mod:`mpsobs.estimate`) and the thermodynamic reference.
+    at every output time (see :mod:`mpsobs.estimate`) and the thermodynamic reference;
+    the check evolution adds the same at its bond, about (chi_check / chi_max)^3 of the
+    evolution, and one more estimate per output time and coarse-graining.
     """
     clock = time.monotonic()
     p = point.params
-    evo, times = p["evolution"], p["times"]["values"]
+    evo, est, times = p["evolution"], p["estimator"], p["times"]["values"]
+    chi_check = evo["chi_check"]
     model, cgs, options = _prepare(point)
     eq_seeds = [_estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
-    # a checkpoint written before the equilibrium columns existed is not resumed
+    n_states = 2 if chi_check else 1
     if (resume is not None and resume[1].get("point_id") == point.point_id
-            and "S_obs_eq" in resume[1].get("reference", {})):
+            and len(resume[0]) == n_states and "S_obs_eq" in resume[1].get("reference", {})):
         tensors, meta = resume
-        state = MPS(tuple(np.asarray(t, dtype=complex) for t in tensors))
+        state, *checked = (MPS(tuple(np.asarray(t, dtype=complex) for t in ts))
+                           for ts in tensors)
+        check_state = checked[0] if checked else None
         done, t_start = meta["done"], meta["t"]
         discarded0, norm0, energy0 = meta["discarded_weight"], meta["norm"], meta["energy0"]
+        check_discarded0 = meta["check_discarded_weight"]
         ref = _Reference(**{k: tuple(v) if isinstance(v, list) else v
                             for k, v in meta["reference"].items()})
         rows, elapsed0 = list(meta["rows"]), meta["elapsed_s"]
@@ -321,23 +417,37 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
                  t_start, done, len(times))
     else:
         state = initial_state(p["state"], model, evo)
+        check_state = state if chi_check else None
         energy0 = models.energy(model, state)
         ref = _reference(model, state, energy0, cgs, options, eq_seeds, evo["chi_max"])
-        done, t_start, discarded0, norm0 = 0, 0.0, 0.0, 1.0
+        done, t_start, discarded0, norm0, check_discarded0 = 0, 0.0, 0.0, 1.0, 0.0
         rows, elapsed0 = [], 0.0
     base = {"seed": point.seed, "point_id": point.point_id, "S_thermo": ref.S_thermo,
             "S_thermo_err": ref.S_thermo_err, "S_gge": ref.S_gge, "beta": ref.beta,
             "mpsobs_version": __version__}
     remaining = times[done:]
-    snapshots = (tebd.evolve(state, model, remaining, max_bond=evo["chi_max"],
-                             cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"],
-                             start_time=t_start) if remaining else ())
-    for k, snap in enumerate(snapshots, start=done):
+
+    def snapshots(start: MPS, bond: int):
+        return tebd.evolve(start, model, remaining, max_bond=bond, cutoff=evo["cutoff"],
+                           dt=evo["dt"], order=evo["order"], start_time=t_start)
+
+    if not remaining:
+        pairs: Iterable = ()
+    elif check_state is None:
+        pairs = ((snap, None) for snap in snapshots(state, evo["chi_max"]))
+    else:  # same gates, steps and output times at both bonds
+        pairs = zip(snapshots(state, evo["chi_max"]), snapshots(check_state, chi_check),
+                    strict=True)
+    for k, (snap, check_snap) in enumerate(pairs, start=done):
         discarded = discarded0 + snap.discarded_weight
+        check_discarded = (check_discarded0 + check_snap.discarded_weight
+                           if check_snap is not None else math.nan)
         norm = norm0 * snap.norm
         for j, (label, block_size, cg) in enumerate(cgs):
-            res = observational_entropy(snap.state, cg, seed=_estimator_seed(point.seed, k, j),
-                                        **options[j])
+            seed = _estimator_seed(point.seed, k, j)
+            res = observational_entropy(snap.state, cg, seed=seed, **options[j])
+            check = (None if check_snap is None else
+                     _check_estimate(check_snap.state, cg, res, seed, est, options[j]))
             rows.append({
                 **base, "t": times[k], "coarse_graining": label, "S_obs": res.entropy,
                 "S_obs_err": res.stderr, "S_shannon": res.shannon,
@@ -349,16 +459,22 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
                 "samples": res.samples, "algorithm": res.algorithm, "energy": snap.energy,
                 "energy_drift": snap.energy - energy0, "norm": norm,
                 "S_obs_eq": ref.S_obs_eq[j], "S_obs_eq_err": ref.S_obs_eq_err[j],
-                "S_obs_gge": ref.S_obs_gge[j], "block_size": block_size})
+                "S_obs_gge": ref.S_obs_gge[j],
+                **_truncation_columns(res, check, check_discarded),
+                "block_size": block_size})
         elapsed = elapsed0 + time.monotonic() - clock
         if progress is not None:
             progress(round(times[k] / evo["dt"]), total_steps)
         if save is not None:
             meta = {"point_id": point.point_id, "done": k + 1, "t": times[k],
                     "discarded_weight": discarded, "norm": norm, "energy0": energy0,
+                    "check_discarded_weight": check_discarded,
                     "reference": asdict(ref), "rows": rows, "elapsed_s": elapsed}
-            save(list(snap.state.tensors), meta)
-    frame = pd.DataFrame(rows)
+            saved = [list(snap.state.tensors)]
+            if check_snap is not None:
+                saved.append(list(check_snap.state.tensors))
+            save(saved, meta)
+    frame = _with_trusted_times(pd.DataFrame(rows), evo["trust_rtol"])
     frame["elapsed_s"] = elapsed0 + time.monotonic() - clock
     for name, value in point.columns.items():
         frame[name] = value

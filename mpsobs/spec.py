@@ -28,7 +28,10 @@ The schema (defaults in brackets; S = sweepable):
   ground: ``[state.prequench]`` with model keys (J, delta or g, field) that differ
   from ``[model]`` before the quench [none].
 - ``[evolution]``: ``dt`` (> 0, S) [0.05]; ``order`` 2 | 4 (S) [4]; ``chi_max``
-  (int >= 1, S) [64]; ``cutoff`` (0 <= c < 1, S) [1e-10].
+  (int >= 1, S) [64]; ``cutoff`` (0 <= c < 1, S) [1e-10]; ``chi_check`` (int >= 0 and
+  < chi_max, 0 = off, S) [chi_max // 2]: bond of the check evolution that gives the
+  truncation error of every row (see :mod:`mpsobs.point`); ``trust_rtol`` (0 <= r <= 1)
+  [0.01]: truncation error allowed relative to S_obs within the trusted time range.
 - ``[times]``: ``t_max`` (> 0) with ``n_times`` (int >= 2): an even grid from 0;
   or ``values`` (increasing list >= 0).
 - ``[[coarse]]`` (one or more): ``observable`` number | energy | fine, or a list of them
@@ -83,6 +86,7 @@ DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
 
 _REQUIRED = object()
 _RUN_SEED = None  # default of seeds that follow the point's run seed
+_HALF_CHI = None  # default of evolution.chi_check: the point's chi_max // 2
 
 
 @dataclass(frozen=True)
@@ -176,6 +180,8 @@ _EVOLUTION = {
     "order": _Key("int", 4, choices=(2, 4), column="order"),
     "chi_max": _Key("int", 64, low=1, column="chi_max"),
     "cutoff": _number("cutoff", 1e-10, low=0.0, high=1.0, high_open=True),
+    "chi_check": _Key("int", _HALF_CHI, low=0, column="chi_check"),
+    "trust_rtol": _number("trust_rtol", 0.01, low=0.0, high=1.0, sweep=False),
 }
 _TIMES = {
     "t_max": _number(None, None, low=0.0, low_open=True, sweep=False),
@@ -566,6 +572,7 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
                         value[fk] = model["field"][fk]
             elif value is None:
                 pre[key] = model[key]
+    _check_evolution(p["evolution"])
     _check_state(state, L)
     _check_coarse(p["coarse"], L, p["estimator"]["method"])
     for entry in p["coarse"]:
@@ -577,6 +584,17 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
     label = " ".join(f"{path}={value}" for path, value in values.items())
     return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
                  params=params, columns=columns, label=label or "single point")
+
+
+def _check_evolution(evolution: dict) -> None:
+    """Resolve the check bond (default chi_max // 2) and check it against chi_max."""
+    chi_max = evolution["chi_max"]
+    if evolution["chi_check"] is _HALF_CHI:
+        evolution["chi_check"] = chi_max // 2
+    chi_check = evolution["chi_check"]
+    if chi_check and chi_check >= chi_max:
+        raise _fail("evolution.chi_check", f"expected 0 (off) or a bond below "
+                    f"evolution.chi_max = {chi_max}, got {chi_check}")
 
 
 def _check_state(state: dict, L: int) -> None:

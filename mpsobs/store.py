@@ -5,7 +5,8 @@ Layout of a run directory::
 
     spec.json                 resolved spec, run id, mpsobs version, list of points
     points/<point_id>.parquet rows of one finished point (written once, atomically)
-    checkpoints/<point_id>.npz  MPS tensors and progress of an unfinished point
+    checkpoints/<point_id>.npz  MPS tensors (main and check states) and progress of an
+                              unfinished point
     results.parquet           all finished points merged, in point order
     figures/                  plots of the results (mpsobs.plots)
     run.log                   what the command line did (appended)
@@ -53,6 +54,10 @@ FIGURES_DIR = "figures"
 #: A lock file left empty for longer than this (seconds) is treated as stale.
 EMPTY_LOCK_AGE = 10.0
 _META_KEY = b"mpsobs.point"
+#: Layout of checkpoint files: tensors of one or more states, named
+#: ``state<s>_tensor_<i>``; files of another (older) layout are ignored and the point
+#: starts afresh.
+CHECKPOINT_FORMAT = 2
 
 
 class RunDirError(InputError):
@@ -274,30 +279,40 @@ class RunStore:
 
     # checkpoints -------------------------------------------------------------------
 
-    def save_checkpoint(self, point_id: str, tensors: Sequence[np.ndarray], meta: dict) -> None:
-        """Atomically store an unfinished point's MPS tensors and its progress ``meta``
-        (JSON-serialisable: time, cumulative discarded weight, initial energy, rows)."""
+    def save_checkpoint(self, point_id: str, states: Sequence[Sequence[np.ndarray]],
+                        meta: dict) -> None:
+        """Atomically store an unfinished point's MPS tensors, one list per state (the
+        main state, then the check state when there is one), and its progress ``meta``
+        (JSON-serialisable: time, cumulative discarded weights, initial energy, rows)."""
         self.checkpoints_dir.mkdir(parents=True, exist_ok=True)
-        arrays = {f"tensor_{i:05d}": np.asarray(t) for i, t in enumerate(tensors)}
+        arrays = {f"state{s:02d}_tensor_{i:05d}": np.asarray(t)
+                  for s, tensors in enumerate(states) for i, t in enumerate(tensors)}
+        arrays["format"] = np.array(CHECKPOINT_FORMAT)
         arrays["meta"] = np.array(json.dumps(meta))
         with atomic_write(self.checkpoint_path(point_id)) as tmp:
             with open(tmp, "wb") as handle:
                 np.savez(handle, **arrays)
 
-    def load_checkpoint(self, point_id: str) -> tuple[list[np.ndarray], dict] | None:
-        """The last checkpoint of a point (tensors, meta), or None."""
+    def load_checkpoint(self, point_id: str) -> tuple[list[list[np.ndarray]], dict] | None:
+        """The last checkpoint of a point (tensors per state, meta), or None (also for an
+        unreadable file or one of an older layout, which are logged and ignored)."""
         path = self.checkpoint_path(point_id)
         if not path.exists():
             return None
         try:
             with np.load(path, allow_pickle=False) as data:
-                names = sorted(n for n in data.files if n.startswith("tensor_"))
-                tensors = [data[n] for n in names]
+                if "format" not in data.files or int(data["format"]) != CHECKPOINT_FORMAT:
+                    log.warning("ignoring checkpoint %s of another layout; the point "
+                                "starts afresh", path)
+                    return None
+                states: dict[str, list[np.ndarray]] = {}
+                for name in sorted(n for n in data.files if n.startswith("state")):
+                    states.setdefault(name.split("_")[0], []).append(data[name])
                 meta = json.loads(str(data["meta"]))
         except (OSError, ValueError, KeyError) as exc:
             log.warning("ignoring unreadable checkpoint %s (%s)", path, exc)
             return None
-        return tensors, meta
+        return list(states.values()), meta
 
     def drop_checkpoint(self, point_id: str) -> None:
         with contextlib.suppress(FileNotFoundError):

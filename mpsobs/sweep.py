@@ -48,18 +48,20 @@ PROGRESS_TOPIC = "mpsobs-progress"
 #: Smallest interval (s) between two progress events of one point.
 PROGRESS_INTERVAL = 0.5
 
-Checkpoint = tuple[list[np.ndarray], dict]
+#: (tensors of each state: the main one, then the check state if any; progress meta)
+States = list[list[np.ndarray]]
+Checkpoint = tuple[States, dict]
 
 
 class Kernel(Protocol):
     """Computes one point: returns its rows. ``progress(done, total)`` reports work units
-    (time steps) done; ``resume`` is the last checkpoint (tensors, meta) or None;
-    ``save(tensors, meta)`` offers a checkpoint (the caller decides whether to write it).
+    (time steps) done; ``resume`` is the last checkpoint (states, meta) or None;
+    ``save(states, meta)`` offers a checkpoint (the caller decides whether to write it).
     A kernel must be a pure function of the point (same rows whatever runs it)."""
 
     def __call__(self, point: Point, *, progress: Callable[[int, int], None] | None = None,
                  resume: Checkpoint | None = None,
-                 save: Callable[[list[np.ndarray], dict], None] | None = None
+                 save: Callable[[States, dict], None] | None = None
                  ) -> pd.DataFrame: ...
 
 
@@ -117,10 +119,10 @@ def run_point_task(point: Point, root: str, kernel: Kernel | None,
         log.info("point %s resumes from its checkpoint", point.point_id)
     last_save = [time.monotonic()]
 
-    def save(tensors: list[np.ndarray], meta: dict) -> None:
+    def save(states: States, meta: dict) -> None:
         now = time.monotonic()
         if now - last_save[0] >= checkpoint_seconds:
-            store.save_checkpoint(point.point_id, tensors, meta)
+            store.save_checkpoint(point.point_id, states, meta)
             last_save[0] = now
 
     start = time.monotonic()

@@ -60,6 +60,11 @@ def edit(old: str, new: str) -> str:
     return BASE.replace(old, new)
 
 
+def with_evolution(line: str) -> str:
+    """BASE with one more line in its [evolution] table."""
+    return edit("chi_max = 16", f"chi_max = 16\n{line}")
+
+
 # (case id, spec text, key path the message must name, a word of the allowed values)
 MALFORMED = [
     ("unknown-top-key", 'colour = "red"\n' + BASE, "colour", "allowed"),
@@ -71,6 +76,17 @@ MALFORMED = [
     ("order-3", edit("order = 4", "order = 3"), "evolution.order", "2, 4"),
     ("chi-max-zero", edit("chi_max = 16", "chi_max = 0"), "evolution.chi_max", ">= 1"),
     ("cutoff-above-one", edit("cutoff = 1e-10", "cutoff = 1.5"), "evolution.cutoff", "< 1"),
+    ("chi-check-negative", with_evolution("chi_check = -1"), "evolution.chi_check", ">= 0"),
+    ("chi-check-float", with_evolution("chi_check = 7.5"), "evolution.chi_check", "integer"),
+    ("chi-check-not-below-chi-max", with_evolution("chi_check = 16"), "evolution.chi_check",
+     "below evolution.chi_max = 16"),
+    ("chi-check-swept-above", with_evolution("chi_check = [8, 32]"), "evolution.chi_check",
+     "below evolution.chi_max = 16"),
+    ("trust-rtol-negative", with_evolution("trust_rtol = -0.1"), "evolution.trust_rtol",
+     ">= 0"),
+    ("trust-rtol-above-one", with_evolution("trust_rtol = 2"), "evolution.trust_rtol", "<= 1"),
+    ("trust-rtol-list", with_evolution("trust_rtol = [0.01, 0.1]"), "evolution.trust_rtol",
+     "cannot be swept"),
     ("model-name", edit('name = "xxz"', 'name = "heisenberg"'), "model.name", "'ising'"),
     ("L-one", edit("L = [8, 10]", "L = 1"), "model.L", ">= 2"),
     ("L-float", edit("L = [8, 10]", "L = [8, 10.5]"), "model.L[1]", "integer"),
@@ -236,6 +252,22 @@ def test_defaults_resolved_and_gas_box_in_sites():
     assert p8.params["times"]["values"] == [0.0, 0.2, 0.4]
     # columns hold the box as given, so they do not change along the L scan
     assert p8.columns["box_to"] == p10.columns["box_to"] == 0.25
+
+
+def test_check_bond_follows_chi_max_and_can_be_swept_or_switched_off():
+    data = _base()
+    data["evolution"]["chi_max"] = [16, 33]
+    run = spec.parse(data)
+    assert {(p.columns["chi_max"], p.columns["chi_check"]) for p in run.points} == {
+        (16, 8), (33, 16)}  # default chi_max // 2 per point
+    assert all(p.params["evolution"]["trust_rtol"] == 0.01 for p in run.points)
+    data["evolution"].update(chi_max=16, chi_check=[0, 4, 12], trust_rtol=0.05)
+    swept = spec.parse(data)
+    assert ("evolution.chi_check",) in swept.axes
+    assert sorted({p.columns["chi_check"] for p in swept.points}) == [0, 4, 12]
+    assert {p.columns["trust_rtol"] for p in swept.points} == {0.05}
+    off = spec.parse({**data, "evolution": {"chi_max": 1}})  # chi_max // 2 = 0: off
+    assert {p.columns["chi_check"] for p in off.points} == {0}
 
 
 @pytest.mark.parametrize("path", [None, *sorted(RUNS.glob("*.toml"))],

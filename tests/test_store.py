@@ -141,18 +141,33 @@ def test_killed_writer_leaves_old_file_or_none(tmp_path):
 def test_checkpoint_round_trip(tmp_path):
     st = store.RunStore(tmp_path)
     rng = np.random.default_rng(5)
-    tensors = [rng.normal(size=(1, 2, 3)) + 1j * rng.normal(size=(1, 2, 3)),
-               rng.normal(size=(3, 2, 1)) + 0j]
+    main = [rng.normal(size=(1, 2, 3)) + 1j * rng.normal(size=(1, 2, 3)),
+            rng.normal(size=(3, 2, 1)) + 0j]
+    check = [rng.normal(size=(1, 2, 2)) + 0j, rng.normal(size=(2, 2, 1)) + 0j]
     meta = {"t": 0.30000000000000004, "rows": [{"S_obs": 0.1, "S_gge": float("nan")}],
             "discarded_weight": 1.234e-17}
     assert st.load_checkpoint("abc") is None
-    st.save_checkpoint("abc", tensors, meta)
+    st.save_checkpoint("abc", [main, check], meta)
     loaded, back = st.load_checkpoint("abc")
-    assert all(np.array_equal(a, b) for a, b in zip(loaded, tensors, strict=True))
+    assert len(loaded) == 2
+    for got, want in zip(loaded, [main, check], strict=True):
+        assert all(np.array_equal(a, b) for a, b in zip(got, want, strict=True))
     assert back["t"] == meta["t"] and back["discarded_weight"] == meta["discarded_weight"]
     assert np.isnan(back["rows"][0]["S_gge"])
     st.drop_checkpoint("abc")
     assert st.load_checkpoint("abc") is None
+
+
+def test_checkpoint_of_the_older_layout_is_ignored(tmp_path, caplog):
+    """A checkpoint written before the check state existed (tensors named tensor_<i>,
+    no layout number) is not resumed: the point starts afresh."""
+    st = store.RunStore(tmp_path)
+    st.checkpoints_dir.mkdir(parents=True)
+    with open(st.checkpoint_path("old"), "wb") as handle:
+        np.savez(handle, tensor_00000=np.ones((1, 2, 1)), meta=np.array('{"done": 1}'))
+    with caplog.at_level("WARNING", logger="mpsobs.store"):
+        assert st.load_checkpoint("old") is None
+    assert "another layout" in caplog.text
 
 
 def test_other_spec_refused_same_spec_accepted(tmp_path):

@@ -51,7 +51,7 @@ def counting_kernel(point, *, progress=None, resume=None, save=None, fail_at=Non
         if progress is not None:
             progress(k + 1, len(times))
         if save is not None:
-            save([np.full((1, 2, 1), value)], {"rows": rows})
+            save([[np.full((1, 2, 1), value)]], {"rows": rows})
         if fail_at is not None and resume is None and k + 1 == fail_at:
             raise RuntimeError("simulated crash")
     frame = pd.DataFrame(rows)
@@ -275,8 +275,8 @@ def _full_resumed_again(point):
     from mpsobs.point import compute_point
 
     checkpoints = []
-    full = compute_point(point, save=lambda tensors, meta: checkpoints.append(
-        ([t.copy() for t in tensors], dict(meta, rows=list(meta["rows"])))))
+    full = compute_point(point, save=lambda states, meta: checkpoints.append(
+        ([[t.copy() for t in ts] for ts in states], dict(meta, rows=list(meta["rows"])))))
     resumed = compute_point(point, resume=checkpoints[1])
     return full, checkpoints, resumed, compute_point(point)
 
