@@ -39,9 +39,12 @@ def _frame(point: spec.Point, rows: int = 6) -> pd.DataFrame:
     rng = np.random.default_rng(point.seed)
     out = {}
     for name in (*REQUIRED, *EXTRA):
-        if name in ("coarse_graining", "method", "algorithm", "point_id", "mpsobs_version"):
+        if name in ("coarse_graining", "method", "algorithm", "point_id", "mpsobs_version",
+                    "observables"):
             out[name] = [f"{name}-{i}" for i in range(rows)]
-        elif name in ("seed", "max_bond", "samples"):
+        elif name == "disorder_axes":
+            out[name] = ",".join(point.disorder)
+        elif name in ("seed", "max_bond", "samples", "n_observables"):
             out[name] = np.arange(rows, dtype=np.int64)
         else:
             out[name] = rng.random(rows)
