@@ -98,6 +98,12 @@ TRUSTED_TIME = "t_trusted"
 EQUILIBRIUM = "S_obs_eq"
 EQUILIBRIUM_ERR = "S_obs_eq_err"
 DISORDER_AXES = "disorder_axes"
+#: Result columns that newer runs add and :data:`mpsobs.columns.EXTRA` may not name yet
+#: (never taken for parameters), besides the disorder-mean columns made here.
+_NEWER_RESULTS = (TRUNCATION_ERROR, "S_shannon_trunc_err", "S_boltzmann_trunc_err",
+                  "companion_discarded_weight", TRUSTED_TIME, EQUILIBRIUM, EQUILIBRIUM_ERR,
+                  "S_obs_gge", DISORDER_AXES, "S_obs_disorder_err", "S_obs_sampling_err",
+                  "realizations")
 #: A curve is scaled on its trusted times alone when at least this many remain.
 MIN_TRUSTED_POINTS = 4
 #: Values averaged over disorder with the error of their mean.
@@ -214,8 +220,8 @@ def disorder_columns(results: pd.DataFrame) -> list[str]:
 
 def _parameters(results: pd.DataFrame) -> list[str]:
     """Parameter columns that are not disorder labels."""
-    disorder = set(disorder_columns(results))
-    return [c for c in parameter_columns(results.columns) if c not in disorder]
+    skip = {*disorder_columns(results), *_NEWER_RESULTS}
+    return [c for c in parameter_columns(results.columns) if c not in skip]
 
 
 def length_companions(results: pd.DataFrame) -> list[str]:
@@ -833,11 +839,19 @@ def format_value(value: float, err: float) -> str:
     return f"{value:.{digits}f} +- {err:.{digits}f}"
 
 
+def _known(df: pd.DataFrame, column: str) -> bool:
+    """Whether ``column`` is present with at least one finite value."""
+    return column in df and bool(np.isfinite(df[column].to_numpy(dtype=float)).any())
+
+
 def format_table(df: pd.DataFrame) -> str:
     """The scaling table as text: per-length plateaus, then the fits per group.
 
-    Entropies per site in nats, times in 1/J; every value is followed by its error.
-    Of the parameter columns only those that vary for a coarse-graining are shown.
+    Entropies per site in nats, times in 1/J; every value is followed by its error and
+    printed to the error's precision (:func:`format_value`). Of the parameter columns
+    only those that vary for a coarse-graining are shown. Disorder realizations (R),
+    the truncation error of the plateau and the equilibrium deficit appear where the
+    table has them.
     """
     if df.empty:
         return "(empty scaling table)"
@@ -845,10 +859,19 @@ def format_table(df: pd.DataFrame) -> str:
         df, [c for c in key_columns(df) if c != "coarse_graining"], within="coarse_graining")
     fraction = df["saturation_fraction"].iloc[0]
     per_length = df[keys + ["L"]].copy()
-    for label, value, err in [("plateau/L", "plateau_per_site", "plateau_err"),
-                              ("S_thermo/L", "thermo_per_site", "thermo_err"),
-                              ("deficit/L", "deficit_per_site", "deficit_err"),
-                              (f"t_{fraction:g}", "saturation_time", "saturation_time_err")]:
+    if "realizations" in df and (df["realizations"] > 1).any():
+        per_length["R"] = df["realizations"].to_numpy()
+    columns = [("plateau/L", "plateau_per_site", "plateau_err")]
+    if _known(df, "plateau_trunc_err"):
+        per_length["trunc/L"] = [f"{v:.2g}" for v in df["plateau_trunc_err"]]
+        per_length["t_trusted"] = [f"{v:g}" for v in df["t_trusted"]]
+    columns += [("S_thermo/L", "thermo_per_site", "thermo_err"),
+                ("deficit/L", "deficit_per_site", "deficit_err")]
+    if _known(df, "eq_per_site"):
+        columns += [("S_obs_eq/L", "eq_per_site", "eq_err"),
+                    ("deficit_eq/L", "deficit_eq_per_site", "deficit_eq_err")]
+    columns.append((f"t_{fraction:g}", "saturation_time", "saturation_time_err"))
+    for label, value, err in columns:
         per_length[label] = [format_value(v, e) for v, e in zip(df[value], df[err], strict=True)]
     fits = df.drop_duplicates(keys)
     per_group = fits[keys].copy()
@@ -857,6 +880,11 @@ def format_table(df: pd.DataFrame) -> str:
         format_value(v, e)
         for v, e in zip(fits["extrapolated_per_site"], fits["extrapolated_err"], strict=True)]
     per_group["chi2/dof"] = [f"{v:.2f}" for v in fits["extrapolation_chi2_red"]]
+    if _known(fits, "deficit_eq_extrapolated"):
+        per_group["deficit_eq/L (L->inf)"] = [
+            format_value(v, e) for v, e in zip(fits["deficit_eq_extrapolated"],
+                                               fits["deficit_eq_extrapolated_err"],
+                                               strict=True)]
     per_group[f"z (t_{fraction:g} ~ L^z)"] = [
         format_value(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
     per_group["z chi2/dof"] = [f"{v:.2f}" for v in fits["z_chi2_red"]]
