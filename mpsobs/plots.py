@@ -168,11 +168,11 @@ def caption(results: pd.DataFrame, shown: Sequence[str] = (),
         pairs = results[["L", name]].drop_duplicates().sort_values("L")
         parts.append(f"{name}(L)=" + ",".join(_value(v) for v in pairs[name]))
     if disorder:
-        counts = sorted({int(n) for n in results.groupby(
-            [c for c in scaling.group_columns(results) + ["L"] if c in results]
-        )[disorder].nunique().max(axis=1)})
-        parts.append(f"disorder mean over {'-'.join(str(n) for n in counts[::len(counts) - 1 or 1])} "
-                     f"realizations of {', '.join(disorder)} (band: error of the mean)")
+        per_curve = results.groupby(scaling.group_columns(results) + ["L"], dropna=False)
+        counts = sorted({int(n) for n in per_curve[disorder].nunique().max(axis=1)})
+        span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
+        parts.append(f"disorder mean over {span} realizations of {', '.join(disorder)} "
+                     f"(band: error of the mean)")
     return _text("\n".join(textwrap.wrap("; ".join(parts), CAPTION_WIDTH)))
 
 
