@@ -829,11 +829,12 @@ def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
 
 
 def format_value(value: float, err: float) -> str:
-    """'value +- err' with two significant digits of the error ('nan' for NaN; the value
-    alone, 6 significant digits, when the error is 0 or NaN)."""
+    """'value +- err' with two significant digits of the error, the value to the same
+    decimal ('nan' for NaN; the value alone, 6 significant digits, when the error is NaN
+    or below ERROR_FLOOR relative to the value, i.e. exact up to rounding)."""
     if not np.isfinite(value):
         return "nan"
-    if not np.isfinite(err) or err <= 0:
+    if not np.isfinite(err) or err <= ERROR_FLOOR * max(1.0, abs(value)):
         return f"{value:.6g}"
     digits = int(min(10, max(0, 1 - np.floor(np.log10(err)))))
     return f"{value:.{digits}f} +- {err:.{digits}f}"
