@@ -4,6 +4,23 @@ A *curve* is S_obs(t) of one chain length L, one coarse-graining and one value o
 other sweep parameter; a *group* is the set of curves that differ only in L. Entropies
 are reported per site in nats, times in units of 1/J.
 
+Disorder: a table whose ``disorder_axes`` column names parameter columns (e.g.
+``field_seed``, from the spec's ``sweep.disorder``) holds R realizations of each curve;
+they are averaged per (group, L, t) (:func:`disorder_average`): the mean, its
+sample-to-sample error s_R / sqrt(R) and the within-realization (sampling) error
+sqrt(sum e_r**2) / R are kept apart; S_obs_err of the mean is the larger of the two.
+The plateau of such a curve is the mean of the R realizations' plateaus, with
+plateau_disorder_err = (their sample standard deviation) / sqrt(R) and
+plateau_sampling_err = sqrt(sum plateau_err_r**2) / R; plateau_err = the larger of
+both enters the fits (a per-realization plateau carries its disorder offset at every
+time of the window, so the window scatter of the mean curve would understate it).
+
+Trusted times: where the table has ``t_trusted`` (the last time at which the truncation
+error is within tolerance; NaN or inf = every time), a curve is used only up to its
+smallest t_trusted when at least MIN_TRUSTED_POINTS times remain; otherwise all times
+are used, with ``S_obs_trunc_err`` added in quadrature to S_obs_err beyond t_trusted
+(a warning is logged). The window below is then the last fraction of the used range.
+
 Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
 
 - plateau: mean of y_i = S_obs(t_i) / L over the *window*, the last ``window`` fraction
@@ -22,7 +39,10 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
   half means. A drift beyond 4 errors is logged as a warning (no plateau yet) and then
   added in quadrature to plateau_err, as a systematic error of an unsaturated curve.
 - deficit: S_thermo / L - plateau, error sqrt(plateau_err**2 + thermo_err**2) with
-  thermo_err = S_thermo_err / L (0 when the column is absent).
+  thermo_err = S_thermo_err / L (0 when the column is absent); likewise
+  deficit_eq = S_obs_eq / L - plateau where the table has the equilibrium value S_obs_eq
+  (the S_obs of the Gibbs state at the initial energy for that coarse-graining), NaN
+  otherwise. plateau_trunc_err is the mean of S_obs_trunc_err / L over the window.
 - saturation time t_f: the time at which the curve has covered a fraction f of its
   change from the first time point, i.e. crosses the level
   c = S_0 + f (S_plateau - S_0) (with S_0 = 0: the time to reach f S_plateau). It is
@@ -44,7 +64,8 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
 Per group:
 
 - extrapolation: weighted least squares plateau_per_site = a + b / L (weights
-  1 / plateau_err**2); extrapolated_per_site = a.
+  1 / plateau_err**2); extrapolated_per_site = a; the same fit of deficit_eq gives
+  deficit_eq_extrapolated where two or more lengths have it.
 - exponent: weighted least squares ln t_f = ln A + z ln L (errors t_f_err / t_f).
 
 Straight-line fits follow the weighted least-squares formulas of Press et al.,
@@ -112,6 +133,8 @@ _ERROR_PAIRS = {"S_obs": "S_obs_err", "S_shannon": "S_shannon_err",
                 EQUILIBRIUM: EQUILIBRIUM_ERR}
 #: Columns whose disorder "mean" is the largest value (bounds, not averages).
 _MAX_COLUMNS = ("discarded_weight", "pruned_mass", "max_bond", "companion_discarded_weight")
+#: Seed parameter columns that usually label disorder realizations.
+_SEED_COLUMNS = ("field_seed", "state_seed")
 #: Columns of one realization, left out of disorder means.
 _PER_REALIZATION = ("seed", "point_id", "elapsed_s")
 
@@ -385,6 +408,11 @@ def _curves(results: pd.DataFrame, needed, *, warn: bool = True, trusted: bool =
     if data.empty:
         raise InputError("results: the table has no rows with a finite S_obs")
     shown = varying_columns(data, keys[1:])
+    unmarked = [c for c in shown if c in _SEED_COLUMNS]
+    if unmarked and warn:
+        log.warning("results: %s varies and is treated as a parameter (one set of curves "
+                    "per value); if its values are realizations of one disorder ensemble, "
+                    "mark them with sweep.disorder in the spec", ", ".join(unmarked))
     curves = []
     for key, rows in split(data, keys + ["L"]):
         name = _describe(key, shown)

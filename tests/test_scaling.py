@@ -300,14 +300,16 @@ def test_disorder_average_of_the_rows():
     assert (mean.realizations == REALIZATIONS).all()
 
 
-def test_fits_use_the_disorder_error():
+def test_fits_use_the_disorder_error(caplog):
     table = scaling.scaling_table(_disordered())
     law = DISORDER_LAW["number@b2"]
     row = table.iloc[0]
     _within(row.extrapolated_per_site, law.s_inf, row.extrapolated_err)
-    # without the disorder marking every seed is a parameter set of its own
-    blind = scaling.plateaus(_disordered().drop(columns=["disorder_axes"]))
+    # without the disorder marking every seed is a parameter set of its own (with a hint)
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        blind = scaling.plateaus(_disordered().drop(columns=["disorder_axes"]))
     assert len(blind) == REALIZATIONS * len(table) and "field_seed" in blind.columns
+    assert "mark them with sweep.disorder" in caplog.text
     text = scaling.format_table(table)
     assert " R " in text.splitlines()[1] and str(REALIZATIONS) in text
 
