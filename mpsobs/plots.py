@@ -173,6 +173,10 @@ def caption(results: pd.DataFrame, shown: Sequence[str] = (),
         span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
         parts.append(f"disorder mean over {span} realizations of {', '.join(disorder)} "
                      f"(band: error of the mean)")
+    elif "realizations" in results and results["realizations"].max() > 1:
+        counts = sorted({int(n) for n in results["realizations"]})
+        span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
+        parts.append(f"disorder mean over {span} realizations")
     return _text("\n".join(textwrap.wrap("; ".join(parts), CAPTION_WIDTH)))
 
 

@@ -154,7 +154,7 @@ _EXTRAPOLATION_OUT = (
 _SATURATION_OUT = ("saturation_fraction", "saturation_time", "saturation_time_err")
 _EXPONENT_OUT = ("z", "z_err", "z_chi2_red", "saturation_prefactor",
                  "saturation_prefactor_err", "z_lengths")
-_COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err")
+_COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err", "realizations")
 _OUTPUT = frozenset(("L",) + _PLATEAU_OUT + _EXTRAPOLATION_OUT + _SATURATION_OUT
                     + _EXPONENT_OUT + _COLLAPSE_OUT)
 
@@ -796,7 +796,8 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
     One row per (curve, t): the group columns, ``L``, ``t``, ``scaled_time`` =
     t / L**z, ``rise`` = (S_obs/L - initial) / (plateau - initial) (= S_obs / S_plateau
     when S_obs(0) = 0) and ``rise_err`` (from S_obs_err only), plus ``z``, ``z_err`` and
-    ``saturation_fraction`` of the group.
+    ``saturation_fraction`` of the group and the number of disorder ``realizations``
+    averaged (1 without disorder).
     """
     keys, curves = _curves(results, SCALING_COLUMNS, warn=False)  # warned by the table
     require_columns(table, keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
@@ -816,7 +817,8 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
             "rise": (curve["S_obs"].to_numpy(dtype=float) / L - fit["initial_per_site"]) / change,
             "rise_err": curve["S_obs_err"].to_numpy(dtype=float) / L / abs(change),
             "z": fit["z"], "z_err": fit["z_err"],
-            "saturation_fraction": fit["saturation_fraction"]}))
+            "saturation_fraction": fit["saturation_fraction"],
+            "realizations": len(item.members)}))
     if not parts:
         raise InputError("scaling table: none of its rows matches a curve of the results")
     return pd.concat(parts, ignore_index=True)

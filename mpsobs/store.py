@@ -362,7 +362,8 @@ class RunStore:
         for point in done:
             frame = self.read_point(point.point_id)
             if len(frame):
-                frame["disorder_axes"] = ",".join(point.disorder)  # the current spec's
+                if "disorder_axes" in frame:  # as the current spec marks them
+                    frame["disorder_axes"] = ",".join(point.disorder)
                 frames.append(frame)
                 site_fields[point.point_id] = self.point_metadata(point.point_id).get(
                     "site_fields")

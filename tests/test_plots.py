@@ -172,3 +172,14 @@ def test_collapse_log_axis_has_labelled_ticks_within_a_decade():
     labels = [t.get_text() for t in ax.get_xticklabels() if t.get_text()]
     visible = [v for v in ax.get_xticks() if 0.3 <= v <= 2.5]
     assert len(labels) >= 3 and len(visible) >= 3
+
+
+def test_collapse_of_disorder_means_says_so():
+    from mpsobs import scaling
+
+    results = saturating_results((6, 10), np.linspace(0.0, 30.0, 31), LAWS, stderr=0.02,
+                                 seed=5, realizations=5, disorder_sd=0.05)
+    collapse = scaling.collapse_curves(results, scaling.scaling_table(results))
+    assert (collapse.realizations == 5).all()
+    fig = plots.collapse_figure(collapse)
+    assert "disorder mean over 5 realizations" in _caption(fig).replace("\n", " ")
