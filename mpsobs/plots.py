@@ -245,6 +245,12 @@ def _diagnostics(ent_ax, weight_ax, data: pd.DataFrame, colors: Mapping[int, tup
                        va="center", transform=weight_ax.transAxes, color="0.4")
 
 
+def _has_equilibrium(results: pd.DataFrame) -> bool:
+    """Whether the rows carry an equilibrium value S_obs_eq (some finite)."""
+    return scaling.EQUILIBRIUM in results and bool(
+        np.isfinite(results[scaling.EQUILIBRIUM].to_numpy(dtype=float)).any())
+
+
 def _style(label: str, **line) -> Line2D:
     return Line2D([], [], color=line.pop("color", "0.2"), label=label, **line)
 
@@ -256,8 +262,7 @@ def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = N
     the maximum ln 2 per site (dotted); one panel per coarse-graining, then the
     half-chain entanglement and the discarded weight."""
     scaling.require_columns(results, ENTROPY_COLUMNS, "entropy figure")
-    has_eq = scaling.EQUILIBRIUM in results and bool(
-        np.isfinite(results[scaling.EQUILIBRIUM].to_numpy(dtype=float)).any())
+    has_eq = _has_equilibrium(results)
     has_trunc = scaling.TRUNCATION_ERROR in results
     trusted_range: dict[int, list[float]] = {}  # per panel: values on trusted times
 
@@ -324,9 +329,11 @@ def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = Non
 
 def knowledge_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
                      shown: Sequence[str] | None = None) -> Figure:
-    """Knowledge K/L = (S_max - S_obs)/L per L with error bands (error S_obs_err/L) and
-    its thermodynamic value (S_max - S_thermo)/L (dashed)."""
+    """Knowledge K/L = (S_max - S_obs)/L per L with error bands (error S_obs_err/L), its
+    thermodynamic value (S_max - S_thermo)/L (dashed) and, where present, its
+    equilibrium value (S_max - S_obs_eq)/L (dash-dot)."""
     scaling.require_columns(results, KNOWLEDGE_COLUMNS, "knowledge figure")
+    has_eq = _has_equilibrium(results)
 
     def draw(ax, curve, L, color):
         t = curve["t"].to_numpy(dtype=float)
@@ -334,9 +341,15 @@ def knowledge_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None =
               curve["S_obs_err"].to_numpy(dtype=float) / L, color)
         thermal = (curve["S_max"] - curve["S_thermo"]).to_numpy(dtype=float) / L
         ax.plot(t, thermal, color=color, linestyle="--", linewidth=0.8)
+        if has_eq:
+            eq = (curve["S_max"] - curve[scaling.EQUILIBRIUM]).to_numpy(dtype=float) / L
+            ax.plot(t, eq, color=color, **EQUILIBRIUM_STYLE)
 
     styles = [_style(r"$K/L$"),
               _style(r"$(S_\mathrm{max}-S_\mathrm{thermo})/L$", linestyle="--")]
+    if has_eq:
+        styles.append(_style(r"$(S_\mathrm{max}-S_\mathrm{obs}^\mathrm{eq})/L$",
+                             **EQUILIBRIUM_STYLE))
     return _panel_figure(results, colors, shown, draw, "knowledge per site [nats]", styles)
 
 

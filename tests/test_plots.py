@@ -157,6 +157,10 @@ def test_truncation_and_equilibrium_columns_are_drawn():
     assert ax.get_ylim()[0] > results.S_obs.min() / 6
     styles = [t.get_text() for t in fig.legends[1].get_texts()]
     assert any("Gibbs" in t for t in styles) and any("truncation" in t for t in styles)
+    knowledge = plots.knowledge_figure(results).axes[0]
+    target = [line for line in knowledge.lines if np.allclose(line.get_ydata(),
+                                                              np.log(2.0) - 0.6)]
+    assert len(target) == 2  # (S_max - S_obs_eq)/L per L
 
 
 def test_collapse_log_axis_has_labelled_ticks_within_a_decade():
