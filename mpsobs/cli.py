@@ -182,6 +182,10 @@ def _cmd_check(args) -> int:
                      for group in spec.axes) or "none"
     print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "
           f"{spec.output_dir}")
+    disorder = spec.points[0].disorder if spec.points else ()
+    if disorder:
+        print(f"  disorder realizations labelled by {', '.join(disorder)} (averaged over "
+              f"by plot and scale)")
     for point in spec.points:
         print(f"  {point.index:4d}  {point.point_id}  {point.label}")
     return 0

@@ -39,7 +39,9 @@ sampling error. Without the check all four error columns and ``t_trusted`` are N
 
 Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
 block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
-point's parameters. Entropies in nats.
+point's parameters. Entropies in nats. The frame's ``attrs["site_fields"]`` holds the
+longitudinal field h_i of every site (units of J), which the store keeps in the point
+file's metadata.
 """
 
 from __future__ import annotations
@@ -61,6 +63,7 @@ from mpsobs.estimate import countable, pruned_entropy_bound
 from mpsobs.mps import MPS
 from mpsobs.result import EntropyResult
 from mpsobs.spec import Point
+from mpsobs.store import SITE_FIELDS_ATTR
 
 __all__ = ["compute_point", "check_point", "check_points", "build_model",
            "build_coarse_grainings", "initial_state", "total_number", "trusted_time",
@@ -476,6 +479,14 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
             save(saved, meta)
     frame = _with_trusted_times(pd.DataFrame(rows), evo["trust_rtol"])
     frame["elapsed_s"] = elapsed0 + time.monotonic() - clock
+    asked = {label: entry["observable"] for (label, _, _), entry in zip(cgs, p["coarse"],
+                                                                          strict=True)}
+    frame["observables"] = frame["coarse_graining"].map(lambda lab: ",".join(asked[lab]))
+    frame["n_observables"] = frame["coarse_graining"].map(lambda lab: len(asked[lab]))
+    frame["disorder_axes"] = ",".join(point.disorder)
+    field = p["model"]["field"]
+    frame.attrs[SITE_FIELDS_ATTR] = models.field_values(
+        field["kind"], field["strength"], model.L, field["seed"]).tolist()
     for name, value in point.columns.items():
         frame[name] = value
     return frame[[*ROW_COLUMNS, *point.columns]]

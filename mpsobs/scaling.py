@@ -4,6 +4,23 @@ A *curve* is S_obs(t) of one chain length L, one coarse-graining and one value o
 other sweep parameter; a *group* is the set of curves that differ only in L. Entropies
 are reported per site in nats, times in units of 1/J.
 
+Disorder: a table whose ``disorder_axes`` column names parameter columns (e.g.
+``field_seed``, from the spec's ``sweep.disorder``) holds R realizations of each curve;
+they are averaged per (group, L, t) (:func:`disorder_average`): the mean, its
+sample-to-sample error s_R / sqrt(R) and the within-realization (sampling) error
+sqrt(sum e_r**2) / R are kept apart; S_obs_err of the mean is the larger of the two.
+The plateau of such a curve is the mean of the R realizations' plateaus, with
+plateau_disorder_err = (their sample standard deviation) / sqrt(R) and
+plateau_sampling_err = sqrt(sum plateau_err_r**2) / R; plateau_err = the larger of
+both enters the fits (a per-realization plateau carries its disorder offset at every
+time of the window, so the window scatter of the mean curve would understate it).
+
+Trusted times: where the table has ``t_trusted`` (the last time at which the truncation
+error is within tolerance; NaN or inf = every time), a curve is used only up to its
+smallest t_trusted when at least MIN_TRUSTED_POINTS times remain; otherwise all times
+are used, with ``S_obs_trunc_err`` added in quadrature to S_obs_err beyond t_trusted
+(a warning is logged). The window below is then the last fraction of the used range.
+
 Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
 
 - plateau: mean of y_i = S_obs(t_i) / L over the *window*, the last ``window`` fraction
@@ -22,7 +39,10 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
   half means. A drift beyond 4 errors is logged as a warning (no plateau yet) and then
   added in quadrature to plateau_err, as a systematic error of an unsaturated curve.
 - deficit: S_thermo / L - plateau, error sqrt(plateau_err**2 + thermo_err**2) with
-  thermo_err = S_thermo_err / L (0 when the column is absent).
+  thermo_err = S_thermo_err / L (0 when the column is absent); likewise
+  deficit_eq = S_obs_eq / L - plateau where the table has the equilibrium value S_obs_eq
+  (the S_obs of the Gibbs state at the initial energy for that coarse-graining), NaN
+  otherwise. plateau_trunc_err is the mean of S_obs_trunc_err / L over the window.
 - saturation time t_f: the time at which the curve has covered a fraction f of its
   change from the first time point, i.e. crosses the level
   c = S_0 + f (S_plateau - S_0) (with S_0 = 0: the time to reach f S_plateau). It is
@@ -44,7 +64,8 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
 Per group:
 
 - extrapolation: weighted least squares plateau_per_site = a + b / L (weights
-  1 / plateau_err**2); extrapolated_per_site = a.
+  1 / plateau_err**2); extrapolated_per_site = a; the same fit of deficit_eq gives
+  deficit_eq_extrapolated where two or more lengths have it.
 - exponent: weighted least squares ln t_f = ln A + z ln L (errors t_f_err / t_f).
 
 Straight-line fits follow the weighted least-squares formulas of Press et al.,
@@ -59,6 +80,7 @@ from __future__ import annotations
 
 import logging
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -70,7 +92,8 @@ from mpsobs.store import RunStore, atomic_write
 
 __all__ = [
     "ERROR_FLOOR", "LineFit", "fit_line", "read_results", "require_columns",
-    "group_columns", "key_columns", "length_companions", "split", "varying_columns",
+    "disorder_columns", "disorder_average", "group_columns", "key_columns",
+    "length_companions", "split", "varying_columns",
     "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
     "collapse_curves", "scale_run", "format_table", "format_value",
 ]
@@ -87,21 +110,51 @@ BOOTSTRAP_SEED = 20240601
 CLEAR_MARGIN = 3.0
 #: Columns the scaling needs in the results table.
 SCALING_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo")
+#: Columns read when present (tables of older runs lack them): the truncation error of
+#: S_obs (nats), the last time it is within tolerance (1/J; NaN or inf = every time),
+#: the equilibrium value S_obs of the Gibbs state with its error (nats), and the
+#: parameter columns that label disorder realizations (comma-separated names).
+TRUNCATION_ERROR = "S_obs_trunc_err"
+TRUSTED_TIME = "t_trusted"
+EQUILIBRIUM = "S_obs_eq"
+EQUILIBRIUM_ERR = "S_obs_eq_err"
+DISORDER_AXES = "disorder_axes"
+#: Result columns that newer runs add and :data:`mpsobs.columns.EXTRA` may not name yet
+#: (never taken for parameters), besides the disorder-mean columns made here.
+_NEWER_RESULTS = (TRUNCATION_ERROR, "S_shannon_trunc_err", "S_boltzmann_trunc_err",
+                  "check_discarded_weight", TRUSTED_TIME, EQUILIBRIUM, EQUILIBRIUM_ERR,
+                  "S_obs_gge", DISORDER_AXES, "S_obs_disorder_err", "S_obs_sampling_err",
+                  "realizations")
+#: A curve is scaled on its trusted times alone when at least this many remain.
+MIN_TRUSTED_POINTS = 4
+#: Values averaged over disorder with the error of their mean.
+_ERROR_PAIRS = {"S_obs": "S_obs_err", "S_shannon": "S_shannon_err",
+                "S_boltzmann": "S_boltzmann_err", "S_thermo": "S_thermo_err",
+                EQUILIBRIUM: EQUILIBRIUM_ERR}
+#: Columns whose disorder "mean" is the largest value (bounds, not averages).
+_MAX_COLUMNS = ("discarded_weight", "pruned_mass", "max_bond", "check_discarded_weight")
+#: Seed parameter columns that usually label disorder realizations.
+_SEED_COLUMNS = ("field_seed", "state_seed")
+#: Columns of one realization, left out of disorder means.
+_PER_REALIZATION = ("seed", "point_id", "elapsed_s")
 
 _PLATEAU_OUT = (
-    "t_first", "t_last", "window_start", "plateau_points", "plateau_per_site",
-    "plateau_err", "plateau_spread", "plateau_drift", "plateau_drift_err",
-    "initial_per_site", "initial_err", "thermo_per_site", "thermo_err",
-    "deficit_per_site", "deficit_err", "discarded_weight_max", "pruned_mass_max",
+    "t_first", "t_last", "window_start", "plateau_points", "realizations",
+    "plateau_per_site", "plateau_err", "plateau_disorder_err", "plateau_sampling_err",
+    "plateau_trunc_err", "t_trusted", "trusted_only", "plateau_spread", "plateau_drift",
+    "plateau_drift_err", "initial_per_site", "initial_err", "thermo_per_site", "thermo_err",
+    "deficit_per_site", "deficit_err", "eq_per_site", "eq_err", "deficit_eq_per_site",
+    "deficit_eq_err", "discarded_weight_max", "pruned_mass_max",
 )
 _EXTRAPOLATION_OUT = (
     "extrapolated_per_site", "extrapolated_err", "finite_size_slope",
     "finite_size_slope_err", "extrapolation_chi2_red", "extrapolation_lengths",
+    "deficit_eq_extrapolated", "deficit_eq_extrapolated_err",
 )
 _SATURATION_OUT = ("saturation_fraction", "saturation_time", "saturation_time_err")
 _EXPONENT_OUT = ("z", "z_err", "z_chi2_red", "saturation_prefactor",
                  "saturation_prefactor_err", "z_lengths")
-_COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err")
+_COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err", "realizations")
 _OUTPUT = frozenset(("L",) + _PLATEAU_OUT + _EXTRAPOLATION_OUT + _SATURATION_OUT
                     + _EXPONENT_OUT + _COLLAPSE_OUT)
 
@@ -176,11 +229,29 @@ def varying_columns(frame: pd.DataFrame, columns, *, within: str | None = None) 
     return [c for c in columns if (counts[c] > 1).any()]
 
 
+def disorder_columns(results: pd.DataFrame) -> list[str]:
+    """Parameter columns that label disorder realizations of one ensemble: those named
+    in the ``disorder_axes`` column (comma-separated, written from the spec's
+    ``sweep.disorder``), in table order; none for tables without that column."""
+    if DISORDER_AXES not in results.columns:
+        return []
+    names: set[str] = set()
+    for value in results[DISORDER_AXES].dropna().unique():
+        names.update(name for name in str(value).split(",") if name)
+    return [c for c in results.columns if c in names]
+
+
+def _parameters(results: pd.DataFrame) -> list[str]:
+    """Parameter columns that are not disorder labels."""
+    skip = {*disorder_columns(results), *_NEWER_RESULTS}
+    return [c for c in parameter_columns(results.columns) if c not in skip]
+
+
 def length_companions(results: pd.DataFrame) -> list[str]:
     """Parameter columns that change with L alone (one value per L, several in the
     table), such as a bond dimension swept together with L; the fits treat them as part
-    of the chain length."""
-    others = [c for c in parameter_columns(results.columns) if c != "L"]
+    of the chain length. Disorder labels (:func:`disorder_columns`) are never companions."""
+    others = [c for c in _parameters(results) if c != "L"]
     if "L" not in results.columns:
         return []
     varying = varying_columns(results, others)
@@ -189,10 +260,10 @@ def length_companions(results: pd.DataFrame) -> list[str]:
 
 def group_columns(results: pd.DataFrame) -> list[str]:
     """Columns identifying a group of curves that differ only in L: the coarse-graining
-    and every parameter column other than L and its companions
-    (:func:`length_companions`), in table order."""
+    and every parameter column other than L, its companions (:func:`length_companions`)
+    and the disorder labels (:func:`disorder_columns`, averaged over), in table order."""
     companions = set(length_companions(results))
-    return ["coarse_graining"] + [c for c in parameter_columns(results.columns)
+    return ["coarse_graining"] + [c for c in _parameters(results)
                                   if c != "L" and c not in companions]
 
 
@@ -201,9 +272,12 @@ def key_columns(table: pd.DataFrame) -> list[str]:
     return [c for c in table.columns if c not in _OUTPUT]
 
 
-def _describe(key: dict) -> str:
-    return ", ".join(f"{name}={value!r}" if isinstance(value, str) else f"{name}={value}"
-                     for name, value in key.items())
+def _describe(key: dict, shown=None) -> str:
+    """``name=value, ...`` of the coarse-graining, L and the ``shown`` columns (default
+    all of ``key``)."""
+    names = [k for k in key if shown is None or k in shown or k in ("coarse_graining", "L")]
+    return ", ".join(f"{name}={key[name]!r}" if isinstance(key[name], str)
+                     else f"{name}={key[name]}" for name in names)
 
 
 def _hashable(results: pd.DataFrame, columns: list[str]) -> pd.DataFrame:
@@ -227,12 +301,93 @@ def split(results: pd.DataFrame, columns: list[str]) -> list[tuple[dict, pd.Data
             for values, rows in data.groupby(columns, dropna=False, sort=True)]
 
 
-def _curves(results: pd.DataFrame, needed, *, warn: bool = True
-            ) -> tuple[list[str], list[tuple[dict, pd.DataFrame]]]:
-    """Check the columns and split the table into time-sorted curves (``warn``: log
-    what is treated specially)."""
+@dataclass(frozen=True)
+class _Curve:
+    """One curve: its key (group columns and L), a text naming it by the parameters that
+    vary, the disorder-mean rows (time-sorted; the realization itself without disorder),
+    the realizations' own rows (same times) and its trusted time range."""
+
+    key: dict
+    name: str
+    mean: pd.DataFrame
+    members: tuple[pd.DataFrame, ...]
+    t_trusted: float
+    trusted_only: bool
+
+
+def _average(members: Sequence[pd.DataFrame], disorder: list[str], name: str
+             ) -> pd.DataFrame:
+    """Disorder mean of realizations on one time grid (see :func:`disorder_average`)."""
+    first = members[0]
+    count = len(members)
+    t = first["t"].to_numpy(dtype=float)
+    for member in members[1:]:
+        if not np.array_equal(member["t"].to_numpy(dtype=float), t):
+            raise InputError(f"results: the disorder realizations of {name} have different "
+                             "time grids; a disorder mean needs the same times in each")
+    kept = [c for c in first.columns if c not in disorder and c not in _PER_REALIZATION]
+    out = {c: first[c].to_numpy() for c in kept}
+    if count > 1:
+        for column in kept:
+            if column == "t" or not pd.api.types.is_numeric_dtype(first[column]) or \
+                    pd.api.types.is_bool_dtype(first[column]):
+                continue
+            stack = np.stack([m[column].to_numpy(dtype=float) for m in members])
+            if column in _MAX_COLUMNS:
+                out[column] = stack.max(axis=0)
+            elif column == TRUSTED_TIME:
+                out[column] = np.where(np.isnan(stack), np.inf, stack).min(axis=0)
+            else:
+                out[column] = stack.mean(axis=0)
+    for value, err in _ERROR_PAIRS.items():
+        if value not in first.columns:
+            continue
+        stack = np.stack([m[value].to_numpy(dtype=float) for m in members])
+        errors = (np.stack([m[err].to_numpy(dtype=float) for m in members])
+                  if err in first.columns else np.zeros_like(stack))
+        sampling = np.sqrt(np.sum(errors**2, axis=0)) / count
+        spread = (np.std(stack, axis=0, ddof=1) / np.sqrt(count) if count > 1
+                  else np.full(t.size, np.nan))
+        if count > 1:
+            out[err] = np.fmax(spread, sampling)
+        if value == "S_obs":
+            out["S_obs_disorder_err"], out["S_obs_sampling_err"] = spread, sampling
+    out["realizations"] = count
+    return pd.DataFrame(out, index=first.index)
+
+
+def disorder_average(results: pd.DataFrame) -> pd.DataFrame:
+    """The results averaged over disorder realizations per (group columns, L, t).
+
+    Returns
+    -------
+    One row per (coarse-graining, parameters other than the disorder labels, L, t):
+    means of the numeric columns (the largest ``discarded_weight``, ``pruned_mass`` and
+    ``max_bond``; the smallest ``t_trusted``), and
+
+    - ``S_obs_err`` (and the errors of the Shannon, Boltzmann, thermodynamic and
+      equilibrium values alike) = max(disorder, sampling) error of the mean, where
+    - ``S_obs_disorder_err`` = sample-to-sample standard deviation / sqrt(R) (NaN for
+      R = 1), which contains the sampling noise too, and
+    - ``S_obs_sampling_err`` = sqrt(sum of the realizations' S_obs_err**2) / R, the
+      within-realization part alone;
+    - ``realizations`` = R.
+
+    The disorder labels, ``seed``, ``point_id`` and ``elapsed_s`` are dropped. Without
+    disorder labels every curve is its own mean (R = 1).
+    """
+    _, curves = _curves(results, SCALING_COLUMNS[:-1], warn=False, trusted=False)
+    return pd.concat([c.mean for c in curves], ignore_index=True)
+
+
+def _curves(results: pd.DataFrame, needed, *, warn: bool = True, trusted: bool = True
+            ) -> tuple[list[str], list[_Curve]]:
+    """Check the columns and split the table into time-sorted curves, averaged over
+    disorder (``warn``: log what is treated specially; ``trusted``: keep only the times
+    trusted by the truncation check, see :func:`_trusted`)."""
     require_columns(results, needed, "results")
     keys = group_columns(results)
+    disorder = disorder_columns(results)
     clash = sorted(_OUTPUT.intersection(keys))
     if clash:
         raise InputError(f"results: parameter column(s) {', '.join(clash)} clash with "
@@ -252,14 +407,61 @@ def _curves(results: pd.DataFrame, needed, *, warn: bool = True
         data = data[~bad]
     if data.empty:
         raise InputError("results: the table has no rows with a finite S_obs")
+    shown = varying_columns(data, keys[1:])
+    unmarked = [c for c in shown if c in _SEED_COLUMNS]
+    if unmarked and warn:
+        log.warning("results: %s varies and is treated as a parameter (one set of curves "
+                    "per value); if its values are realizations of one disorder ensemble, "
+                    "mark them with sweep.disorder in the spec", ", ".join(unmarked))
     curves = []
-    for key, curve in split(data, keys + ["L"]):
-        times = curve["t"].to_numpy(dtype=float)
-        if np.unique(times).size != times.size:
-            raise InputError(f"results: several rows share the same t for {_describe(key)}; "
-                             "the parameter columns must identify one point per curve")
-        curves.append((key, curve.sort_values("t")))
+    for key, rows in split(data, keys + ["L"]):
+        name = _describe(key, shown)
+        members = []
+        for labels, member in split(rows, disorder):
+            times = member["t"].to_numpy(dtype=float)
+            if np.unique(times).size != times.size:
+                raise InputError(f"results: several rows share the same t for {name}"
+                                 + (f" ({_describe(labels)})" if labels else "")
+                                 + "; the parameter columns must identify one point per curve")
+            members.append(member.sort_values("t"))
+        mean = _average(members, disorder, name)
+        curves.append(_trusted(key, name, mean, members, warn) if trusted else
+                      _Curve(key, name, mean, tuple(members), np.inf, True))
     return keys, curves
+
+
+def _trusted(key: dict, name: str, mean: pd.DataFrame, members: list[pd.DataFrame],
+             warn: bool) -> _Curve:
+    """The curve on its trusted times (t <= the smallest t_trusted of its rows; NaN and
+    inf mean all times), when at least MIN_TRUSTED_POINTS remain; otherwise all times,
+    with S_obs_trunc_err added in quadrature to S_obs_err beyond t_trusted (logged)."""
+    t = mean["t"].to_numpy(dtype=float)
+    limit = np.inf
+    if TRUSTED_TIME in mean.columns:
+        values = mean[TRUSTED_TIME].to_numpy(dtype=float)
+        limit = float(np.min(np.where(np.isnan(values), np.inf, values)))
+    inside = t <= limit
+    if inside.all():
+        return _Curve(key, name, mean, tuple(members), limit, True)
+    if inside.sum() >= MIN_TRUSTED_POINTS:
+        if warn:
+            log.info("truncation: %s is used up to t_trusted = %g (%d of %d times)", name,
+                     limit, int(inside.sum()), t.size)
+        return _Curve(key, name, mean[inside], tuple(m[inside] for m in members), limit,
+                      True)
+    if warn:
+        log.warning("truncation: only %d of %d times of %s are trusted (t <= %g); all are "
+                    "used, with the truncation error added to S_obs_err beyond",
+                    int(inside.sum()), t.size, name, limit)
+
+    def widened(frame: pd.DataFrame) -> pd.DataFrame:
+        if TRUNCATION_ERROR not in frame.columns:
+            return frame
+        err = frame["S_obs_err"].to_numpy(dtype=float)
+        trunc = np.nan_to_num(frame[TRUNCATION_ERROR].to_numpy(dtype=float))
+        return frame.assign(S_obs_err=np.where(inside, err, np.hypot(err, trunc)))
+
+    return _Curve(key, name, widened(mean), tuple(widened(m) for m in members), limit, False)
 
 
 def _check_options(window: float | None = None, fraction: float | None = None) -> None:
@@ -269,83 +471,122 @@ def _check_options(window: float | None = None, fraction: float | None = None) -
         raise InputError(f"fraction: expected a number in (0, 1), got {fraction!r}")
 
 
-def _plateau_row(key: dict, curve: pd.DataFrame, window: float) -> dict:
-    L = key["L"]
-    t = curve["t"].to_numpy(dtype=float)
-    y = curve["S_obs"].to_numpy(dtype=float) / L
-    e = curve["S_obs_err"].to_numpy(dtype=float) / L
+def _window(frame: pd.DataFrame, L: int, window: float, name: str) -> dict:
+    """Plateau statistics of S_obs / L over the last ``window`` of one curve's times."""
+    t = frame["t"].to_numpy(dtype=float)
+    y = frame["S_obs"].to_numpy(dtype=float) / L
+    e = frame["S_obs_err"].to_numpy(dtype=float) / L
     span = t[-1] - t[0]
     if span <= 0:
-        raise InputError(f"results: a single time t={t[0]} for {_describe(key)}; "
+        raise InputError(f"results: a single time t={t[0]} for {name}; "
                          "a plateau needs a time range")
     start = t[-1] - window * span
     inside = t >= start - 1e-12 * span
     n = int(inside.sum())
     if n < 2:
         raise InputError(f"window: the last {window} of the time range holds {n} time point "
-                         f"for {_describe(key)}; a plateau needs at least 2, use a larger window")
+                         f"for {name}; a plateau needs at least 2, use a larger window")
     yw, ew = y[inside], e[inside]
     spread = float(np.std(yw, ddof=1))
     rms = float(np.sqrt(np.mean(ew**2)))
-    mean = float(np.mean(yw))
     first, second = yw[: n // 2], yw[n // 2:]
-    drift = float(np.mean(second) - np.mean(first))
     if n >= 4:
         within = np.concatenate([first - first.mean(), second - second.mean()])
         scatter = float(np.sqrt(np.sum(within**2) / (n - 2)))
     else:
         scatter = 0.0
-    drift_err = max(scatter, rms) * np.sqrt(1 / first.size + 1 / second.size)
-    plateau_err = max(spread, rms) / np.sqrt(n)
+    return {"t": t, "y": y, "e": e, "start": start, "inside": inside, "n": n,
+            "mean": float(np.mean(yw)), "err": max(spread, rms) / np.sqrt(n),
+            "spread": spread, "drift": float(np.mean(second) - np.mean(first)),
+            "drift_err": max(scatter, rms) * np.sqrt(1 / first.size + 1 / second.size)}
+
+
+def _window_mean(frame: pd.DataFrame, column: str, inside: np.ndarray, L: int) -> float:
+    """Mean of ``column`` / L over the window (NaN when the column is absent)."""
+    if column not in frame.columns:
+        return float("nan")
+    return float(np.mean(frame[column].to_numpy(dtype=float)[inside])) / L
+
+
+def _plateau_row(curve: _Curve, window: float) -> dict:
+    key, L, name = curve.key, curve.key["L"], curve.name
+    stats = _window(curve.mean, L, window, name)
+    inside, n = stats["inside"], stats["n"]
+    count = len(curve.members)
+    if count > 1:
+        per = [_window(m, L, window, name) for m in curve.members]
+        values = np.array([p["mean"] for p in per])
+        disorder_err = float(np.std(values, ddof=1) / np.sqrt(count))
+        sampling_err = float(np.sqrt(np.sum([p["err"] ** 2 for p in per])) / count)
+        plateau_err = max(disorder_err, sampling_err)
+    else:
+        disorder_err, sampling_err = float("nan"), stats["err"]
+        plateau_err = stats["err"]
+    mean, drift, drift_err = stats["mean"], stats["drift"], stats["drift_err"]
     if abs(drift) > 4 * drift_err:
-        log.warning("plateau: S_obs/L still drifts by %.3g +- %.2g over the window for %s; "
-                    "the curve has not saturated (the drift is added to plateau_err)",
-                    drift, drift_err, _describe(key))
+        log.warning("plateau: S_obs/L still drifts by %s over the window for %s; the curve "
+                    "has not saturated (the drift is added to plateau_err)",
+                    format_value(drift, drift_err), name)
         plateau_err = float(np.hypot(plateau_err, drift))
-    thermo = curve["S_thermo"].to_numpy(dtype=float)[inside] / L
-    thermo_err = (curve["S_thermo_err"].to_numpy(dtype=float)[inside] / L
-                  if "S_thermo_err" in curve else np.zeros(n))
-    thermo_mean, thermo_err_mean = float(np.mean(thermo)), float(np.mean(thermo_err))
-    if not np.isfinite(thermo_mean):
-        log.warning("plateau: S_thermo is not available for %s; its deficit is NaN",
-                    _describe(key))
+    frame = curve.mean
+    thermo = _window_mean(frame, "S_thermo", inside, L)
+    thermo_err = _window_mean(frame, "S_thermo_err", inside, L) if "S_thermo_err" in frame \
+        else 0.0
+    if not np.isfinite(thermo):
+        log.warning("plateau: S_thermo is not available for %s; its deficit is NaN", name)
+    eq = _window_mean(frame, EQUILIBRIUM, inside, L)
+    eq_err = _window_mean(frame, EQUILIBRIUM_ERR, inside, L) if EQUILIBRIUM_ERR in frame \
+        else 0.0
     return {
         **key,
-        "t_first": t[0], "t_last": t[-1], "window_start": start, "plateau_points": n,
-        "plateau_per_site": mean, "plateau_err": plateau_err, "plateau_spread": spread,
+        "t_first": stats["t"][0], "t_last": stats["t"][-1], "window_start": stats["start"],
+        "plateau_points": n, "realizations": count,
+        "plateau_per_site": mean, "plateau_err": plateau_err,
+        "plateau_disorder_err": disorder_err, "plateau_sampling_err": sampling_err,
+        "plateau_trunc_err": _window_mean(frame, TRUNCATION_ERROR, inside, L),
+        "t_trusted": curve.t_trusted, "trusted_only": curve.trusted_only,
+        "plateau_spread": stats["spread"],
         "plateau_drift": drift, "plateau_drift_err": drift_err,
-        "initial_per_site": y[0], "initial_err": e[0],
-        "thermo_per_site": thermo_mean, "thermo_err": thermo_err_mean,
-        "deficit_per_site": thermo_mean - mean,
-        "deficit_err": float(np.hypot(plateau_err, thermo_err_mean)),
-        "discarded_weight_max": float(curve["discarded_weight"].max())
-        if "discarded_weight" in curve else float("nan"),
-        "pruned_mass_max": float(curve["pruned_mass"].max())
-        if "pruned_mass" in curve else float("nan"),
+        "initial_per_site": stats["y"][0], "initial_err": stats["e"][0],
+        "thermo_per_site": thermo, "thermo_err": thermo_err,
+        "deficit_per_site": thermo - mean, "deficit_err": float(np.hypot(plateau_err,
+                                                                          thermo_err)),
+        "eq_per_site": eq, "eq_err": eq_err,
+        "deficit_eq_per_site": eq - mean, "deficit_eq_err": float(np.hypot(plateau_err,
+                                                                            eq_err)),
+        "discarded_weight_max": float(frame["discarded_weight"].max())
+        if "discarded_weight" in frame else float("nan"),
+        "pruned_mass_max": float(frame["pruned_mass"].max())
+        if "pruned_mass" in frame else float("nan"),
     }
 
 
 def plateaus(results: pd.DataFrame, window: float = 0.3) -> pd.DataFrame:
-    """Late-time plateau of S_obs / L per curve, with the deficit from S_thermo / L.
+    """Late-time plateau of S_obs / L per curve, with the deficits from S_thermo / L and
+    from S_obs_eq / L.
 
     Parameters
     ----------
     results : results table (columns of :data:`SCALING_COLUMNS` at least).
-    window : last fraction of each curve's time range taken as the plateau window.
+    window : last fraction of each curve's (trusted) time range taken as the plateau
+        window.
 
     Returns
     -------
     One row per (coarse_graining, other parameters, L): the group columns, ``L``,
     ``plateau_per_site``, ``plateau_err`` (formula in the module docstring),
-    ``plateau_spread``, ``plateau_drift`` (+ ``_err``), ``plateau_points``, ``t_first``,
-    ``t_last``, ``window_start``, ``initial_per_site`` (+ ``initial_err``),
-    ``thermo_per_site`` (+ ``thermo_err``), ``deficit_per_site`` (+ ``deficit_err``),
-    ``discarded_weight_max`` and ``pruned_mass_max`` (NaN when the column is absent).
+    ``realizations`` with ``plateau_disorder_err`` and ``plateau_sampling_err``,
+    ``plateau_trunc_err``, ``t_trusted`` and ``trusted_only``, ``plateau_spread``,
+    ``plateau_drift`` (+ ``_err``), ``plateau_points``, ``t_first``, ``t_last``,
+    ``window_start``, ``initial_per_site`` (+ ``initial_err``), ``thermo_per_site``
+    (+ ``thermo_err``), ``deficit_per_site`` (+ ``deficit_err``), ``eq_per_site``
+    (+ ``eq_err``), ``deficit_eq_per_site`` (+ ``deficit_eq_err``),
+    ``discarded_weight_max`` and ``pruned_mass_max`` (NaN when a column is absent).
     Entropies per site in nats.
     """
     _check_options(window=window)
     _, curves = _curves(results, SCALING_COLUMNS)
-    return pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+    return pd.DataFrame([_plateau_row(curve, window) for curve in curves])
 
 
 def _groups(table: pd.DataFrame, what: str):
@@ -359,7 +600,8 @@ def _groups(table: pd.DataFrame, what: str):
 
 
 def extrapolate(plateaus_df: pd.DataFrame) -> pd.DataFrame:
-    """Extrapolate the plateaus to L -> infinity by plateau = a + b / L.
+    """Extrapolate the plateaus to L -> infinity by plateau = a + b / L, and likewise the
+    deficit from the equilibrium value where it is known.
 
     Parameters
     ----------
@@ -369,21 +611,35 @@ def extrapolate(plateaus_df: pd.DataFrame) -> pd.DataFrame:
     -------
     One row per group: the group columns, ``extrapolated_per_site`` (a) and
     ``extrapolated_err``, ``finite_size_slope`` (b) and ``finite_size_slope_err``,
-    ``extrapolation_chi2_red`` (NaN with two lengths, logged) and
-    ``extrapolation_lengths``. Raises InputError for a group with a single L.
+    ``extrapolation_chi2_red`` (NaN with two lengths, logged),
+    ``extrapolation_lengths``, and ``deficit_eq_extrapolated`` (+ ``_err``; NaN unless
+    two or more lengths have a finite ``deficit_eq_per_site``). Raises InputError for a
+    group with a single L.
     """
     rows = []
-    for key, group in _groups(plateaus_df[key_columns(plateaus_df) + [
-            "L", "plateau_per_site", "plateau_err"]], "extrapolation"):
+    keys = key_columns(plateaus_df)
+    shown = varying_columns(plateaus_df, keys[1:])
+    deficits = [c for c in ("deficit_eq_per_site", "deficit_eq_err") if c in plateaus_df]
+    for key, group in _groups(plateaus_df[keys + ["L", "plateau_per_site", "plateau_err",
+                                                  *deficits]], "extrapolation"):
         L = group["L"].to_numpy(dtype=float)
         fit = fit_line(1.0 / L, group["plateau_per_site"], group["plateau_err"])
         if fit.dof == 0:
             log.warning("extrapolation: two lengths for %s; no chi-square test of a + b/L",
-                        _describe(key))
-        rows.append({**key, "extrapolated_per_site": fit.intercept,
-                     "extrapolated_err": fit.intercept_err,
-                     "finite_size_slope": fit.slope, "finite_size_slope_err": fit.slope_err,
-                     "extrapolation_chi2_red": fit.chi2_red, "extrapolation_lengths": L.size})
+                        _describe(key, shown))
+        row = {**key, "extrapolated_per_site": fit.intercept,
+               "extrapolated_err": fit.intercept_err,
+               "finite_size_slope": fit.slope, "finite_size_slope_err": fit.slope_err,
+               "extrapolation_chi2_red": fit.chi2_red, "extrapolation_lengths": L.size,
+               "deficit_eq_extrapolated": np.nan, "deficit_eq_extrapolated_err": np.nan}
+        if deficits:
+            known = np.isfinite(group["deficit_eq_per_site"].to_numpy(dtype=float))
+            if np.unique(L[known]).size >= 2:
+                eq_fit = fit_line(1.0 / L[known], group["deficit_eq_per_site"][known],
+                                  group["deficit_eq_err"][known])
+                row.update(deficit_eq_extrapolated=eq_fit.intercept,
+                           deficit_eq_extrapolated_err=eq_fit.intercept_err)
+        rows.append(row)
     return pd.DataFrame(rows)
 
 
@@ -431,18 +687,19 @@ def _crossing(t: np.ndarray, y: np.ndarray, e: np.ndarray, plateau: float,
     return t_f, float(np.sqrt((per_level * level_err) ** 2 + max(noise_var, grid**2)))
 
 
-def _saturation_rows(curves, plateau_df: pd.DataFrame, fraction: float) -> pd.DataFrame:
+def _saturation_rows(curves: list[_Curve], plateau_df: pd.DataFrame, fraction: float
+                     ) -> pd.DataFrame:
     rows = []
-    for (key, curve), plateau in zip(curves, plateau_df.itertuples(index=False), strict=True):
-        L = key["L"]
-        t_f, t_f_err = _crossing(curve["t"].to_numpy(dtype=float),
-                                 curve["S_obs"].to_numpy(dtype=float) / L,
-                                 curve["S_obs_err"].to_numpy(dtype=float) / L,
+    for curve, plateau in zip(curves, plateau_df.itertuples(index=False), strict=True):
+        L, frame = curve.key["L"], curve.mean
+        t_f, t_f_err = _crossing(frame["t"].to_numpy(dtype=float),
+                                 frame["S_obs"].to_numpy(dtype=float) / L,
+                                 frame["S_obs_err"].to_numpy(dtype=float) / L,
                                  plateau.plateau_per_site, plateau.plateau_err, fraction)
         if not np.isfinite(t_f):
             log.warning("saturation: S_obs/L does not change significantly for %s; "
-                        "its saturation time is NaN", _describe(key))
-        rows.append({**key, "saturation_fraction": fraction, "saturation_time": t_f,
+                        "its saturation time is NaN", curve.name)
+        rows.append({**curve.key, "saturation_fraction": fraction, "saturation_time": t_f,
                      "saturation_time_err": t_f_err})
     return pd.DataFrame(rows)
 
@@ -465,7 +722,7 @@ def saturation_times(results: pd.DataFrame, fraction: float = 0.9, *,
     """
     _check_options(window=window, fraction=fraction)
     _, curves = _curves(results, SCALING_COLUMNS)
-    plateau_df = pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+    plateau_df = pd.DataFrame([_plateau_row(curve, window) for curve in curves])
     return _saturation_rows(curves, plateau_df, fraction)
 
 
@@ -485,6 +742,7 @@ def fit_exponent(saturation_df: pd.DataFrame) -> pd.DataFrame:
     """
     rows = []
     columns = key_columns(saturation_df) + ["L", "saturation_time", "saturation_time_err"]
+    shown = varying_columns(saturation_df, key_columns(saturation_df)[1:])
     for key, group in _groups(saturation_df[columns], "exponent"):
         good = group[np.isfinite(group["saturation_time"]) & (group["saturation_time"] > 0)]
         row = {**key, "z": np.nan, "z_err": np.nan, "z_chi2_red": np.nan,
@@ -492,14 +750,14 @@ def fit_exponent(saturation_df: pd.DataFrame) -> pd.DataFrame:
                "z_lengths": len(good)}
         if len(good) < 2:
             log.warning("exponent: fewer than two lengths with a saturation time for %s; "
-                        "z is NaN", _describe(key))
+                        "z is NaN", _describe(key, shown))
         else:
             t_f = good["saturation_time"].to_numpy(dtype=float)
             fit = fit_line(np.log(good["L"].to_numpy(dtype=float)), np.log(t_f),
                            good["saturation_time_err"].to_numpy(dtype=float) / t_f)
             if fit.dof == 0:
                 log.warning("exponent: two lengths for %s; no chi-square test of t_f ~ L^z",
-                            _describe(key))
+                            _describe(key, shown))
             prefactor = float(np.exp(fit.intercept))
             row.update(z=fit.slope, z_err=fit.slope_err, z_chi2_red=fit.chi2_red,
                        saturation_prefactor=prefactor,
@@ -518,7 +776,7 @@ def scaling_table(results: pd.DataFrame, window: float = 0.3,
     """
     _check_options(window=window, fraction=fraction)
     keys, curves = _curves(results, SCALING_COLUMNS)
-    plateau_df = pd.DataFrame([_plateau_row(key, curve, window) for key, curve in curves])
+    plateau_df = pd.DataFrame([_plateau_row(curve, window) for curve in curves])
     saturation_df = _saturation_rows(curves, plateau_df, fraction)
     table = plateau_df.merge(saturation_df, on=keys + ["L"], how="left")
     table = table.merge(extrapolate(plateau_df), on=keys, how="left")
@@ -538,14 +796,16 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
     One row per (curve, t): the group columns, ``L``, ``t``, ``scaled_time`` =
     t / L**z, ``rise`` = (S_obs/L - initial) / (plateau - initial) (= S_obs / S_plateau
     when S_obs(0) = 0) and ``rise_err`` (from S_obs_err only), plus ``z``, ``z_err`` and
-    ``saturation_fraction`` of the group.
+    ``saturation_fraction`` of the group and the number of disorder ``realizations``
+    averaged (1 without disorder).
     """
     keys, curves = _curves(results, SCALING_COLUMNS, warn=False)  # warned by the table
     require_columns(table, keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
                                    "saturation_fraction"], "scaling table")
     fits = {_canonical(key): rows.iloc[0] for key, rows in split(table, keys + ["L"])}
     parts = []
-    for key, curve in curves:
+    for item in curves:
+        key, curve = item.key, item.mean
         fit = fits.get(_canonical(key))
         if fit is None:
             continue
@@ -557,7 +817,8 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
             "rise": (curve["S_obs"].to_numpy(dtype=float) / L - fit["initial_per_site"]) / change,
             "rise_err": curve["S_obs_err"].to_numpy(dtype=float) / L / abs(change),
             "z": fit["z"], "z_err": fit["z_err"],
-            "saturation_fraction": fit["saturation_fraction"]}))
+            "saturation_fraction": fit["saturation_fraction"],
+            "realizations": len(item.members)}))
     if not parts:
         raise InputError("scaling table: none of its rows matches a curve of the results")
     return pd.concat(parts, ignore_index=True)
@@ -598,21 +859,30 @@ def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
 
 
 def format_value(value: float, err: float) -> str:
-    """'value +- err' with two significant digits of the error ('nan' for NaN; the value
-    alone, 6 significant digits, when the error is 0 or NaN)."""
+    """'value +- err' with two significant digits of the error, the value to the same
+    decimal ('nan' for NaN; the value alone, 6 significant digits, when the error is NaN
+    or below ERROR_FLOOR relative to the value, i.e. exact up to rounding)."""
     if not np.isfinite(value):
         return "nan"
-    if not np.isfinite(err) or err <= 0:
+    if not np.isfinite(err) or err <= ERROR_FLOOR * max(1.0, abs(value)):
         return f"{value:.6g}"
     digits = int(min(10, max(0, 1 - np.floor(np.log10(err)))))
     return f"{value:.{digits}f} +- {err:.{digits}f}"
 
 
+def _known(df: pd.DataFrame, column: str) -> bool:
+    """Whether ``column`` is present with at least one finite value."""
+    return column in df and bool(np.isfinite(df[column].to_numpy(dtype=float)).any())
+
+
 def format_table(df: pd.DataFrame) -> str:
     """The scaling table as text: per-length plateaus, then the fits per group.
 
-    Entropies per site in nats, times in 1/J; every value is followed by its error.
-    Of the parameter columns only those that vary for a coarse-graining are shown.
+    Entropies per site in nats, times in 1/J; every value is followed by its error and
+    printed to the error's precision (:func:`format_value`). Of the parameter columns
+    only those that vary for a coarse-graining are shown. Disorder realizations (R),
+    the truncation error of the plateau and the equilibrium deficit appear where the
+    table has them.
     """
     if df.empty:
         return "(empty scaling table)"
@@ -620,10 +890,19 @@ def format_table(df: pd.DataFrame) -> str:
         df, [c for c in key_columns(df) if c != "coarse_graining"], within="coarse_graining")
     fraction = df["saturation_fraction"].iloc[0]
     per_length = df[keys + ["L"]].copy()
-    for label, value, err in [("plateau/L", "plateau_per_site", "plateau_err"),
-                              ("S_thermo/L", "thermo_per_site", "thermo_err"),
-                              ("deficit/L", "deficit_per_site", "deficit_err"),
-                              (f"t_{fraction:g}", "saturation_time", "saturation_time_err")]:
+    if "realizations" in df and (df["realizations"] > 1).any():
+        per_length["R"] = df["realizations"].to_numpy()
+    columns = [("plateau/L", "plateau_per_site", "plateau_err")]
+    if _known(df, "plateau_trunc_err"):
+        per_length["trunc/L"] = [f"{v:.2g}" for v in df["plateau_trunc_err"]]
+        per_length["t_trusted"] = [f"{v:g}" for v in df["t_trusted"]]
+    columns += [("S_thermo/L", "thermo_per_site", "thermo_err"),
+                ("deficit/L", "deficit_per_site", "deficit_err")]
+    if _known(df, "eq_per_site"):
+        columns += [("S_obs_eq/L", "eq_per_site", "eq_err"),
+                    ("deficit_eq/L", "deficit_eq_per_site", "deficit_eq_err")]
+    columns.append((f"t_{fraction:g}", "saturation_time", "saturation_time_err"))
+    for label, value, err in columns:
         per_length[label] = [format_value(v, e) for v, e in zip(df[value], df[err], strict=True)]
     fits = df.drop_duplicates(keys)
     per_group = fits[keys].copy()
@@ -632,6 +911,11 @@ def format_table(df: pd.DataFrame) -> str:
         format_value(v, e)
         for v, e in zip(fits["extrapolated_per_site"], fits["extrapolated_err"], strict=True)]
     per_group["chi2/dof"] = [f"{v:.2f}" for v in fits["extrapolation_chi2_red"]]
+    if _known(fits, "deficit_eq_extrapolated"):
+        per_group["deficit_eq/L (L->inf)"] = [
+            format_value(v, e) for v, e in zip(fits["deficit_eq_extrapolated"],
+                                               fits["deficit_eq_extrapolated_err"],
+                                               strict=True)]
     per_group[f"z (t_{fraction:g} ~ L^z)"] = [
         format_value(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
     per_group["z chi2/dof"] = [f"{v:.2f}" for v in fits["z_chi2_red"]]

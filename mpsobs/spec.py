@@ -42,7 +42,11 @@ The schema (defaults in brackets; S = sweepable):
   chain-rule estimator; sample_strings: the per-string estimator, for comparison);
   ``samples`` (int >= 1, S) [2000]; ``target_stderr`` (>= 0, 0 = off, S) [0]; ``prune``
   (0 <= p < 1, S) [1e-12].
-- ``[sweep]``: ``zip`` = list of groups of axis names, e.g. [["model.L", "evolution.chi_max"]].
+- ``[sweep]``: ``zip`` = list of groups of axis names, e.g. [["model.L", "evolution.chi_max"]];
+  ``disorder`` = list of seed axes whose values are realizations of one disorder
+  ensemble, from ``model.field.seed`` (needs ``model.field.kind = "random"``) and
+  ``state.seed`` (needs ``state.kind = "random_product"``) [none]. The analysis averages
+  over them (:mod:`mpsobs.scaling`); a disorder axis is zipped only with another one.
 - ``[output]``: ``dir`` (str) [mpsobs-runs/<name>]; ``checkpoint_seconds`` (>= 0) [300].
 
 The resolved point (all defaults filled, axes substituted, gas box and number in sites)
@@ -70,7 +74,8 @@ from mpsobs.estimate import COUNT_MAX_REGIONS
 from mpsobs.printing import short
 
 __all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
-           "MODELS", "STATES", "OBSERVABLES", "FIELD_KINDS", "ESTIMATOR_METHODS"]
+           "fixed_settings", "DISORDER_AXES", "MODELS", "STATES", "OBSERVABLES",
+           "FIELD_KINDS", "ESTIMATOR_METHODS"]
 
 MODELS = ("xxz", "ising")
 STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")
@@ -81,6 +86,10 @@ _SAMPLING_METHODS = ("auto", "sample", "sample_strings")
 GAS_FILLS = ("packed", "spread", "ground")
 RANDOM_DRAWS = ("haar", "basis")
 PATTERN_CHARACTERS = "01+-"
+#: Seed keys that may be marked as disorder axes, with their table column and the
+#: setting each needs (key path, value).
+DISORDER_AXES = {"model.field.seed": ("field_seed", ("model.field.kind", "random")),
+                 "state.seed": ("state_seed", ("state.kind", "random_product"))}
 #: Where runs go when neither the spec nor the command line names a directory.
 DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
 
@@ -220,6 +229,7 @@ class Point:
     params: dict
     columns: dict
     label: str = ""  # the swept values, e.g. "model.L=16 evolution.chi_max=32"
+    disorder: tuple[str, ...] = ()  # parameter columns that label disorder realizations
 
     @property
     def L(self) -> int:
@@ -494,7 +504,7 @@ def _coarse_section(value: Any) -> list[dict]:
 
 
 def _axis_groups(table: dict, axes: list[str]) -> list[tuple[str, ...]]:
-    _unknown("sweep", table, ["zip"])
+    _unknown("sweep", table, ["zip", "disorder"])
     groups = table.get("zip", [])
     shape = "a list of groups of axis names, e.g. [[\"model.L\", \"evolution.chi_max\"]]"
     if not isinstance(groups, list) or not all(isinstance(g, list) for g in groups):
@@ -516,6 +526,51 @@ def _axis_groups(table: dict, axes: list[str]) -> list[tuple[str, ...]]:
         if group not in out:
             out.append(group)
     return out
+
+
+def _disorder_axes(table: dict, body: dict, groups: list[tuple[str, ...]]) -> list[str]:
+    """The ``sweep.disorder`` axis names, checked (seed axes with a random setting, zipped
+    with disorder axes only)."""
+    names = table.get("disorder", [])
+    allowed = ", ".join(DISORDER_AXES)
+    if not isinstance(names, list) or not all(isinstance(n, str) for n in names):
+        raise _fail("sweep.disorder", f"expected a list of seed axis names ({allowed}), "
+                    f"got {names!r}")
+    if len(set(names)) != len(names):
+        raise _fail("sweep.disorder", f"repeated names in {names!r}")
+    axes = [path for group in groups for path in group]
+    for j, name in enumerate(names):
+        where = f"sweep.disorder[{j}]"
+        if name not in DISORDER_AXES:
+            raise _fail(where, f"{name!r} cannot be a disorder axis; allowed: {allowed}")
+        if name not in axes:
+            raise _fail(where, f"{name!r} is not a sweep axis; give it a list of seeds, "
+                        f"e.g. {name} = [1, 2, 3]")
+        setting, needed = DISORDER_AXES[name][1]
+        if _get(body, setting) != needed:
+            raise _fail(where, f"{name!r} draws no disorder unless {setting} = {needed!r} "
+                        f"(got {_get(body, setting)!r})")
+        group = next(g for g in groups if name in g)
+        others = [a for a in group if a not in names]
+        if others:
+            raise _fail(where, f"{name!r} is zipped with {', '.join(others)}, which are "
+                        f"not disorder axes; a realization must not change other parameters")
+    return names
+
+
+def fixed_settings(body: Mapping[str, Any], axes) -> dict:
+    """The part of a resolved spec body that must be equal for two specs to share a run
+    directory: everything that enters the points except the sweep axes ``axes`` (key
+    paths, replaced by a placeholder) and the sweep grouping."""
+    fixed = json.loads(json.dumps({k: v for k, v in body.items()
+                                   if k not in ("name", "description", "output", "sweep")}))
+    for path in axes:
+        try:
+            _get(fixed, path)
+        except (KeyError, TypeError):
+            continue
+        _set(fixed, path, "<sweep axis>")
+    return fixed
 
 
 # --------------------------------------------------------------------------- points
@@ -550,7 +605,8 @@ def _point_seed(run_seed: int, digest: str) -> int:
     return int((int(state[0]) << 31) ^ int(state[1]))
 
 
-def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
+def _resolve_point(body: dict, values: dict[str, Any], index: int,
+                   disorder: tuple[str, ...] = ()) -> Point:
     """Substitute one combination of axis values, fill run-seed defaults, check the
     point's consistency with its chain length and resolve the gas box."""
     p = json.loads(json.dumps(body))  # deep copy of plain data
@@ -583,7 +639,8 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int) -> Point:
     digest = _digest(params)
     label = " ".join(f"{path}={value}" for path, value in values.items())
     return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
-                 params=params, columns=columns, label=label or "single point")
+                 params=params, columns=columns, label=label or "single point",
+                 disorder=disorder)
 
 
 def _check_evolution(evolution: dict) -> None:
@@ -733,10 +790,12 @@ def parse(data: Mapping[str, Any], *, name: str = "run", source: str = "<spec>")
     _unknown("output", out_table, list(_OUTPUT))
     _scalars("output", out_table, _OUTPUT, output, [])
     body["output"] = output
-    groups = _axis_groups(_table("sweep", raw.get("sweep", {})), axes)
-    body["sweep"] = {"zip": [list(g) for g in groups if len(g) > 1]}
+    sweep = _table("sweep", raw.get("sweep", {}))
+    groups = _axis_groups(sweep, axes)
+    disorder = _disorder_axes(sweep, body, groups)
+    body["sweep"] = {"zip": [list(g) for g in groups if len(g) > 1], "disorder": disorder}
     _check_consistency(body)
-    points = _expand(body, groups)
+    points = _expand(body, groups, tuple(DISORDER_AXES[name][0] for name in disorder))
     hashed = {k: v for k, v in body.items() if k not in ("name", "description", "output")}
     hashed["coarse"] = [{k: v for k, v in e.items() if k != "path"} for e in hashed["coarse"]]
     out_dir = Path(output["dir"]) if output["dir"] else DEFAULT_OUTPUT_ROOT / body["name"]
@@ -765,7 +824,8 @@ def _check_consistency(body: dict) -> None:
                     "target_stderr")
 
 
-def _expand(body: dict, groups: list[tuple[str, ...]]) -> list[Point]:
+def _expand(body: dict, groups: list[tuple[str, ...]],
+            disorder: tuple[str, ...] = ()) -> list[Point]:
     choices = []
     for group in groups:
         lists = [_get(body, path) for path in group]
@@ -779,7 +839,7 @@ def _expand(body: dict, groups: list[tuple[str, ...]]) -> list[Point]:
     points, seen = [], {}
     for index, combo in enumerate(itertools.product(*choices)):
         values = {k: v for part in combo for k, v in part.items()}
-        point = _resolve_point(stored, values, index)
+        point = _resolve_point(stored, values, index, disorder)
         if point.point_id in seen:
             raise _fail("sweep", f"points {seen[point.point_id]} and {index} are the same "
                         f"point ({point.label})")

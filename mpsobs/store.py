@@ -16,7 +16,17 @@ Every file is written to a temporary name in the same directory, flushed with fs
 moved into place with :func:`os.replace`, so a reader (or a run killed at any moment)
 sees either the old file or the complete new one, never part of one. A point file
 exists only for a finished point; it is the point's finished flag. Its Parquet schema
-metadata (key ``mpsobs.point``) holds the point's resolved parameters.
+metadata (key ``mpsobs.point``, JSON) holds the point's resolved parameters and, under
+``site_fields``, the longitudinal field h_i of every site (site 0 first, units of J), so
+that a disorder realization can be rebuilt without mpsobs; the merged table holds the
+same per point under the key ``mpsobs.site_fields`` ({point_id: [h_0, ...]}). Every
+column of both carries field metadata ``unit`` and ``description``
+(:data:`mpsobs.columns.DESCRIPTIONS`), readable with ``pyarrow.parquet.read_schema``.
+
+A run directory may grow: a spec that adds values to its sweep lists (another L, more
+disorder seeds, another bond) reuses it, and only the new points are computed. A spec
+that changes anything else (time grid, estimator, coarse-grainings, couplings that are
+not swept) would change the physics of the stored points and is refused.
 """
 
 from __future__ import annotations
@@ -36,8 +46,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from mpsobs import __version__
+from mpsobs.columns import describe
 from mpsobs.errors import InputError
-from mpsobs.spec import Point, RunSpec
+from mpsobs.spec import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
            "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
@@ -58,6 +69,9 @@ _META_KEY = b"mpsobs.point"
 #: ``state<s>_tensor_<i>``; files of another (older) layout are ignored and the point
 #: starts afresh.
 CHECKPOINT_FORMAT = 2
+_FIELDS_KEY = b"mpsobs.site_fields"
+#: Key of a point frame's ``attrs`` holding its per-site field values (set by the kernel).
+SITE_FIELDS_ATTR = "site_fields"
 
 
 class RunDirError(InputError):
@@ -105,8 +119,20 @@ def _write_json(path: Path, obj) -> None:
         tmp.write_text(json.dumps(obj, indent=1) + "\n", encoding="utf-8")
 
 
+def _described(table: pa.Table) -> pa.Table:
+    """The table with ``unit`` and ``description`` metadata on every described column."""
+    fields = []
+    for column in table.schema:
+        info = describe(column.name)
+        if info is not None:
+            column = column.with_metadata({b"unit": info[0].encode(),
+                                           b"description": info[1].encode()})
+        fields.append(column)
+    return table.cast(pa.schema(fields, metadata=table.schema.metadata))
+
+
 def _write_parquet(path: Path, frame: pd.DataFrame, metadata: dict | None = None) -> None:
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    table = _described(pa.Table.from_pandas(frame, preserve_index=False))
     if metadata:
         merged = dict(table.schema.metadata or {})
         merged.update({k.encode() if isinstance(k, str) else k: v.encode()
@@ -131,7 +157,9 @@ def _read_spec_file(root: Path) -> dict | None:
 
 
 def check_target(root: Path, spec: RunSpec) -> None:
-    """Raise RunDirError unless ``root`` is absent, empty, or a run of this same spec.
+    """Raise RunDirError unless ``root`` is absent, empty, a run of this same spec, or a
+    run that this spec grows (:func:`mpsobs.spec.fixed_settings` equal: only the values
+    of sweep axes differ, so the stored points keep their physics).
 
     Reads only; writes nothing.
     """
@@ -147,11 +175,37 @@ def check_target(root: Path, spec: RunSpec) -> None:
             raise RunDirError(f"--out: {root} is not empty and holds no mpsobs run "
                               f"({SPEC_FILE} missing); choose an empty or new directory")
         return
-    if stored.get("run_id") != spec.run_id:
+    if stored.get("run_id") == spec.run_id:
+        return
+    changed = _changed_settings(stored, spec)
+    if changed:
         raise RunDirError(
             f"--out: {root} holds another run (spec {stored.get('name')!r} from "
-            f"{stored.get('source')}); its results would mix with this spec's. Choose "
-            f"another directory (--out or output.dir) or delete that run")
+            f"{stored.get('source')}) whose points differ from this spec's in "
+            f"{', '.join(changed)}, which are not sweep axes; its results would mix with "
+            f"this spec's. Add values to sweep lists only, or choose another directory "
+            f"(--out or output.dir)")
+
+
+def _changed_settings(stored: dict, spec: RunSpec) -> list[str]:
+    """Paths of the settings outside the sweep axes that differ between the stored run
+    and ``spec`` (all of them, as ["the spec"], for a record without its axes)."""
+    if "axes" not in stored or "spec" not in stored:  # written before runs could grow
+        return ["the spec"]
+    axes = {*stored["axes"], *(path for group in spec.axes for path in group)}
+    old, new = fixed_settings(stored["spec"], axes), fixed_settings(spec.body, axes)
+    paths = sorted({*_leaves(old), *_leaves(new)})
+    return [path for path in paths if _leaves(old).get(path) != _leaves(new).get(path)]
+
+
+def _leaves(obj, prefix: str = "") -> dict[str, object]:
+    """Nested tables flattened to {key path: value} (lists are values)."""
+    if not isinstance(obj, dict):
+        return {prefix: obj}
+    out: dict[str, object] = {}
+    for key, value in obj.items():
+        out.update(_leaves(value, f"{prefix}.{key}" if prefix else key))
+    return out
 
 
 def _check_creatable(root: Path) -> None:
@@ -268,7 +322,8 @@ class RunStore:
         """Write a finished point's rows atomically (with its parameters as metadata)."""
         self.points_dir.mkdir(parents=True, exist_ok=True)
         meta = {"point_id": point.point_id, "index": point.index, "seed": point.seed,
-                "label": point.label, "params": point.params, "mpsobs_version": __version__}
+                "label": point.label, "params": point.params, "mpsobs_version": __version__,
+                "site_fields": frame.attrs.get(SITE_FIELDS_ATTR)}
         path = self.point_path(point.point_id)
         _write_parquet(path, frame, {_META_KEY.decode(): json.dumps(meta)})
         log.debug("point %s written (%d rows)", point.point_id, len(frame))
@@ -276,6 +331,11 @@ class RunStore:
 
     def read_point(self, point_id: str) -> pd.DataFrame:
         return pd.read_parquet(self.point_path(point_id))
+
+    def point_metadata(self, point_id: str) -> dict:
+        """The ``mpsobs.point`` metadata of a finished point (parameters, site fields)."""
+        raw = pq.read_schema(self.point_path(point_id)).metadata or {}
+        return json.loads(raw[_META_KEY]) if _META_KEY in raw else {}
 
     # checkpoints -------------------------------------------------------------------
 
@@ -334,17 +394,33 @@ class RunStore:
 
         Returns the merged table (empty if no point has finished).
         """
-        frames = [self.read_point(p.point_id) for p in points if self.finished(p.point_id)]
-        frames = [f for f in frames if len(f)]
+        done = [p for p in points if self.finished(p.point_id)]
+        frames, site_fields = [], {}
+        for point in done:
+            frame = self.read_point(point.point_id)
+            if len(frame):
+                if "disorder_axes" in frame:  # as the current spec marks them
+                    frame["disorder_axes"] = ",".join(point.disorder)
+                frames.append(frame)
+                site_fields[point.point_id] = self.point_metadata(point.point_id).get(
+                    "site_fields")
         merged = (pd.concat(frames, ignore_index=True) if frames else pd.DataFrame())
         if frames:
-            _write_parquet(self.results_path, merged)
+            _write_parquet(self.results_path, merged,
+                           {_FIELDS_KEY.decode(): json.dumps(site_fields)})
         return merged
 
 
-def _spec_record(spec: RunSpec) -> dict:
+def _spec_record(spec: RunSpec, before: dict | None = None) -> dict:
+    """The spec.json record; ``before`` is the record of the run this spec grows."""
+    now = time.strftime("%Y-%m-%dT%H:%M:%S%z")
+    history = [] if before is None else [*before.get("history", []), {
+        key: before.get(key) for key in ("run_id", "name", "source", "updated", "created")}]
     return {"run_id": spec.run_id, "name": spec.name, "source": spec.source,
-            "mpsobs_version": __version__, "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "mpsobs_version": __version__,
+            "created": now if before is None else before.get("created", now),
+            "updated": now, "history": history,
+            "axes": [path for group in spec.axes for path in group],
             "spec": spec.body,
             "points": [{"index": p.index, "point_id": p.point_id, "seed": p.seed,
                         "label": p.label} for p in spec.points]}
@@ -355,7 +431,9 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     """Create (or reopen) the run directory of ``spec`` and hold its lock.
 
     Refuses (RunDirError) a directory of another run or one locked by a live process;
-    a lock left by a dead process on this host is replaced. The spec is written once.
+    a lock left by a dead process on this host is replaced. The spec is written when the
+    directory is new and rewritten when ``spec`` grows the stored run (the earlier run
+    ids are kept in its ``history``).
     """
     root = Path(root)
     check_target(root, spec)
@@ -364,8 +442,12 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     _take_lock(lock)
     try:
         check_target(root, spec)  # another run may have claimed it meanwhile
-        if not (root / SPEC_FILE).exists():
-            _write_json(root / SPEC_FILE, _spec_record(spec))
+        before = _read_spec_file(root)
+        if before is None or before.get("run_id") != spec.run_id:
+            if before is not None:
+                log.info("growing the run in %s (run id %s -> %s)", root,
+                         before.get("run_id", "?")[:12], spec.run_id[:12])
+            _write_json(root / SPEC_FILE, _spec_record(spec, before))
         store = RunStore(root)
         store.remove_temporaries()
         yield store

@@ -11,6 +11,18 @@ samples, whose per-sample variance is extensive). With s_0 = 0 the time to reach
 fraction f of the plateau is t_f = tau_L * ln(1 / (1 - f)), so t_f ~ L**z exactly.
 Every column of :data:`mpsobs.columns.REQUIRED` is filled, with plausible values, so
 that the table can also be plotted.
+
+Options model what real runs add:
+
+- disorder: ``realizations`` = R copies of every point, labelled ``field_seed`` = 0..R-1
+  (column ``disorder_axes`` = "field_seed"); realization r has its own plateau
+  s_L + delta_r with delta_r ~ N(0, disorder_sd**2) drawn from the seed, reached on the
+  same rise: S_obs(t)/L = law + delta_r (1 - exp(-t / tau_L)).
+- truncation: with ``trusted_until`` = t*, the column ``t_trusted`` = t* and, beyond t*,
+  a curve that goes wrong, S_obs/L falling by ``TRUNCATION_SLOPE`` (t - t*) per site, with
+  ``S_obs_trunc_err`` equal to that fall (and TRUNCATION_FLOOR L before t*).
+- equilibrium: with the law's ``s_eq`` set, ``S_obs_eq`` = L s_eq + c_eq with error
+  ``S_obs_eq_err`` = EQUILIBRIUM_ERR L.
 """
 
 from __future__ import annotations
@@ -27,6 +39,12 @@ __all__ = ["SaturationLaw", "saturating_results"]
 
 #: Share of S_obs given to the Shannon part (the rest is the Boltzmann part).
 SHANNON_SHARE = 0.6
+#: Fall of S_obs/L per unit time past the trusted time (nats per site per 1/J).
+TRUNCATION_SLOPE = 0.05
+#: Truncation error per site on trusted times (nats).
+TRUNCATION_FLOOR = 1e-4
+#: Error of the equilibrium value per site (nats).
+EQUILIBRIUM_ERR = 1e-3
 
 
 @dataclass(frozen=True)
@@ -41,6 +59,8 @@ class SaturationLaw:
     s_initial: float = 0.0
     s_thermo: float = 0.65
     c_thermo: float = 0.0
+    s_eq: float = float("nan")
+    c_eq: float = 0.0
 
     def plateau(self, L: int) -> float:
         """Plateau of S_obs / L at length L (nats per site)."""
@@ -58,7 +78,9 @@ class SaturationLaw:
 
 def saturating_results(lengths: Sequence[int], times: np.ndarray,
                        laws: Mapping[str, SaturationLaw], *, stderr: float, seed: int,
-                       parameters: Mapping[str, Sequence] | None = None) -> pd.DataFrame:
+                       parameters: Mapping[str, Sequence] | None = None,
+                       realizations: int = 1, disorder_sd: float = 0.0,
+                       trusted_until: float | None = None) -> pd.DataFrame:
     """A results table: one row per (point, t, coarse-graining).
 
     Parameters
@@ -70,6 +92,9 @@ def saturating_results(lengths: Sequence[int], times: np.ndarray,
     seed : seed of the noise (numpy Generator from a SeedSequence per point).
     parameters : further sweep parameters, name -> values (cartesian product); they do
         not change the curves.
+    realizations, disorder_sd : disorder realizations per point and the standard
+        deviation of their plateaus per site (see the module docstring).
+    trusted_until : the trusted time t* of every curve (None: no truncation columns).
 
     Returns
     -------
@@ -81,33 +106,61 @@ def saturating_results(lengths: Sequence[int], times: np.ndarray,
     tables = []
     combos = itertools.product(lengths, *parameters.values())
     for index, (L, *others) in enumerate(combos):
-        point = {"L": int(L), **dict(zip(parameters, others, strict=True))}
-        point_id = hashlib.sha1(repr(sorted(point.items())).encode()).hexdigest()[:12]
-        rng = np.random.default_rng(np.random.SeedSequence([seed, index]))
-        err = stderr * np.sqrt(L)
-        ent = np.minimum(0.4 * t, 0.5 * L * np.log(2.0) * 0.8)
-        for label, law in laws.items():
-            s_obs = L * law.per_site(L, t) + rng.normal(0.0, err, size=t.size)
-            tables.append(pd.DataFrame({
-                **point,
-                "point_id": point_id,
-                "t": t,
-                "coarse_graining": label,
-                "S_obs": s_obs,
-                "S_obs_err": err,
-                "S_shannon": SHANNON_SHARE * s_obs,
-                "S_shannon_err": SHANNON_SHARE * err,
-                "S_boltzmann": (1.0 - SHANNON_SHARE) * s_obs,
-                "S_boltzmann_err": (1.0 - SHANNON_SHARE) * err,
-                "knowledge": L * np.log(2.0) - s_obs,
-                "S_max": L * np.log(2.0),
-                "S_thermo": L * law.s_thermo + law.c_thermo,
-                "S_thermo_err": 0.0,
-                "S_ent_half": ent,
-                "discarded_weight": 0.0,
-                "max_bond": np.minimum(2 ** (L // 2), 64),
-                "seed": seed,
-                "method": "sampled",
-                "samples": 1000,
-            }))
-    return pd.concat(tables, ignore_index=True)
+        for realization in range(realizations):
+            point = {"L": int(L), **dict(zip(parameters, others, strict=True))}
+            if realizations > 1:
+                point["field_seed"] = realization
+            point_id = hashlib.sha1(repr(sorted(point.items())).encode()).hexdigest()[:12]
+            rng = np.random.default_rng(np.random.SeedSequence([seed, index, realization]))
+            tables += _point_rows(point, point_id, t, laws, stderr, rng, disorder_sd,
+                                  trusted_until, seed)
+    table = pd.concat(tables, ignore_index=True)
+    if realizations > 1:
+        table["disorder_axes"] = "field_seed"
+    return table
+
+
+def _point_rows(point: dict, point_id: str, t: np.ndarray, laws: Mapping[str, SaturationLaw],
+                stderr: float, rng: np.random.Generator, disorder_sd: float,
+                trusted_until: float | None, seed: int) -> list[pd.DataFrame]:
+    """The rows of one synthetic point (one realization), one frame per label."""
+    L = point["L"]
+    err = stderr * np.sqrt(L)
+    ent = np.minimum(0.4 * t, 0.5 * L * np.log(2.0) * 0.8)
+    frames = []
+    for label, law in laws.items():
+        shift = rng.normal(0.0, disorder_sd) if disorder_sd > 0 else 0.0
+        rise = 1.0 - np.exp(-t / law.relaxation_time(L))
+        s_obs = L * (law.per_site(L, t) + shift * rise) + rng.normal(0.0, err, size=t.size)
+        extra = {}
+        if trusted_until is not None:
+            fall = L * TRUNCATION_SLOPE * np.clip(t - trusted_until, 0.0, None)
+            s_obs = s_obs - fall
+            extra = {"S_obs_trunc_err": np.maximum(fall, TRUNCATION_FLOOR * L),
+                     "t_trusted": trusted_until}
+        if np.isfinite(law.s_eq):
+            extra.update(S_obs_eq=L * law.s_eq + law.c_eq, S_obs_eq_err=EQUILIBRIUM_ERR * L)
+        frames.append(pd.DataFrame({
+            **point,
+            "point_id": point_id,
+            "t": t,
+            "coarse_graining": label,
+            "S_obs": s_obs,
+            "S_obs_err": err,
+            "S_shannon": SHANNON_SHARE * s_obs,
+            "S_shannon_err": SHANNON_SHARE * err,
+            "S_boltzmann": (1.0 - SHANNON_SHARE) * s_obs,
+            "S_boltzmann_err": (1.0 - SHANNON_SHARE) * err,
+            "knowledge": L * np.log(2.0) - s_obs,
+            "S_max": L * np.log(2.0),
+            "S_thermo": L * law.s_thermo + law.c_thermo,
+            "S_thermo_err": 0.0,
+            "S_ent_half": ent,
+            "discarded_weight": 1e-9 * t**2,
+            "max_bond": np.minimum(2 ** (L // 2), 64),
+            "seed": seed,
+            "method": "sampled",
+            "samples": 1000,
+            **extra,
+        }))
+    return frames

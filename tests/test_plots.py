@@ -62,12 +62,14 @@ def test_panels_per_coarse_graining_single_column_width_and_shared_colours():
     results = _results()
     colors = plots.length_colors(results.L)
     assert len(set(colors.values())) == len(colors)
-    for make in (plots.entropy_figure, plots.parts_figure, plots.knowledge_figure):
+    for make, extra in ((plots.entropy_figure, 2), (plots.parts_figure, 0),
+                        (plots.knowledge_figure, 0)):
         fig = make(results, colors)
-        panels = [ax for ax in fig.axes if ax.get_visible()]
-        assert len(panels) == len(LAWS)
+        visible = [ax for ax in fig.axes if ax.get_visible()]
+        assert len(visible) == len(LAWS) + extra  # entropy: entanglement, discarded weight
+        panels = visible[:len(LAWS)]
         assert fig.get_size_inches()[0] == pytest.approx(plots.PANEL_WIDTH)
-        assert "1/J" in panels[-1].get_xlabel()
+        assert "1/J" in visible[-1].get_xlabel()
         assert all("nats" in ax.get_ylabel() for ax in panels)
         # the legend maps each L to its colour, the same in every figure
         legend = fig.legends[0]
@@ -83,7 +85,7 @@ def test_panel_titles_name_coarse_graining_and_parameter_values():
     results = _results(Delta=[0.5, 1.0])
     rows = results[results.Delta == 1.0]
     fig = plots.entropy_figure(rows, shown=["Delta"])
-    titles = sorted(ax.get_title() for ax in fig.axes)
+    titles = sorted(ax.get_title() for ax in fig.axes if ax.get_title())
     assert titles == sorted(f"{cg} (Delta = 1.0)" for cg in LAWS)
     # with no parameter given, the ones varying in the rows get panels of their own
     assert len(plots.knowledge_figure(results).axes) == 2 * len(LAWS)
@@ -96,3 +98,92 @@ def test_missing_column_is_named(tmp_path):
     assert not any(tmp_path.iterdir())
     with pytest.raises(InputError, match="run_dir"):
         plots.plot_run(tmp_path / "missing")
+
+
+def _caption(fig) -> str:
+    return fig.legends[0].get_title().get_text()
+
+
+def test_figures_carry_a_caption_of_the_fixed_parameters(tmp_path):
+    results = _results(model=["xxz"], delta=[0.5], chi_max=[64], dt=[0.05],
+                       estimator=["auto"], Delta=[0.5, 1.0])
+    rows = results[results.Delta == 1.0]
+    for make in (plots.entropy_figure, plots.parts_figure, plots.knowledge_figure):
+        fig = make(rows, shown=["Delta"])
+        text = _caption(fig).replace("\n", " ")
+        for part in ("model=xxz", "delta=0.5", "chi_max=64", "dt=0.05", "estimator=auto"):
+            assert part in text, (part, text)
+        assert "Delta" not in text and "L=" not in text  # in the panel titles / legend
+    paths = plots.save_figure(plots.entropy_figure(rows, shown=["Delta"]), tmp_path / "e")
+    _check_files(paths)
+
+
+def test_entanglement_and_discarded_weight_have_their_own_panels():
+    results = _results()
+    fig = plots.entropy_figure(results)
+    ent_ax, weight_ax = fig.axes[-2:]
+    assert "ent" in ent_ax.get_ylabel() and weight_ax.get_yscale() == "log"
+    first = results[results.coarse_graining == sorted(LAWS)[0]]
+    for line, (L, curve) in zip(ent_ax.lines, first.groupby("L"), strict=True):
+        assert np.allclose(line.get_ydata(), curve.sort_values("t").S_ent_half / L)
+    for ax in fig.axes[:len(LAWS)]:  # no entanglement curves among the S_obs curves
+        assert len(ax.lines) == 2 * 2 + 1  # per L: S_obs, S_thermo; then ln 2
+
+
+def test_disorder_mean_is_drawn_with_its_error():
+    results = saturating_results((6, 10), np.linspace(0.0, 30.0, 31), LAWS, stderr=0.02,
+                                 seed=5, realizations=5, disorder_sd=0.05)
+    fig = plots.entropy_figure(results)
+    assert "disorder mean over 5 realizations of field_seed" in _caption(fig).replace(
+        "\n", " ")
+    label = sorted(LAWS)[0]
+    rows = results[(results.coarse_graining == label) & (results.L == 6)]
+    mean = rows.groupby("t").S_obs.mean().to_numpy() / 6
+    assert np.allclose(fig.axes[0].lines[0].get_ydata(), mean)
+    assert len(fig.legends[0].legend_handles) == 2  # one entry per L, not per seed
+
+
+def test_truncation_and_equilibrium_columns_are_drawn():
+    laws = {"number@b2": SaturationLaw(s_inf=0.55, c=-0.8, tau0=0.5, z=1.0, s_eq=0.6)}
+    results = saturating_results((6, 10), np.linspace(0.0, 30.0, 31), laws, stderr=0.02,
+                                 seed=5, trusted_until=20.0)
+    fig = plots.entropy_figure(results)
+    ax = fig.axes[0]
+    faint = [line for line in ax.lines if line.get_alpha() == plots.UNTRUSTED_ALPHA]
+    assert len(faint) == 2 and all(line.get_xdata()[0] == 20.0 for line in faint)
+    eq_lines = [line for line in ax.lines if np.allclose(line.get_ydata(), 0.6)]
+    assert len(eq_lines) == 2
+    # the axis shows the trusted part: the curve that goes wrong later leaves it
+    assert ax.get_ylim()[0] > results.S_obs.min() / 6
+    styles = [t.get_text() for t in fig.legends[1].get_texts()]
+    assert any("Gibbs" in t for t in styles) and any("truncation" in t for t in styles)
+    knowledge = plots.knowledge_figure(results).axes[0]
+    target = [line for line in knowledge.lines if np.allclose(line.get_ydata(),
+                                                              np.log(2.0) - 0.6)]
+    assert len(target) == 2  # (S_max - S_obs_eq)/L per L
+
+
+def test_collapse_log_axis_has_labelled_ticks_within_a_decade():
+    from mpsobs import scaling
+
+    results = _results()
+    table = scaling.scaling_table(results)
+    fig = plots.collapse_figure(scaling.collapse_curves(results, table))
+    fig.canvas.draw()
+    ax = fig.axes[0]
+    ax.set_xlim(0.3, 2.5)  # less than a decade
+    fig.canvas.draw()
+    labels = [t.get_text() for t in ax.get_xticklabels() if t.get_text()]
+    visible = [v for v in ax.get_xticks() if 0.3 <= v <= 2.5]
+    assert len(labels) >= 3 and len(visible) >= 3
+
+
+def test_collapse_of_disorder_means_says_so():
+    from mpsobs import scaling
+
+    results = saturating_results((6, 10), np.linspace(0.0, 30.0, 31), LAWS, stderr=0.02,
+                                 seed=5, realizations=5, disorder_sd=0.05)
+    collapse = scaling.collapse_curves(results, scaling.scaling_table(results))
+    assert (collapse.realizations == 5).all()
+    fig = plots.collapse_figure(collapse)
+    assert "disorder mean over 5 realizations" in _caption(fig).replace("\n", " ")

@@ -247,3 +247,152 @@ def test_unsaturated_curve_is_flagged_and_its_error_widened(caplog):
     assert row.plateau_err >= abs(row.plateau_drift)
     _within(row.plateau_per_site, slow["slow"].per_site(16, [row.t_last])[0],
             row.plateau_err)
+
+
+# --------------------------------------------------------------------------- disorder
+
+DISORDER_LAW = {"number@b2": SaturationLaw(s_inf=0.55, c=-0.8, tau0=0.5, z=1.0,
+                                           s_eq=0.62)}
+REALIZATIONS = 40
+DISORDER_SD = 0.04  # per-site standard deviation of the realizations' plateaus
+DISORDER_TIMES = np.arange(0.0, 100.0 + 1e-9, 1.0)
+
+
+def _disordered(stderr: float = STDERR, **options) -> pd.DataFrame:
+    return saturating_results((8, 12, 16), DISORDER_TIMES, DISORDER_LAW, stderr=stderr,
+                              seed=7, realizations=REALIZATIONS, disorder_sd=DISORDER_SD,
+                              **options)
+
+
+def test_disorder_average_recovers_the_ensemble_plateau_and_its_spread():
+    plateau = scaling.plateaus(_disordered())
+    law = DISORDER_LAW["number@b2"]
+    assert len(plateau) == 3 and (plateau.realizations == REALIZATIONS).all()
+    assert "field_seed" not in plateau.columns  # averaged over, not a group
+    _within(plateau.plateau_per_site, [law.plateau(L) for L in plateau.L],
+            plateau.plateau_err)
+    # sample-to-sample spread: the realizations' plateau deviation plus the sampling
+    # noise of a window mean (n points of per-site error STDERR sqrt(L) / L each)
+    n = plateau.plateau_points.to_numpy()
+    sampling_var = (STDERR * np.sqrt(plateau.L) / plateau.L) ** 2 / n
+    spread = np.sqrt(DISORDER_SD**2 + sampling_var)
+    measured = plateau.plateau_disorder_err * np.sqrt(REALIZATIONS)
+    # standard error of a sample standard deviation: sigma / sqrt(2 (R - 1)) (normal
+    # samples; handbook formula, e.g. Kendall & Stuart, from memory)
+    _within(measured, spread, spread / np.sqrt(2 * (REALIZATIONS - 1)))
+    _within(plateau.plateau_sampling_err, np.sqrt(sampling_var / REALIZATIONS),
+            0.1 * np.sqrt(sampling_var / REALIZATIONS))
+    assert np.allclose(plateau.plateau_err, np.maximum(plateau.plateau_disorder_err,
+                                                       plateau.plateau_sampling_err))
+
+
+def test_disorder_average_of_the_rows():
+    results = _disordered()
+    mean = scaling.disorder_average(results)
+    assert len(mean) == len(results) // REALIZATIONS
+    assert "field_seed" not in mean.columns and "point_id" not in mean.columns
+    by_hand = results.groupby(["L", "t"]).S_obs
+    mean = mean.set_index(["L", "t"]).sort_index()
+    assert np.allclose(mean.S_obs, by_hand.mean())
+    assert np.allclose(mean.S_obs_disorder_err, by_hand.std(ddof=1) / np.sqrt(REALIZATIONS))
+    err = results.groupby(["L", "t"]).S_obs_err.apply(lambda e: np.sqrt(np.sum(e**2)))
+    assert np.allclose(mean.S_obs_sampling_err, err / REALIZATIONS)
+    assert (mean.realizations == REALIZATIONS).all()
+
+
+def test_fits_use_the_disorder_error(caplog):
+    table = scaling.scaling_table(_disordered())
+    law = DISORDER_LAW["number@b2"]
+    row = table.iloc[0]
+    _within(row.extrapolated_per_site, law.s_inf, row.extrapolated_err)
+    # without the disorder marking every seed is a parameter set of its own (with a hint)
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        blind = scaling.plateaus(_disordered().drop(columns=["disorder_axes"]))
+    assert len(blind) == REALIZATIONS * len(table) and "field_seed" in blind.columns
+    assert "mark them with sweep.disorder" in caplog.text
+    text = scaling.format_table(table)
+    assert " R " in text.splitlines()[1] and str(REALIZATIONS) in text
+
+
+# --------------------------------------------------------------------------- truncation
+
+
+def test_only_trusted_times_enter_plateau_and_saturation(caplog):
+    law = DISORDER_LAW["number@b2"]
+    results = saturating_results((8, 12, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
+                                 seed=2, trusted_until=70.0)
+    with caplog.at_level("INFO", logger="mpsobs.scaling"):
+        table = scaling.scaling_table(results)
+    assert "up to t_trusted = 70" in caplog.text
+    assert (table.t_last == 70.0).all() and table.trusted_only.all()
+    _within(table.plateau_per_site, [law.plateau(L) for L in table.L], table.plateau_err)
+    assert np.allclose(table.plateau_trunc_err, 1e-4)  # the synthetic trusted floor
+    rise = [law.relaxation_time(L) * np.log(1 / (1 - FRACTION)) for L in table.L]
+    _within(table.saturation_time, rise, table.saturation_time_err)
+    # without the trusted time the curve that goes wrong late spoils the plateau
+    blind = scaling.plateaus(results.drop(columns=["t_trusted"]))
+    assert np.all(np.abs(blind.plateau_per_site - [law.plateau(L) for L in blind.L])
+                  > SIGMAS * table.plateau_err)
+
+
+def test_too_few_trusted_times_warns_and_widens_the_error(caplog):
+    results = saturating_results((8, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
+                                 seed=2, trusted_until=2.0)
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        plateau = scaling.plateaus(results)
+    assert "only 3 of 101 times" in caplog.text
+    assert not plateau.trusted_only.any()
+    for row in plateau.itertuples():
+        rows = results[(results.L == row.L) & (results.t >= row.window_start)]
+        widened = np.hypot(rows.S_obs_err, rows.S_obs_trunc_err) / row.L
+        assert row.plateau_err >= np.sqrt(np.mean(widened**2) / len(rows))
+
+
+def test_nan_or_infinite_trusted_time_means_every_time():
+    results = saturating_results((8, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
+                                 seed=2)
+    plain = scaling.plateaus(results)
+    for value in (np.nan, np.inf):
+        marked = scaling.plateaus(results.assign(t_trusted=value, S_obs_trunc_err=np.nan))
+        assert marked.trusted_only.all() and np.isinf(marked.t_trusted).all()
+        assert np.array_equal(marked.plateau_per_site, plain.plateau_per_site)
+
+
+# --------------------------------------------------------------------------- equilibrium
+
+
+def test_deficit_against_the_equilibrium_value_and_its_extrapolation():
+    law = DISORDER_LAW["number@b2"]
+    table = scaling.scaling_table(_disordered())
+    assert np.allclose(table.eq_per_site, law.s_eq)
+    assert np.allclose(table.deficit_eq_per_site, law.s_eq - table.plateau_per_site)
+    assert (table.deficit_eq_err >= table.plateau_err).all()
+    row = table.iloc[0]
+    _within(row.deficit_eq_extrapolated, law.s_eq - law.s_inf, row.deficit_eq_extrapolated_err)
+    text = scaling.format_table(table)
+    assert "deficit_eq/L" in text and "deficit_eq/L (L->inf)" in text
+
+
+def test_older_tables_get_nan_equilibrium_and_truncation_columns():
+    table = scaling.scaling_table(_results(STDERR))
+    for name in ("eq_per_site", "deficit_eq_per_site", "deficit_eq_extrapolated",
+                 "plateau_trunc_err", "plateau_disorder_err"):
+        assert table[name].isna().all(), name
+    assert (table.realizations == 1).all() and table.trusted_only.all()
+    assert "deficit_eq" not in scaling.format_table(table)
+
+
+def test_warnings_name_only_the_parameters_that_vary(caplog):
+    slow = {"slow": SaturationLaw(s_inf=0.5, c=0.0, tau0=4.0, z=1.0)}
+    results = saturating_results((8, 16), np.arange(0.0, 60.0, 0.5), slow, stderr=0.001,
+                                 seed=3, parameters={"delta": [0.5], "h": [0.1, 0.2]})
+    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+        scaling.plateaus(results)
+    assert "has not saturated" in caplog.text
+    assert "h=0.1" in caplog.text and "delta" not in caplog.text
+
+
+def test_numbers_are_printed_to_the_precision_of_their_error():
+    assert scaling.format_value(0.123456, 0.0123) == "0.123 +- 0.012"
+    assert scaling.format_value(12.3456, 1.7) == "12.3 +- 1.7"
+    assert scaling.format_value(0.65, 1e-17) == "0.65"  # exact up to rounding

@@ -288,3 +288,51 @@ def test_missing_file_is_an_input_error(tmp_path):
     with pytest.raises(InputError, match="SPEC: no such file"):
         spec.load(tmp_path / "absent.toml")
     assert not os.listdir(tmp_path)
+
+
+DISORDER = {
+    "name": "disorder", "seed": 3,
+    "model": {"name": "xxz", "L": [6, 8], "delta": 1.0,
+              "field": {"kind": "random", "strength": 2.0, "seed": [1, 2, 3]}},
+    "state": {"kind": "neel"},
+    "times": {"t_max": 0.2, "n_times": 3},
+    "coarse": [{"observable": "number", "block": 2}],
+    "sweep": {"disorder": ["model.field.seed"]},
+}
+
+
+def test_disorder_axis_marks_the_points():
+    run = spec.parse(DISORDER)
+    assert len(run.points) == 6
+    assert all(p.disorder == ("field_seed",) for p in run.points)
+    assert run.body["sweep"]["disorder"] == ["model.field.seed"]
+    # the marking is not physics: the points keep their store keys
+    plain = {k: v for k, v in DISORDER.items() if k != "sweep"}
+    assert [p.point_id for p in spec.parse(plain).points] == [p.point_id for p in run.points]
+    assert all(p.disorder == () for p in spec.parse(plain).points)
+
+
+@pytest.mark.parametrize("sweep, field, message", [
+    ({"disorder": "model.field.seed"}, {}, "sweep.disorder: expected a list"),
+    ({"disorder": ["model.L"]}, {}, r"sweep.disorder\[0\]: 'model.L' cannot be a disorder"),
+    ({"disorder": ["state.seed"]}, {}, r"sweep.disorder\[0\]: 'state.seed' is not a sweep"),
+    ({"disorder": ["model.field.seed"]}, {"kind": "uniform"},
+     r"model.field.kind = 'random'"),
+    ({"disorder": ["model.field.seed"], "zip": [["model.L", "model.field.seed"]]},
+     {"seed": [1, 2]}, "zipped with model.L"),
+    ({"disorder": ["model.field.seed", "model.field.seed"]}, {}, "repeated"),
+])
+def test_bad_disorder_axes_name_the_key(sweep, field, message):
+    data = {**DISORDER, "sweep": sweep,
+            "model": {**DISORDER["model"], "field": {**DISORDER["model"]["field"], **field}}}
+    with pytest.raises(InputError, match=message):
+        spec.parse(data)
+
+
+def test_fixed_settings_ignore_sweep_values_only():
+    run = spec.parse(DISORDER)
+    axes = [path for group in run.axes for path in group]
+    grown = spec.parse({**DISORDER, "model": {**DISORDER["model"], "L": [6, 8, 10]}})
+    assert spec.fixed_settings(run.body, axes) == spec.fixed_settings(grown.body, axes)
+    other = spec.parse({**DISORDER, "times": {"t_max": 0.4, "n_times": 3}})
+    assert spec.fixed_settings(run.body, axes) != spec.fixed_settings(other.body, axes)

@@ -39,9 +39,12 @@ def _frame(point: spec.Point, rows: int = 6) -> pd.DataFrame:
     rng = np.random.default_rng(point.seed)
     out = {}
     for name in (*REQUIRED, *EXTRA):
-        if name in ("coarse_graining", "method", "algorithm", "point_id", "mpsobs_version"):
+        if name in ("coarse_graining", "method", "algorithm", "point_id", "mpsobs_version",
+                    "observables"):
             out[name] = [f"{name}-{i}" for i in range(rows)]
-        elif name in ("seed", "max_bond", "samples"):
+        elif name == "disorder_axes":
+            out[name] = ",".join(point.disorder)
+        elif name in ("seed", "max_bond", "samples", "n_observables"):
             out[name] = np.arange(rows, dtype=np.int64)
         else:
             out[name] = rng.random(rows)
@@ -220,3 +223,53 @@ def test_lock_refuses_a_second_run_and_replaces_a_stale_one(tmp_path):
     with store.open_run(root, run):
         pass
     assert not lock.exists()
+
+
+def test_column_units_and_descriptions_in_the_parquet_schema(tmp_path):
+    import pyarrow.parquet as pq
+
+    from mpsobs.columns import describe
+
+    run = _run_spec()
+    with store.open_run(tmp_path / "run", run) as st:
+        for point in run.points:
+            st.write_point(point, _frame(point))
+        st.merge(run.points)
+    for path in (st.point_path(run.points[0].point_id), st.results_path):
+        schema = pq.read_schema(path)
+        assert schema.field("S_obs").metadata == {b"unit": b"nats", b"description":
+                                                  describe("S_obs")[1].encode()}
+        assert schema.field("t").metadata[b"unit"] == b"1/J"
+        assert schema.field("L").metadata[b"description"] == b"chain length in sites"
+        for name in schema.names:  # every column of the table is described
+            assert b"description" in (schema.field(name).metadata or {}), name
+
+
+def test_growing_a_run_accepts_new_sweep_values_and_refuses_other_changes(tmp_path):
+    root = tmp_path / "run"
+    first = _run_spec()
+    with store.open_run(root, first):
+        pass
+    grown = _run_spec(model={**SPEC["model"], "L": [8, 10, 12]},
+                      evolution={"chi_max": [16]})
+    store.check_target(root, grown)
+    with store.open_run(root, grown):
+        pass
+    record = json.loads((root / store.SPEC_FILE).read_text())
+    assert record["run_id"] == grown.run_id
+    assert record["history"][0]["run_id"] == first.run_id
+    assert "evolution.chi_max" in record["axes"] and "model.L" in record["axes"]
+    # changes to the physics of the stored points are refused, naming the settings
+    for changes, named in (({"times": {"t_max": 0.4, "n_times": 3}}, "times.values"),
+                           ({"estimator": {"samples": 500}}, "estimator.samples"),
+                           ({"coarse": [{"observable": "number", "block": 4}]}, "coarse")):
+        other = _run_spec(model={**SPEC["model"], "L": [8, 10, 12]},
+                          evolution={"chi_max": [16]}, **changes)
+        with pytest.raises(store.RunDirError, match=f"differ .* in {named}"):
+            store.check_target(root, other)
+    # a record written before runs could grow (no axes) accepts only its own spec
+    record.pop("axes")
+    (root / store.SPEC_FILE).write_text(json.dumps(record))
+    store.check_target(root, grown)
+    with pytest.raises(store.RunDirError, match="the spec"):
+        store.check_target(root, first)

@@ -3,6 +3,7 @@ worker settings, progress) and the real point kernel against a dense reference."
 
 from __future__ import annotations
 
+import json
 import os
 import sys
 import uuid
@@ -11,6 +12,7 @@ from pathlib import Path
 import cloudpickle
 import numpy as np
 import pandas as pd
+import pyarrow.parquet as pq
 import pytest
 
 from mpsobs import spec, store, sweep
@@ -393,3 +395,70 @@ def test_equilibrium_value_lies_between_gibbs_entropy_and_maximum(path):
         assert (rows["S_obs_eq"] <= rows["S_max"] + slack).all()
         # the free-fermion GGE value is NaN off XX chains
         assert rows["S_obs_gge"].isna().all()
+
+
+GROW_SPEC = {
+    "name": "grow", "seed": 5,
+    "model": {"name": "xxz", "L": [4, 6], "delta": 1.0,
+              "field": {"kind": "random", "strength": 1.5, "seed": [1, 2]}},
+    "state": {"kind": "neel"},
+    "evolution": {"dt": 0.05, "chi_max": 8},
+    "times": {"values": [0.0, 0.1]},
+    "coarse": [{"observable": "number", "block": 2},
+               {"observable": ["number", "energy"], "block": 2}],
+    "estimator": {"method": "exact"},
+    "sweep": {"disorder": ["model.field.seed"]},
+}
+
+
+def _grown() -> spec.RunSpec:
+    return spec.parse({**GROW_SPEC, "model": {**GROW_SPEC["model"], "L": [4, 6, 8],
+                       "field": {**GROW_SPEC["model"]["field"], "seed": [1, 2, 3]}}})
+
+
+def _sweep(run: spec.RunSpec, root, scheduler: str) -> sweep.SweepReport:
+    with store.open_run(root, run) as st:
+        return sweep.run_sweep(run, st, scheduler=scheduler)
+
+
+def test_grown_run_computes_only_the_new_points_and_equals_a_fresh_run(tmp_path, scheduler):
+    first = _sweep(spec.parse(GROW_SPEC), tmp_path / "grown", scheduler)
+    assert first.computed == 4
+    grown = _grown()
+    report = _sweep(grown, tmp_path / "grown", scheduler)
+    # one more L and one more seed: 3 x 3 points, of which 2 x 2 were there
+    assert (report.total, report.skipped, report.computed) == (9, 4, 5)
+    fresh = _sweep(grown, tmp_path / "fresh", scheduler)
+    drop = ["elapsed_s"]
+    pd.testing.assert_frame_equal(report.table.drop(columns=drop),
+                                  fresh.table.drop(columns=drop))
+    table = report.table
+    assert set(table.disorder_axes) == {"field_seed"}
+    asked = table.drop_duplicates("coarse_graining").set_index("coarse_graining")
+    assert asked.observables.to_dict() == {"number:b2": "number",
+                                           "number:b2>energy:b2": "number,energy"}
+    assert asked.n_observables.to_dict() == {"number:b2": 1, "number:b2>energy:b2": 2}
+
+
+def test_stored_site_fields_rebuild_the_model(tmp_path, scheduler):
+    from mpsobs import models
+    from mpsobs.point import build_model
+
+    run = spec.parse(GROW_SPEC)
+    root = tmp_path / "run"
+    _sweep(run, root, scheduler)
+    st = store.RunStore(root)
+    merged = json.loads(pq.read_schema(st.results_path).metadata[b"mpsobs.site_fields"])
+    for point in run.points:
+        fields = st.point_metadata(point.point_id)["site_fields"]
+        assert merged[point.point_id] == fields
+        field = point.params["model"]["field"]
+        # the documented draw, with numpy alone: uniform in [-strength, strength)
+        expected = np.random.default_rng(field["seed"]).uniform(
+            -field["strength"], field["strength"], size=point.L)
+        assert np.array_equal(fields, expected)
+        rebuilt = models.xxz(point.L, J=1.0, delta=1.0, h=fields)
+        original = build_model(point.params["model"], point.L)
+        assert len(rebuilt.terms) == len(original.terms)
+        for a, b in zip(rebuilt.terms, original.terms, strict=True):
+            assert a.start == b.start and np.array_equal(a.matrix, b.matrix)
