@@ -145,6 +145,7 @@ PARAMETER_DESCRIPTIONS: dict[str, tuple[str, str]] = {
     "chi_max": ("", "largest bond dimension allowed in TEBD"),
     "cutoff": ("", "TEBD truncation cutoff (discarded weight per bond)"),
     "chi_check": ("", "bond dimension of the truncation-check evolution (0 = off)"),
+    "trust_rtol": ("", "relative tolerance of the trusted time range (evolution.trust_rtol)"),
     "estimator": ("", "estimator method asked for in the spec"),
     "sample_budget": ("", "samples per estimate asked for in the spec"),
     "target_stderr": ("nats", "target standard error of sampling (0 = off)"),

@@ -119,12 +119,8 @@ TRUSTED_TIME = "t_trusted"
 EQUILIBRIUM = "S_obs_eq"
 EQUILIBRIUM_ERR = "S_obs_eq_err"
 DISORDER_AXES = "disorder_axes"
-#: Result columns that newer runs add and :data:`mpsobs.columns.EXTRA` may not name yet
-#: (never taken for parameters), besides the disorder-mean columns made here.
-_NEWER_RESULTS = (TRUNCATION_ERROR, "S_shannon_trunc_err", "S_boltzmann_trunc_err",
-                  "check_discarded_weight", TRUSTED_TIME, EQUILIBRIUM, EQUILIBRIUM_ERR,
-                  "S_obs_gge", DISORDER_AXES, "S_obs_disorder_err", "S_obs_sampling_err",
-                  "realizations")
+#: Columns of disorder means made here (never taken for parameters).
+_DISORDER_MEAN_COLUMNS = ("S_obs_disorder_err", "S_obs_sampling_err", "realizations")
 #: A curve is scaled on its trusted times alone when at least this many remain.
 MIN_TRUSTED_POINTS = 4
 #: Values averaged over disorder with the error of their mean.
@@ -243,7 +239,7 @@ def disorder_columns(results: pd.DataFrame) -> list[str]:
 
 def _parameters(results: pd.DataFrame) -> list[str]:
     """Parameter columns that are not disorder labels."""
-    skip = {*disorder_columns(results), *_NEWER_RESULTS}
+    skip = {*disorder_columns(results), *_DISORDER_MEAN_COLUMNS}
     return [c for c in parameter_columns(results.columns) if c not in skip]
 
 
