@@ -14,9 +14,10 @@
    all up) and the disordered XXZ chain of runs/block-scan.toml (delta = 1, random field
    of strength 0.5, seed 77; Neel start), L = 64 and 128, number and energy blocks of 4
    (second-order TEBD, dt = 0.1).
-   Per-sample variance ratio old / new; wall time of each estimator to a standard error
-   of 0.1 nats (``target_stderr``, same state, same run) and their ratio; the flop rate
-   of ``draw_conditional`` against the zgemm rate.
+   Per-sample variance ratio old / new (``--pilot`` samples each); wall time of each
+   estimator to a standard error of 0.1 nats, as the samples needed (variance / 0.1^2)
+   times the best-of time per sample of a full batch, same state, same run, and their
+   ratio; the flop rate of ``draw_conditional`` against the zgemm rate.
 
 Section 4 adds to each table row whether the two estimates agree (|difference| over the
 combined standard error).
@@ -67,19 +68,6 @@ def zgemm_rate(n: int = 1024, repeats: int = 3) -> float:
     return 8.0 * n**3 / best
 
 
-def timed_samples(blocks, n: int, repeats: int) -> tuple[float, float]:
-    """Best-of-``repeats`` wall time and counted flops of drawing n samples in one batch."""
-    best, flops = np.inf, 0.0
-    for seed in range(repeats):
-        uniforms = np.random.default_rng(seed).random((n, len(blocks)))
-        t0 = time.perf_counter()
-        batch = draw_samples(blocks, uniforms)
-        wall = time.perf_counter() - t0
-        if wall < best:
-            best, flops = wall, batch.flops
-    return best, flops
-
-
 def quimb_rate(state: mpsmod.MPS, n: int) -> float:
     """Samples per second of quimb's MatrixProductState.sample from its fastest sample
     (best-of, as for ours), after the first one, which includes its canonicalisation."""
@@ -122,10 +110,29 @@ def quench_state(name: str, L: int, bond: int, cache: Path | None) -> tuple[mpsm
     return snap.state, snap.t
 
 
+def timed_batch(draw, n_blocks: int, n: int, repeats: int) -> tuple[float, float]:
+    """Best-of-``repeats`` wall time and counted flops of one batch of n samples."""
+    best, flops = np.inf, 0.0
+    for seed in range(repeats):
+        uniforms = np.random.default_rng(seed).random((n, n_blocks))
+        t0 = time.perf_counter()
+        batch = draw(uniforms)
+        wall = time.perf_counter() - t0
+        if wall < best:
+            best, flops = wall, batch.flops
+    return best, flops
+
+
 def compare_estimators(names, lengths, bond, cache, target, pilot, repeats) -> None:
-    """Section 4: one table row per model, L and coarse-graining."""
+    """Section 4: one table row per model, L and coarse-graining.
+
+    The per-sample variances come from ``pilot`` samples of each estimator (seed 1); the
+    time to the target error is n = variance / target^2 samples times the best-of
+    wall time per sample of a full batch (per-sample work does not change along a run).
+    """
     print(f"\n4. conditional ('sample') vs per-string ('sample_strings') sampling on quench "
-          f"states at bond {bond}; target standard error {target} nats")
+          f"states at bond {bond}; target standard error {target} nats; variances from "
+          f"{pilot} samples each")
     print(f"{'model':>6} {'L':>4} {'t':>5} {'blocks':>9} {'var old':>9} {'var new':>9} "
           f"{'ratio':>7} {'n old':>7} {'n new':>6} {'s old':>8} {'s new':>7} {'speed-up':>9} "
           f"{'GFLOP/s':>8} {'zgemm':>6} {'rate':>5} {'|dS|/err':>8}")
@@ -133,40 +140,33 @@ def compare_estimators(names, lengths, bond, cache, target, pilot, repeats) -> N
         for L in lengths:
             t0 = time.perf_counter()
             state, t = quench_state(name, L, bond, cache)
-            logline = f"   ({name} L = {L} state at t = {t}: {time.perf_counter() - t0:.0f} s)"
-            print(logline, flush=True)
+            print(f"   ({name} L = {L} state at t = {t}: {time.perf_counter() - t0:.0f} s)",
+                  flush=True)
             model = QUENCHES[name][0](L)
             for cg in (coarse.blocks(L, 4), coarse.blocks(L, 4, "energy", model=model)):
-                runs = {}
-                for method in ("sample_strings", "sample"):
-                    r = mps_observational_entropy(state, cg, method=method, samples=pilot,
-                                                  seed=1)
-                    var = (r.stderr * np.sqrt(r.samples)) ** 2
-                    t0 = time.perf_counter()
-                    full = mps_observational_entropy(state, cg, method=method, seed=2,
-                                                     target_stderr=target)
-                    runs[method] = (var, full.samples, time.perf_counter() - t0, full)
-                old, new = runs["sample_strings"], runs["sample"]
-                agree = abs(old[3].entropy - new[3].entropy) / np.hypot(old[3].stderr,
-                                                                         new[3].stderr)
                 blocks = readout_blocks(canonical_state(state, L), cg)
                 weights = [outcome_weights(b) for b in blocks]
                 n = default_batch(blocks)
-                draw_conditional(blocks, weights, np.zeros((8, len(blocks))))  # warm-up
-                before = zgemm_rate()
-                best, flops = np.inf, 0.0
-                for seed in range(repeats):
-                    uniforms = np.random.default_rng(seed).random((n, len(blocks)))
-                    t0 = time.perf_counter()
-                    batch = draw_conditional(blocks, weights, uniforms)
-                    wall = time.perf_counter() - t0
-                    if wall < best:
-                        best, flops = wall, batch.flops
-                peak = max(before, zgemm_rate())
+                draws = {"sample_strings": lambda u, b=blocks: draw_samples(b, u),
+                         "sample": lambda u, b=blocks, w=weights: draw_conditional(b, w, u)}
+                rows = {}
+                for method, draw in draws.items():
+                    r = mps_observational_entropy(state, cg, method=method, samples=pilot,
+                                                  seed=1)
+                    var = (r.stderr * np.sqrt(r.samples)) ** 2
+                    draw(np.zeros((8, len(blocks))))  # warm-up
+                    before = zgemm_rate()
+                    wall, flops = timed_batch(draw, len(blocks), n, repeats)
+                    peak = max(before, zgemm_rate())
+                    needed = int(np.ceil(var / target**2))
+                    rows[method] = (var, needed, needed * wall / n, flops / wall, peak, r)
+                old, new = rows["sample_strings"], rows["sample"]
+                agree = abs(old[5].entropy - new[5].entropy) / np.hypot(old[5].stderr,
+                                                                         new[5].stderr)
                 print(f"{name:>6} {L:4d} {t:5.2f} {cg.label:>9} {old[0]:9.3g} {new[0]:9.3g} "
                       f"{old[0] / new[0]:7.1f} {old[1]:7d} {new[1]:6d} {old[2]:8.1f} "
-                      f"{new[2]:7.1f} {old[2] / new[2]:9.1f} {flops / best / 1e9:8.1f} "
-                      f"{peak / 1e9:6.1f} {flops / best / peak:5.2f} {agree:8.2f}", flush=True)
+                      f"{new[2]:7.1f} {old[2] / new[2]:9.1f} {new[3] / 1e9:8.1f} "
+                      f"{new[4] / 1e9:6.1f} {new[3] / new[4]:5.2f} {agree:8.2f}", flush=True)
 
 
 def main() -> None:
@@ -212,9 +212,9 @@ def per_string_sections(args) -> None:
         t0 = time.perf_counter()
         blocks = readout_blocks(canonical_state(state, L), cg)
         setup = time.perf_counter() - t0
-        timed_samples(blocks, 8, 1)  # warm-up
+        timed_batch(lambda u, b=blocks: draw_samples(b, u), len(blocks), 8, 1)  # warm-up
         before = zgemm_rate()
-        wall, flops = timed_samples(blocks, n, reps)
+        wall, flops = timed_batch(lambda u, b=blocks: draw_samples(b, u), len(blocks), n, reps)
         peak = max(before, zgemm_rate())
         t0 = time.perf_counter()
         mps_observational_entropy(state, cg, method="sample_strings", samples=n, seed=2)
@@ -230,8 +230,8 @@ def per_string_sections(args) -> None:
     for L in (64, 128, 256):
         state = mpsmod.random_mps(L, bond, seed=L)
         blocks = readout_blocks(canonical_state(state, L), coarse.blocks(L, 4))
-        timed_samples(blocks, 8, 1)
-        wall, flops = timed_samples(blocks, n, reps)
+        timed_batch(lambda u, b=blocks: draw_samples(b, u), len(blocks), 8, 1)
+        wall, flops = timed_batch(lambda u, b=blocks: draw_samples(b, u), len(blocks), n, reps)
         ours = n / wall
         per_sample[L] = wall / n
         theirs = quimb_rate(state, args.quimb_samples)
