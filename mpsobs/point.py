@@ -145,7 +145,6 @@ def initial_state(params: dict, model: models.Model, evolution: dict, *,
     product state stands in for it (for :func:`check_point`).
     """
     L, kind = model.L, params["kind"]
-    stand_in = states.product_state("0" * L)
     if kind == "product":
         return states.product_state(params["pattern"] * (L // len(params["pattern"])))
     if kind == "domain_wall":
@@ -157,14 +156,14 @@ def initial_state(params: dict, model: models.Model, evolution: dict, *,
         args = (L, start, stop, params["number"], params["fill"])
         if cheap_only and params["fill"] == "ground":
             states.check_gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
-            return stand_in
+            return _empty_chain(L)
         return states.gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
     if kind == "random_product":
         return states.random_product_state(L, params["seed"], params["draw"])
     if kind == "ground":
         pre = build_model({**params["prequench"], "name": model.name}, L)
         if cheap_only:
-            return stand_in
+            return _empty_chain(L)
         return states.ground_state(pre, max_bond=evolution["chi_max"]).state
     raise InputError(f"state.kind: unknown {kind!r}")
 
@@ -260,6 +259,11 @@ def _estimator_seed(point_seed: int, time_index: int, cg_index: int) -> int:
                .generate_state(1, np.uint64)[0] >> 1)
 
 
+def _empty_chain(L: int) -> MPS:
+    """Every site in |0>: a bond-1 stand-in state for the checks."""
+    return states.product_state("0" * L)
+
+
 def _prepare(point: Point) -> tuple[models.Model, list, list[dict]]:
     """The point's model, coarse-grainings and estimator options."""
     p = point.params
@@ -285,7 +289,7 @@ def check_point(point: Point) -> None:
     state = initial_state(p["state"], model, evo, cheap_only=True)
     tebd.evolve(state, model, p["times"]["values"], max_bond=evo["chi_max"],
                 cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"])
-    blank = states.product_state("0" * model.L)
+    blank = _empty_chain(model.L)
     for j, (label, _, cg) in enumerate(cgs):
         try:
             observational_entropy(blank, cg, seed=_estimator_seed(point.seed, 0, j),

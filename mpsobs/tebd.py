@@ -534,14 +534,15 @@ def _run(chain: _Chain, model: Model, ts: np.ndarray, t0: float, max_bond: int,
     try:
         for t in ts:
             step_list = _step_lengths(float(t - t_now), dt)
-            for parity, tau in _layer_schedule(order, step_list):
-                with kernel_threads(chain.max_bond()):  # not held across the yield
+            # the limit (chosen by the bond at the start of the interval) is not held
+            # across the yield: the caller's own work runs with its own threads
+            with kernel_threads(chain.max_bond()):
+                for parity, tau in _layer_schedule(order, step_list):
                     discarded += chain.apply_layer(parity, gates.layer(parity, tau),
                                                    max_bond, cutoff)
+                norm2, e, ent = chain.readout(bond_hams)
             steps += len(step_list)
             bar.update(float(t - t_now))
-            with kernel_threads(chain.max_bond()):
-                norm2, e, ent = chain.readout(bond_hams)
             t_now = float(t)
             logger.debug("t = %g: max bond %d, discarded %.3g", t_now, chain.max_bond(),
                          discarded)

@@ -1,6 +1,7 @@
-"""The point kernel's truncation check: the check evolution at a smaller bond against
+"""The point kernel: its truncation check (the check evolution at a smaller bond against
 exact evolution, at round-off for an exact bond, across a resume, and the trusted-time
-rule."""
+rule), and check_point, the cheap half of compute_point (no DMRG, no time step), with its
+refusals named by point and coarse-graining."""
 
 from __future__ import annotations
 
@@ -10,7 +11,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mpsobs import models, spec
+from mpsobs import models, point, spec, tebd
+from mpsobs.errors import InputError
 from mpsobs.point import ROUNDOFF_NATS, compute_point, trusted_time
 
 TRUNC_COLUMNS = ["S_obs_trunc_err", "S_shannon_trunc_err", "S_boltzmann_trunc_err",
@@ -199,3 +201,33 @@ def test_trusted_time_is_one_value_per_coarse_graining_in_the_rows():
                             curve["S_obs_trunc_err"].to_numpy(), 0.01)
         assert curve["t_trusted"].iloc[0] == want
     assert rows["t_trusted"].min() < 4.0   # bond 4 fails the check within the run
+
+
+def _points(state: dict, coarse: list[dict], L=12) -> tuple:
+    return spec.parse({"model": {"name": "xxz", "L": L, "delta": 0.5}, "state": state,
+                       "times": {"values": [0.0, 1.0]}, "coarse": coarse}).points
+
+
+def _forbid(*_args, **_kwargs):
+    raise AssertionError("the check ran an expensive kernel")
+
+
+@pytest.mark.parametrize("state", [
+    {"kind": "ground", "prequench": {"delta": 2.0}},
+    {"kind": "gas", "box": [2, 8], "number": 3, "fill": "ground"},
+    {"kind": "random_product", "draw": "haar"},
+])
+def test_check_runs_no_dmrg_and_no_time_step(state, monkeypatch):
+    monkeypatch.setattr(models, "dmrg", _forbid)
+    monkeypatch.setattr(tebd._Chain, "apply_layer", _forbid)
+    (p,) = _points(state, [{"observable": ["number", "energy"], "block": 3}])
+    point.check_point(p)
+
+
+def test_refusal_names_the_point_and_the_coarse_graining():
+    points = _points({"kind": "neel"}, [{"observable": "number", "block": 13,
+                                         "label": "wide"}], L=[26, 52])
+    point.check_points(points[:1])   # two blocks at L = 26: counted exactly
+    with pytest.raises(InputError, match=r"point 1 \(model.L=52\): coarse-graining 'wide': "
+                                         r"coarse_graining: blocks wider than 12"):
+        point.check_points(points)
