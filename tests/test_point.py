@@ -11,9 +11,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mpsobs import models, point, spec, tebd
+from mpsobs import models, spec, tebd
 from mpsobs.errors import InputError
-from mpsobs.point import ROUNDOFF_NATS, compute_point, trusted_time
+from mpsobs.point import ROUNDOFF_NATS, check_point, check_points, compute_point, trusted_time
 
 TRUNC_COLUMNS = ["S_obs_trunc_err", "S_shannon_trunc_err", "S_boltzmann_trunc_err",
                  "check_discarded_weight", "t_trusted"]
@@ -221,13 +221,13 @@ def test_check_runs_no_dmrg_and_no_time_step(state, monkeypatch):
     monkeypatch.setattr(models, "dmrg", _forbid)
     monkeypatch.setattr(tebd._Chain, "apply_layer", _forbid)
     (p,) = _points(state, [{"observable": ["number", "energy"], "block": 3}])
-    point.check_point(p)
+    check_point(p)
 
 
 def test_refusal_names_the_point_and_the_coarse_graining():
     points = _points({"kind": "neel"}, [{"observable": "number", "block": 13,
                                          "label": "wide"}], L=[26, 52])
-    point.check_points(points[:1])   # two blocks at L = 26: counted exactly
+    check_points(points[:1])   # two blocks at L = 26: counted exactly
     with pytest.raises(InputError, match=r"point 1 \(model.L=52\): coarse-graining 'wide': "
                                          r"coarse_graining: blocks wider than 12"):
-        point.check_points(points)
+        check_points(points)
