@@ -494,7 +494,9 @@ def evolve(state, model: Model, times: Sequence[float], *, max_bond: int, cutoff
         ``max_bond >= BLOCKS_MIN_BOND``, else "none". Both give the same states up to
         rounding (and the order of equal singular values at a truncation).
 
-    Bad arguments raise InputError at the call, before anything is computed.
+    Bad arguments raise InputError at the call, before anything is computed. The steps
+    run under the library's BLAS thread limit (:mod:`mpsobs.threads`), which is released
+    while a snapshot is with the caller.
     """
     if not isinstance(model, Model):
         raise InputError(f"model: expected an mpsobs.models.Model, got {type(model).__name__}")

@@ -45,8 +45,11 @@ ENV_VAR = "MPSOBS_THREADS"
 #: Environment variables by which a user sets the BLAS/OpenMP thread count directly.
 BLAS_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 #: Kernels on matrices smaller than this (a bond dimension, or a dense dimension) run on
-#: one thread under "auto"; measured crossover on 2 cores in scripts/bench_threads.py.
-SMALL_BOND = 128
+#: one thread under "auto". On the 2-core development machine (shared) two BLAS threads
+#: were 5-35x slower than one at every bond measured, 16..128 (scripts/bench_threads.py),
+#: so the rule keeps one thread beyond them; machines with many idle cores may gain from
+#: set_threads("blas") or a count at bonds of several hundred.
+SMALL_BOND = 512
 
 _lock = threading.Lock()
 _setting: int | str | None = None   # from set_threads; None: not set in this process
