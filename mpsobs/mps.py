@@ -75,18 +75,7 @@ class PurifiedMPS:
     discarded_weight: float = 0.0
 
     def __post_init__(self) -> None:
-        arrs = tuple(np.asarray(t, dtype=complex) for t in self.tensors)
-        if not arrs:
-            raise InputError("state: a purification needs at least one site")
-        for i, t in enumerate(arrs):
-            if t.ndim != 3 or t.shape[1] != 4:
-                raise InputError(f"state: purification tensor {i} has shape {t.shape}, "
-                                 f"expected (left bond, 4 = physical x ancilla, right bond)")
-            if i and arrs[i - 1].shape[2] != t.shape[0]:
-                raise InputError(f"state: bond {i - 1}-{i} dimensions disagree "
-                                 f"({arrs[i - 1].shape[2]} vs {t.shape[0]})")
-        if arrs[0].shape[0] != 1 or arrs[-1].shape[2] != 1:
-            raise InputError("state: the outer bonds of a purification must have dimension 1")
+        arrs = _chain_tensors(self.tensors, 4, "purification")
         object.__setattr__(self, "tensors", arrs)
 
     @property
@@ -104,23 +93,32 @@ class PurifiedMPS:
                 f"error={self.error:.3g}, discarded_weight={self.discarded_weight:.3g})")
 
 
-def _validated(tensors) -> MPS:
+def _chain_tensors(tensors, local_dim: int, kind: str) -> tuple[np.ndarray, ...]:
+    """Complex (left, local_dim, right) arrays of an open chain, checked: matching bonds,
+    outer bonds of dimension 1 (``kind`` names the state in the errors)."""
     arrs = tuple(np.asarray(t, dtype=complex) for t in tensors)
     if not arrs:
-        raise InputError("state: an MPS needs at least one site")
+        raise InputError(f"state: {kind} needs at least one site")
+    legs = ("(left bond, physical, right bond)" if local_dim == 2 else
+            f"(left bond, {local_dim} = physical x ancilla, right bond)")
     for i, t in enumerate(arrs):
         if t.ndim != 3:
-            raise InputError(f"state: MPS tensor {i} has {t.ndim} legs, expected 3 "
-                             f"(left bond, physical, right bond)")
-        if t.shape[1] != 2:
-            raise InputError(f"state: site {i} has local dimension {t.shape[1]}; mpsobs "
-                             f"handles spin-1/2 chains (local dimension 2) only")
+            raise InputError(f"state: {kind} tensor {i} has {t.ndim} legs, expected 3 {legs}")
+        if t.shape[1] != local_dim:
+            raise InputError(f"state: {kind} tensor {i} (site {i}) has local dimension "
+                             f"{t.shape[1]}, expected {local_dim} {legs}; mpsobs handles "
+                             f"spin-1/2 chains only")
         if i and arrs[i - 1].shape[2] != t.shape[0]:
             raise InputError(f"state: bond {i - 1}-{i} dimensions disagree "
                              f"({arrs[i - 1].shape[2]} vs {t.shape[0]})")
     if arrs[0].shape[0] != 1 or arrs[-1].shape[2] != 1:
-        raise InputError("state: the outer bonds of an open-chain MPS must have dimension 1")
-    return MPS(arrs)
+        raise InputError(f"state: the outer bonds of an open-chain {kind} must have "
+                         f"dimension 1")
+    return arrs
+
+
+def _validated(tensors) -> MPS:
+    return MPS(_chain_tensors(tensors, 2, "MPS"))
 
 
 def from_quimb(qmps) -> MPS:
