@@ -197,31 +197,37 @@ def _reference(model: models.Model, state: MPS, energy: float, cgs, options: lis
         if abs(number - round(number)) < NUMBER_TOL:
             number = float(round(number))
         if number in (0.0, float(model.L)):
-            eq = [_estimate(state, cg, opts, seed, 0.0)
-                  for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
-            return _Reference(0.0, 0.0, math.nan, math.nan, *map(tuple, zip(*eq, strict=True)),
+            return _Reference(0.0, 0.0, math.nan, math.nan,
+                              *_equilibrium_values(state, 0.0, cgs, options, seeds),
                               S_obs_gge=(math.nan,) * len(cgs))
     xx = _is_xx(model)
     ensemble = "canonical" if xx and number is not None and number.is_integer() else "grand"
     gibbs = thermo.gibbs(model, energy, number, ensemble=ensemble)
     gge = thermo.gge(model, state) if xx else None
-    eq = [(math.nan, math.nan)] * len(cgs)
+    eq_values = eq_errors = (math.nan,) * len(cgs)
     sector = int(number) if ensemble == "canonical" else None
     mu = None if sector is not None else gibbs.mu
     if np.isfinite(gibbs.beta) and (mu is None or np.isfinite(mu)):
         rho = thermo.gibbs_state(model, gibbs.beta, mu, number=sector,
                                  max_bond=min(max_bond, EQ_MAX_BOND))
-        eq = [_estimate(rho, cg, opts, seed, rho.error)
-              for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
+        eq_values, eq_errors = _equilibrium_values(rho, rho.error, cgs, options, seeds)
     else:
         log.warning("S_obs_eq: no Gibbs state at beta = %g, mu = %s (ground or ceiling "
                     "energy, or infinite temperature off half filling); NaN", gibbs.beta, mu)
     gge_obs = tuple(_gge_entropy(gge, cg) for _, _, cg in cgs)
-    eq_values, eq_errors = (tuple(col) for col in zip(*eq, strict=True))
     return _Reference(S_thermo=float(gibbs.entropy), S_thermo_err=float(gibbs.entropy_err),
                       beta=float(gibbs.beta),
                       S_gge=float(gge.entropy) if gge is not None else math.nan,
                       S_obs_eq=eq_values, S_obs_eq_err=eq_errors, S_obs_gge=gge_obs)
+
+
+def _equilibrium_values(state, trace_distance: float, cgs, options: list[dict],
+                       seeds: list[int]) -> tuple[tuple[float, ...], tuple[float, ...]]:
+    """(S_obs per coarse-graining, their errors) of an equilibrium state (:func:`_estimate`)."""
+    eq = [_estimate(state, cg, opts, seed, trace_distance)
+          for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
+    values, errors = zip(*eq, strict=True)
+    return tuple(values), tuple(errors)
 
 
 def _estimate(state, cg: coarse.BlockCoarseGraining, options: dict, seed: int,
