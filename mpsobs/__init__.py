@@ -13,25 +13,39 @@ One import gives the whole library::
                              times=[0.0, 1.0, 2.0], coarse={"observable": "number",
                                                             "block": 4})
 
-Functions: :func:`observational_entropy`, :func:`evolve` (TEBD, :mod:`mpsobs.tebd`),
-:func:`run_quench` (one quench as table rows, :mod:`mpsobs.quench`),
-:func:`set_threads` / :func:`using_threads` (:mod:`mpsobs.threads`). Submodules are
-attributes, imported on first use (``mpsobs.models``, ``mpsobs.states``,
-``mpsobs.coarse``, ``mpsobs.thermo``, ...).
+The package is built in layers, each importing only from the layers before it
+(DEVELOPERS.md): ``core`` (errors, printing, threads), ``mps`` (tensors, truncation, the
+evolution kernel), ``chain`` (models, states, coarse-grainings, TEBD of a model),
+``estimators``, ``references`` (free fermions, Gibbs states), ``pipeline`` (specs, points,
+the run store, the Dask sweep), ``analysis`` (scaling, figures) and the application
+(``workflow``, ``cli``). The modules a user reaches for are attributes of the package,
+imported on first use, under their short names (``mpsobs.models`` is
+:mod:`mpsobs.chain.models`, ``mpsobs.tebd`` is :mod:`mpsobs.chain.evolution`, ...).
 """
 
 from __future__ import annotations
 
 import importlib
 
-__version__ = "0.1.0"
+from mpsobs.core.version import __version__
 
-#: Submodules reachable as attributes of the package (imported on first access).
-SUBMODULES = ("blocktensors", "cli", "coarse", "columns", "dense", "entropy", "errors",
-              "estimate", "gaussian", "models", "mps", "plots", "point", "quench",
-              "random_states", "result", "scaling", "spec", "states", "store", "sweep",
-              "synthetic", "tebd", "thermo", "threads")
-#: Functions and classes of the package namespace: name -> defining module.
+#: Short names of the modules reachable as package attributes -> their full module path.
+SUBMODULES = {
+    "errors": "core.errors", "printing": "core.printing", "threads": "core.threads",
+    "mps": "mps",
+    "models": "chain.models", "states": "chain.states", "coarse": "chain.coarse",
+    "random_states": "chain.random_states", "tebd": "chain.evolution",
+    "dense": "estimators.dense", "blocktensors": "estimators.blocktensors",
+    "estimate": "estimators.estimate", "result": "estimators.result",
+    "entropy": "estimators.entropy",
+    "gaussian": "references.gaussian", "thermo": "references.thermo",
+    "spec": "pipeline.spec", "columns": "pipeline.columns", "point": "pipeline.point",
+    "quench": "pipeline.quench", "store": "pipeline.store", "sweep": "pipeline.sweep",
+    "scaling": "analysis.scaling", "plots": "analysis.plots",
+    "synthetic": "analysis.synthetic",
+    "workflow": "workflow", "cli": "cli",
+}
+#: Functions and classes of the package namespace: name -> defining module (short name).
 _FUNCTIONS = {"observational_entropy": "entropy", "evolve": "tebd", "run_quench": "quench",
               "set_threads": "threads", "using_threads": "threads",
               "InputError": "errors", "EntropyResult": "result"}
@@ -41,9 +55,10 @@ __all__ = ["__version__", *_FUNCTIONS, *SUBMODULES]
 
 def __getattr__(name: str):
     if name in _FUNCTIONS:
-        value = getattr(importlib.import_module(f"mpsobs.{_FUNCTIONS[name]}"), name)
+        module = importlib.import_module(f"mpsobs.{SUBMODULES[_FUNCTIONS[name]]}")
+        value = getattr(module, name)
     elif name in SUBMODULES:
-        value = importlib.import_module(f"mpsobs.{name}")
+        value = importlib.import_module(f"mpsobs.{SUBMODULES[name]}")
     else:
         raise AttributeError(f"module 'mpsobs' has no attribute {name!r}")
     globals()[name] = value

@@ -14,10 +14,9 @@ from __future__ import annotations
 import argparse
 import logging
 import sys
-from pathlib import Path
 
-from mpsobs import __version__
-from mpsobs.errors import InputError
+from mpsobs.core.errors import InputError
+from mpsobs.core.version import __version__
 
 __all__ = ["main", "build_parser"]
 
@@ -117,39 +116,21 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _cmd_run(args) -> int:
-    from mpsobs import point as points
-    from mpsobs import spec as specs
-    from mpsobs import store, sweep
+    from mpsobs import workflow
+    from mpsobs.pipeline.store import RESULTS_FILE
 
-    spec = specs.load(args.spec)
-    out = Path(args.out) if args.out else spec.output_dir
-    sweep.check_execution(args.workers, args.scheduler)
-    store.check_target(out, spec)  # refuse before any work and before anything is written
-    points.check_points(spec.points)
-    if args.scheduler is not None:
-        sweep.reach_scheduler(args.scheduler)
-    with store.open_run(out, spec) as run:
-        handler = logging.FileHandler(run.root / store.LOG_FILE, encoding="utf-8")
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
-                                               "%(message)s"))
-        handler.setLevel(logging.INFO)
-        logging.getLogger("mpsobs").addHandler(handler)
-        try:
-            log.info("run %s (%s) into %s: %d points", spec.name, spec.source, out,
-                     len(spec.points))
-            report = sweep.run_sweep(spec, run, workers=args.workers,
-                                     scheduler=args.scheduler, kernel=None,
-                                     progress=not args.no_progress)
-            figures = _figures(run.root) if not (args.no_plots or report.table.empty) else []
-        finally:
-            logging.getLogger("mpsobs").removeHandler(handler)
-            handler.close()
+    outcome = workflow.run(args.spec, args.out, workers=args.workers,
+                           scheduler=args.scheduler, progress=not args.no_progress,
+                           figures=not args.no_plots)
+    report = outcome.report
     print(f"mpsobs: {report.total} points: {report.computed} computed, {report.skipped} "
           f"finished before, {len(report.failed)} failed")
     if not report.table.empty:
-        print(f"mpsobs: table {out / store.RESULTS_FILE} ({len(report.table)} rows)")
-    if figures:
-        print(f"mpsobs: {len(figures)} figure files in {figures[0].parent}")
+        print(f"mpsobs: table {outcome.root / RESULTS_FILE} ({len(report.table)} rows)")
+    if outcome.figures_skipped:
+        print(f"mpsobs: no figures: {outcome.figures_skipped}", file=sys.stderr)
+    if outcome.figures:
+        print(f"mpsobs: {len(outcome.figures)} figure files in {outcome.figures[0].parent}")
     for failure in report.failed:
         kind = "error" if failure.bad_input else failure.error
         print(f"mpsobs: {kind}: point {failure.point.point_id} ({failure.point.label}): "
@@ -162,22 +143,10 @@ def _cmd_run(args) -> int:
     return 0
 
 
-def _figures(root: Path) -> list[Path]:
-    from mpsobs import plots
-
-    try:
-        return plots.plot_run(root)
-    except InputError as exc:  # the table is kept; figures are an extra
-        print(f"mpsobs: no figures: {exc}", file=sys.stderr)
-        return []
-
-
 def _cmd_check(args) -> int:
-    from mpsobs import point as points
-    from mpsobs import spec as specs
+    from mpsobs import workflow
 
-    spec = specs.load(args.spec)
-    points.check_points(spec.points)
+    spec = workflow.check(args.spec)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
                      for group in spec.axes) or "none"
     print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "
@@ -192,25 +161,25 @@ def _cmd_check(args) -> int:
 
 
 def _cmd_template(args) -> int:
-    from mpsobs import spec as specs
+    from mpsobs.pipeline import spec as specs
 
     sys.stdout.write(specs.default_spec_path().read_text(encoding="utf-8"))
     return 0
 
 
 def _cmd_plot(args) -> int:
-    from mpsobs import plots
+    from mpsobs import workflow
 
-    paths = plots.plot_run(args.run_dir)
-    for path in paths:
+    for path in workflow.plot(args.run_dir):
         print(path)
     return 0
 
 
 def _cmd_scale(args) -> int:
-    from mpsobs import scaling
+    from mpsobs import workflow
+    from mpsobs.analysis import scaling
 
-    table = scaling.scale_run(args.run_dir, window=args.window, fraction=args.fraction)
+    table = workflow.scale(args.run_dir, window=args.window, fraction=args.fraction)
     print(scaling.format_table(table))
     return 0
 

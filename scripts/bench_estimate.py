@@ -41,17 +41,17 @@ from pathlib import Path
 
 import numpy as np
 
-from mpsobs import coarse, models, states
-from mpsobs import mps as mpsmod
-from mpsobs.blocktensors import outcome_weights, readout_blocks
-from mpsobs.estimate import (
+from mpsobs.chain import coarse, models, states
+from mpsobs.chain.evolution import evolve
+from mpsobs.estimators.blocktensors import outcome_weights, readout_blocks
+from mpsobs.estimators.estimate import (
     canonical_state,
     default_batch,
     draw_conditional,
     draw_samples,
     mps_observational_entropy,
 )
-from mpsobs.tebd import evolve
+from mpsobs.mps import tensors as mpsmod
 
 
 def zgemm_rate(n: int = 1024, repeats: int = 3) -> float:

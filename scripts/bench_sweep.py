@@ -25,7 +25,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from mpsobs import spec, store, sweep
+from mpsobs.pipeline import spec, store, sweep
 
 POINTS = 8
 

@@ -26,10 +26,10 @@ import time
 import numpy as np
 import quimb.tensor as qtn
 
-from mpsobs import models
-from mpsobs.mps import to_quimb
-from mpsobs.states import neel
-from mpsobs.tebd import BLOCKS_MIN_BOND, evolve
+from mpsobs.chain import models
+from mpsobs.chain.evolution import BLOCKS_MIN_BOND, evolve
+from mpsobs.chain.states import neel
+from mpsobs.mps.tensors import to_quimb
 
 #: Evolution time per max bond: long enough for the middle bond to reach the maximum.
 DEFAULT_TIMES = {8: 3.0, 16: 3.5, 32: 4.5, 64: 5.5, 128: 6.5}

@@ -27,9 +27,11 @@ import time
 
 import numpy as np
 
-from mpsobs import coarse, evolve, gaussian, observational_entropy, states, thermo
-from mpsobs.models import energy, ising, xxz
-from mpsobs.point import EQ_MAX_BOND
+from mpsobs import evolve, observational_entropy
+from mpsobs.chain import coarse, states
+from mpsobs.chain.models import energy, ising, xxz
+from mpsobs.pipeline.point import EQ_MAX_BOND
+from mpsobs.references import gaussian, thermo
 
 
 def timed(func):

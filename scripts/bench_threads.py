@@ -28,9 +28,9 @@ for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         sys.exit(f"unset {_name} for this benchmark (it compares thread counts)")
 
 import mpsobs  # noqa: E402
-from mpsobs import coarse, models  # noqa: E402
-from mpsobs.mps import random_mps  # noqa: E402
-from mpsobs.threads import SMALL_BOND, using_threads  # noqa: E402
+from mpsobs.chain import coarse, models  # noqa: E402
+from mpsobs.core.threads import SMALL_BOND, using_threads  # noqa: E402
+from mpsobs.mps.tensors import random_mps  # noqa: E402
 
 L = 32
 BONDS = (16, 32, 64, 128, 256)

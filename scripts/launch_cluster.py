@@ -31,8 +31,9 @@ from __future__ import annotations
 import argparse
 import sys
 
-from mpsobs import cli, spec, store, sweep
-from mpsobs.errors import InputError
+from mpsobs import cli
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import spec, store, sweep
 
 SYSTEMS = ("slurm", "pbs")
 

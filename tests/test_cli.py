@@ -17,8 +17,9 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from mpsobs import cli, spec, store, sweep
-from mpsobs.columns import REQUIRED
+from mpsobs import cli
+from mpsobs.pipeline import spec, store, sweep
+from mpsobs.pipeline.columns import REQUIRED
 
 # Four points of comparable cost (a second or two each on one core).
 SPEC = """\

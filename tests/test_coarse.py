@@ -11,9 +11,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from mpsobs import coarse, models
-from mpsobs.errors import InputError
-from mpsobs.random_states import random_hermitian
+from mpsobs.chain import coarse, models
+from mpsobs.chain.random_states import random_hermitian
+from mpsobs.core.errors import InputError
 
 
 @pytest.mark.parametrize(("call", "word"), [

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 import pytest
 
-from mpsobs import columns, spec
-from mpsobs.point import ROW_COLUMNS
+from mpsobs.pipeline import columns, spec
+from mpsobs.pipeline.point import ROW_COLUMNS
 
 #: Specs whose points together have every kind of parameter column.
 SPECS = [

@@ -16,8 +16,8 @@ import scipy.linalg as sla
 from scipy.special import rel_entr
 
 import mpsobs
-from mpsobs import coarse, models
-from mpsobs.random_states import random_density_matrix, random_hermitian, random_vector
+from mpsobs.chain import coarse, models
+from mpsobs.chain.random_states import random_density_matrix, random_hermitian, random_vector
 
 LN2 = np.log(2.0)
 

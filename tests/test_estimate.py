@@ -15,16 +15,16 @@ import quimb.tensor as qtn
 from scipy.stats import binom
 
 import mpsobs
-from mpsobs import coarse, dense, models, states
-from mpsobs import mps as mpsmod
-from mpsobs.blocktensors import (
+from mpsobs.chain import coarse, models, states
+from mpsobs.core.errors import InputError
+from mpsobs.estimators import dense
+from mpsobs.estimators.blocktensors import (
     conditional_probabilities,
     outcome_weights,
     readout_blocks,
     transfer,
 )
-from mpsobs.errors import InputError
-from mpsobs.estimate import (
+from mpsobs.estimators.estimate import (
     canonical_state,
     conditional_terms,
     draw_conditional,
@@ -32,6 +32,7 @@ from mpsobs.estimate import (
     mps_observational_entropy,
     pruned_entropy_bound,
 )
+from mpsobs.mps import tensors as mpsmod
 
 # --------------------------------------------------------------------------- builders
 

@@ -14,10 +14,10 @@ import scipy.linalg as sla
 from scipy.sparse.linalg import expm_multiply
 from scipy.special import gammaln, jv
 
-from mpsobs import gaussian
-from mpsobs.errors import InputError
-from mpsobs.models import ising, xxz
-from mpsobs.mps import from_dense, product_mps, random_mps, to_dense
+from mpsobs.chain.models import ising, xxz
+from mpsobs.core.errors import InputError
+from mpsobs.mps.tensors import from_dense, product_mps, random_mps, to_dense
+from mpsobs.references import gaussian
 
 _SIGMA_Z = np.diag([1.0, -1.0])
 _RAISE_N = np.array([[0.0, 0.0], [1.0, 0.0]])  # |1><0|: creates a particle

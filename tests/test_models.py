@@ -9,9 +9,9 @@ from functools import reduce
 import numpy as np
 import pytest
 
-from mpsobs import models
-from mpsobs.errors import InputError
-from mpsobs.mps import random_mps, to_dense
+from mpsobs.chain import models
+from mpsobs.core.errors import InputError
+from mpsobs.mps.tensors import random_mps, to_dense
 
 SX = np.array([[0, 1], [1, 0]], dtype=complex)
 SY = np.array([[0, -1j], [1j, 0]], dtype=complex)

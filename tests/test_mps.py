@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 import quimb.tensor as qtn
 
-from mpsobs import mps
-from mpsobs.errors import InputError
-from mpsobs.random_states import random_vector
+from mpsobs.chain.random_states import random_vector
+from mpsobs.core.errors import InputError
+from mpsobs.mps import tensors as mps
 
 
 def test_quimb_round_trip_and_amplitudes():

@@ -29,7 +29,7 @@ def test_bare_import_gives_functions_and_submodules():
     done = subprocess.run([sys.executable, "-c", SCRIPT], capture_output=True, text=True,
                           timeout=300)
     assert done.returncode == 0, done.stderr
-    assert done.stdout.split() == ["function", "mpsobs.thermo", "mpsobs.tebd"]
+    assert done.stdout.split() == ["function", "mpsobs.references.thermo", "mpsobs.chain.evolution"]
 
 
 def test_all_names_resolve_and_unknown_names_raise():

@@ -12,9 +12,10 @@ import pandas as pd
 import pytest
 from matplotlib.colors import to_rgba
 
-from mpsobs import plots
-from mpsobs.errors import InputError
-from mpsobs.synthetic import SaturationLaw, saturating_results
+from mpsobs import workflow
+from mpsobs.analysis import plots
+from mpsobs.analysis.synthetic import SaturationLaw, saturating_results
+from mpsobs.core.errors import InputError
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 PDF_MAGIC = b"%PDF-"
@@ -38,7 +39,7 @@ def test_plot_run_writes_one_set_per_parameter_value(tmp_path):
     results = _results(Delta=[0.5, 1.0])
     results["block_size"] = 2  # fixed by the coarse-graining: no figures of its own
     results.to_parquet(tmp_path / "results.parquet")
-    paths = plots.plot_run(tmp_path)
+    paths = workflow.plot(tmp_path)
     names = sorted(p.name for p in paths)
     expected = sorted(f"{kind}_Delta={delta}{suffix}"
                       for kind in ("entropy", "parts", "knowledge")
@@ -97,7 +98,7 @@ def test_missing_column_is_named(tmp_path):
         plots.plot_results(results, tmp_path)
     assert not any(tmp_path.iterdir())
     with pytest.raises(InputError, match="run_dir"):
-        plots.plot_run(tmp_path / "missing")
+        workflow.plot(tmp_path / "missing")
 
 
 def _caption(fig) -> str:
@@ -164,7 +165,7 @@ def test_truncation_and_equilibrium_columns_are_drawn():
 
 
 def test_collapse_log_axis_has_labelled_ticks_within_a_decade():
-    from mpsobs import scaling
+    from mpsobs.analysis import scaling
 
     results = _results()
     table = scaling.scaling_table(results)
@@ -179,7 +180,7 @@ def test_collapse_log_axis_has_labelled_ticks_within_a_decade():
 
 
 def test_collapse_of_disorder_means_says_so():
-    from mpsobs import scaling
+    from mpsobs.analysis import scaling
 
     results = saturating_results((6, 10), np.linspace(0.0, 30.0, 31), LAWS, stderr=0.02,
                                  seed=5, realizations=5, disorder_sd=0.05)

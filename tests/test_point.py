@@ -11,9 +11,17 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mpsobs import models, spec, tebd
-from mpsobs.errors import InputError
-from mpsobs.point import ROUNDOFF_NATS, check_point, check_points, compute_point, trusted_time
+from mpsobs.chain import evolution as tebd
+from mpsobs.chain import models
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import spec
+from mpsobs.pipeline.point import (
+    ROUNDOFF_NATS,
+    check_point,
+    check_points,
+    compute_point,
+    trusted_time,
+)
 
 TRUNC_COLUMNS = ["S_obs_trunc_err", "S_shannon_trunc_err", "S_boltzmann_trunc_err",
                  "check_discarded_weight", "t_trusted"]

@@ -8,9 +8,12 @@ import pandas as pd
 import pytest
 
 import mpsobs
-from mpsobs import blocktensors, coarse, gaussian, models, spec, states, store, sweep, thermo
-from mpsobs.printing import with_error
-from mpsobs.result import EntropyResult, OutcomeDistribution
+from mpsobs.chain import coarse, models, states
+from mpsobs.core.printing import with_error
+from mpsobs.estimators import blocktensors
+from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
+from mpsobs.pipeline import spec, store, sweep
+from mpsobs.references import gaussian, thermo
 
 L = 512
 LIMIT = 300

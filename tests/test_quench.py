@@ -6,9 +6,10 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
-from mpsobs import models, quench, spec
-from mpsobs.errors import InputError
-from mpsobs.point import compute_point
+from mpsobs.chain import models
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import quench, spec
+from mpsobs.pipeline.point import compute_point
 
 MODEL = {"name": "xxz", "L": 8, "delta": 0.0, "field": {"kind": "staggered", "strength": 0.3}}
 COARSE = [{"observable": "number", "block": [2, 4]}, {"observable": "energy", "block": 2}]

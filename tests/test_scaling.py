@@ -13,9 +13,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mpsobs import scaling
-from mpsobs.errors import InputError
-from mpsobs.synthetic import SaturationLaw, saturating_results
+from mpsobs import workflow
+from mpsobs.analysis import scaling
+from mpsobs.analysis.synthetic import SaturationLaw, saturating_results
+from mpsobs.core.errors import InputError
 
 LENGTHS = (8, 12, 16, 24)
 TIMES = np.arange(0.0, 200.0 + 1e-9, 0.5)
@@ -154,7 +155,7 @@ def test_notebook_functions_agree_with_table():
 def test_scale_run_writes_tables_and_collapse(tmp_path):
     results = _results(STDERR)
     results.to_parquet(tmp_path / "results.parquet")
-    table = scaling.scale_run(tmp_path, window=0.3, fraction=FRACTION)
+    table = workflow.scale(tmp_path, window=0.3, fraction=FRACTION)
     for name in ("scaling.csv", "scaling.parquet", "figures/collapse.png",
                  "figures/collapse.pdf"):
         assert (tmp_path / name).stat().st_size > 0, name
@@ -186,7 +187,7 @@ def test_columns_fixed_by_length_or_coarse_graining_do_not_split_groups(caplog):
     results["chi_max"] = 8 * results.L  # swept together with L
     results["block_size"] = results.coarse_graining.str[-1].astype(int)
     results["field_seed"] = None  # an unset parameter: object column of None
-    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
         table = scaling.scaling_table(results)
     assert "chi_max change(s) together with L" in caplog.text
     assert len(scaling.collapse_curves(results, table)) == len(results)
@@ -210,7 +211,7 @@ def test_single_length_is_an_error(tmp_path):
         scaling.scaling_table(results)
     results.to_parquet(tmp_path / "results.parquet")
     with pytest.raises(InputError, match="only one chain length"):
-        scaling.scale_run(tmp_path)
+        workflow.scale(tmp_path)
     assert not (tmp_path / "scaling.csv").exists()
     assert not (tmp_path / "figures").exists()
     # the per-length plateaus alone do not need several lengths
@@ -226,7 +227,7 @@ def test_bad_options_and_tables_are_rejected(tmp_path):
     with pytest.raises(InputError, match="several rows share the same t"):
         scaling.scaling_table(pd.concat([results, results]))
     with pytest.raises(InputError, match="run_dir"):
-        scaling.scale_run(tmp_path / "missing")
+        workflow.scale(tmp_path / "missing")
     unknown = results.copy()
     unknown.loc[3, "S_obs_err"] = np.nan
     with pytest.raises(InputError, match="S_obs_err is not a finite number in 1 rows"):
@@ -240,7 +241,7 @@ def test_unsaturated_curve_is_flagged_and_its_error_widened(caplog):
     slow = {"slow": SaturationLaw(s_inf=0.5, c=0.0, tau0=4.0, z=1.0)}
     results = saturating_results((8, 16), np.arange(0.0, 60.0, 0.5), slow,
                                  stderr=0.001, seed=3)
-    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
         plateau = scaling.plateaus(results)
     assert "has not saturated" in caplog.text
     row = plateau[plateau.L == 16].iloc[0]
@@ -306,7 +307,7 @@ def test_fits_use_the_disorder_error(caplog):
     row = table.iloc[0]
     _within(row.extrapolated_per_site, law.s_inf, row.extrapolated_err)
     # without the disorder marking every seed is a parameter set of its own (with a hint)
-    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
         blind = scaling.plateaus(_disordered().drop(columns=["disorder_axes"]))
     assert len(blind) == REALIZATIONS * len(table) and "field_seed" in blind.columns
     assert "mark them with sweep.disorder" in caplog.text
@@ -321,7 +322,7 @@ def test_only_trusted_times_enter_plateau_and_saturation(caplog):
     law = DISORDER_LAW["number@b2"]
     results = saturating_results((8, 12, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
                                  seed=2, trusted_until=70.0)
-    with caplog.at_level("INFO", logger="mpsobs.scaling"):
+    with caplog.at_level("INFO", logger="mpsobs.analysis.scaling"):
         table = scaling.scaling_table(results)
     assert "up to t_trusted = 70" in caplog.text
     assert (table.t_last == 70.0).all() and table.trusted_only.all()
@@ -338,7 +339,7 @@ def test_only_trusted_times_enter_plateau_and_saturation(caplog):
 def test_too_few_trusted_times_warns_and_widens_the_error(caplog):
     results = saturating_results((8, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
                                  seed=2, trusted_until=2.0)
-    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
         plateau = scaling.plateaus(results)
     assert "only 3 of 101 times" in caplog.text
     assert not plateau.trusted_only.any()
@@ -386,7 +387,7 @@ def test_warnings_name_only_the_parameters_that_vary(caplog):
     slow = {"slow": SaturationLaw(s_inf=0.5, c=0.0, tau0=4.0, z=1.0)}
     results = saturating_results((8, 16), np.arange(0.0, 60.0, 0.5), slow, stderr=0.001,
                                  seed=3, parameters={"delta": [0.5], "h": [0.1, 0.2]})
-    with caplog.at_level("WARNING", logger="mpsobs.scaling"):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
         scaling.plateaus(results)
     assert "has not saturated" in caplog.text
     assert "h=0.1" in caplog.text and "delta" not in caplog.text

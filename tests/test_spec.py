@@ -8,9 +8,10 @@ from pathlib import Path
 
 import pytest
 
-from mpsobs import cli, spec
-from mpsobs.columns import EXTRA, REQUIRED
-from mpsobs.errors import InputError
+from mpsobs import cli
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import spec
+from mpsobs.pipeline.columns import EXTRA, REQUIRED
 
 RUNS = Path(__file__).resolve().parents[1] / "runs"
 

@@ -6,9 +6,9 @@ from functools import reduce
 import numpy as np
 import pytest
 
-from mpsobs import models, states
-from mpsobs.errors import InputError
-from mpsobs.mps import MPS, right_canonical_defect, to_dense
+from mpsobs.chain import models, states
+from mpsobs.core.errors import InputError
+from mpsobs.mps.tensors import MPS, right_canonical_defect, to_dense
 
 KET = {"0": np.array([1, 0], complex), "1": np.array([0, 1], complex),
        "+": np.array([1, 1], complex) / np.sqrt(2), "-": np.array([1, -1], complex) / np.sqrt(2)}

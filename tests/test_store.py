@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from mpsobs import spec, store
-from mpsobs.columns import EXTRA, REQUIRED
+from mpsobs.pipeline import spec, store
+from mpsobs.pipeline.columns import EXTRA, REQUIRED
 
 SPEC = {
     "name": "store-test", "seed": 3,
@@ -118,7 +118,7 @@ def test_killed_writer_leaves_old_file_or_none(tmp_path):
         st.write_point(point, _frame(point, rows=3))
     script = textwrap.dedent(f"""
         import numpy as np, pandas as pd
-        from mpsobs import store
+        from mpsobs.pipeline import store
         st = store.RunStore({str(st.root)!r})
         frame = pd.DataFrame({{"x": np.arange(3_000_000, dtype=float)}})
         print("ready", flush=True)
@@ -168,7 +168,7 @@ def test_checkpoint_of_the_older_layout_is_ignored(tmp_path, caplog):
     st.checkpoints_dir.mkdir(parents=True)
     with open(st.checkpoint_path("old"), "wb") as handle:
         np.savez(handle, tensor_00000=np.ones((1, 2, 1)), meta=np.array('{"done": 1}'))
-    with caplog.at_level("WARNING", logger="mpsobs.store"):
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.store"):
         assert st.load_checkpoint("old") is None
     assert "another layout" in caplog.text
 
@@ -228,7 +228,7 @@ def test_lock_refuses_a_second_run_and_replaces_a_stale_one(tmp_path):
 def test_column_units_and_descriptions_in_the_parquet_schema(tmp_path):
     import pyarrow.parquet as pq
 
-    from mpsobs.columns import describe
+    from mpsobs.pipeline.columns import describe
 
     run = _run_spec()
     with store.open_run(tmp_path / "run", run) as st:

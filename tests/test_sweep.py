@@ -15,8 +15,8 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from mpsobs import spec, store, sweep
-from mpsobs.errors import InputError
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import spec, store, sweep
 
 # The stand-in kernels below live in this test module, which the worker processes cannot
 # import: ship them by value.
@@ -239,8 +239,8 @@ def test_point_rows_match_dense_evolution(scheduler):
     """TEBD + estimators of one point against scipy's exact exp(-iHt) on 8 sites."""
     from scipy.linalg import expm
 
-    from mpsobs.columns import REQUIRED
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.columns import REQUIRED
+    from mpsobs.pipeline.point import compute_point
 
     (point,) = spec.parse(DENSE_SPEC).points
     rows = _on_worker(scheduler, compute_point, point)
@@ -274,7 +274,7 @@ def test_point_rows_match_dense_evolution(scheduler):
 def _full_resumed_again(point):
     """The point computed whole (keeping its checkpoints), resumed from the checkpoint
     after its second time, and computed whole once more."""
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.point import compute_point
 
     checkpoints = []
     full = compute_point(point, save=lambda states, meta: checkpoints.append(
@@ -326,7 +326,7 @@ LN2 = float(np.log(2.0))
 def test_initial_state_kinds(scheduler, state, s0, n):
     from math import comb, log
 
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.point import compute_point
 
     (point,) = spec.parse({**KIND_SPEC, "state": state}).points
     rows = _on_worker(scheduler, compute_point, point)
@@ -351,7 +351,7 @@ def test_initial_state_kinds(scheduler, state, s0, n):
 def test_ground_state_of_the_prequench_model(scheduler):
     """kind = "ground": the DMRG ground state of the model with delta = 2 and a staggered
     field, compared with numpy's lowest eigenvector of the dense pre-quench H."""
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.point import compute_point
 
     state = {"kind": "ground",
              "prequench": {"delta": 2.0, "field": {"kind": "staggered", "strength": 0.5}}}
@@ -378,7 +378,7 @@ def test_equilibrium_value_lies_between_gibbs_entropy_and_maximum(path):
     rho (Phys. Rev. A 99, 010101(R) (2019), from memory), within the reported errors."""
     import tomllib
 
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.point import compute_point
 
     data = tomllib.loads((path or spec.default_spec_path()).read_text())
     data["model"]["L"] = 8
@@ -442,8 +442,8 @@ def test_grown_run_computes_only_the_new_points_and_equals_a_fresh_run(tmp_path,
 
 
 def test_stored_site_fields_rebuild_the_model(tmp_path, scheduler):
-    from mpsobs import models
-    from mpsobs.point import build_model
+    from mpsobs.chain import models
+    from mpsobs.pipeline.point import build_model
 
     run = spec.parse(GROW_SPEC)
     root = tmp_path / "run"

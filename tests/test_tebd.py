@@ -8,10 +8,11 @@ import numpy as np
 import pytest
 from scipy.sparse.linalg import expm_multiply
 
-from mpsobs import models, states, tebd
-from mpsobs.errors import InputError
-from mpsobs.mps import MPS, right_canonical_defect, to_dense, to_quimb
-from mpsobs.tebd import Snapshot, evolve
+from mpsobs.chain import evolution as tebd
+from mpsobs.chain import models, states
+from mpsobs.chain.evolution import Snapshot, evolve
+from mpsobs.core.errors import InputError
+from mpsobs.mps.tensors import MPS, right_canonical_defect, to_dense, to_quimb
 
 FULL = 4096   # a bond limit no state here reaches: no truncation by bond dimension
 #: Drops only Schmidt weight at rounding level (the discarded weight is checked), which

@@ -12,10 +12,10 @@ import pytest
 import scipy.linalg as sla
 from scipy.optimize import fsolve
 
-from mpsobs import gaussian, thermo
-from mpsobs.errors import InputError
-from mpsobs.models import ising, xxz
-from mpsobs.mps import from_dense, random_mps, to_dense
+from mpsobs.chain.models import ising, xxz
+from mpsobs.core.errors import InputError
+from mpsobs.mps.tensors import from_dense, random_mps, to_dense
+from mpsobs.references import gaussian, thermo
 
 
 def _numbers(L: int) -> np.ndarray:
@@ -299,7 +299,9 @@ GIBBS_CASES = [
 def test_gibbs_state_observational_entropy_matches_dense(model, beta, mu, number):
     """S_obs of the purification (enumeration, counting, sampling) against the dense
     engine on scipy's expm(-beta H) / Z, within the purification's reported error."""
-    from mpsobs import coarse, dense, observational_entropy
+    from mpsobs import observational_entropy
+    from mpsobs.chain import coarse
+    from mpsobs.estimators import dense
 
     L = model.L
     state = thermo.gibbs_state(model, beta, mu, number=number, max_bond=32)
@@ -325,7 +327,8 @@ def test_xx_gibbs_state_number_regions_against_free_fermions():
     """XX chain at L = 64: the number distribution in three regions of the purified Gibbs
     state against the free-fermion Gibbs correlation matrix and its counting statistics
     (Phys. Rev. Lett. 102, 100502 (2009))."""
-    from mpsobs import coarse, observational_entropy
+    from mpsobs import observational_entropy
+    from mpsobs.chain import coarse
 
     L, beta, mu = 64, 0.8, 0.2
     model = xxz(L, J=1.0, delta=0.0, h=0.3, field="staggered")
@@ -343,7 +346,8 @@ def test_xx_gibbs_state_number_regions_against_free_fermions():
 def test_xx_gibbs_state_small_blocks_against_dense_diagonal():
     """XX chain at L = 12, number blocks of 2 and 3: the purified Gibbs state against the
     diagonal of exp(-beta (H - mu N)) / Z from numpy's eigh of every number sector."""
-    from mpsobs import coarse, observational_entropy
+    from mpsobs import observational_entropy
+    from mpsobs.chain import coarse
 
     L, beta, mu = 12, 1.0, -0.3
     model = xxz(L, J=1.0, delta=0.0, h=np.random.default_rng(6).uniform(-0.5, 0.5, L))
@@ -374,7 +378,8 @@ def test_infinite_temperature_gives_ln_dim_and_ln_sector_size():
     sector's projector commutes with and is uniform in (fact of the trade)."""
     from math import comb, log
 
-    from mpsobs import coarse, observational_entropy
+    from mpsobs import observational_entropy
+    from mpsobs.chain import coarse
 
     model = xxz(10, J=1.0, delta=0.6, h=0.4, field="staggered")
     grand = thermo.gibbs_state(model, 0.0)
@@ -393,7 +398,7 @@ def test_infinite_temperature_gives_ln_dim_and_ln_sector_size():
 
 
 def test_gibbs_state_repr_and_bad_input():
-    from mpsobs.mps import PurifiedMPS
+    from mpsobs.mps.tensors import PurifiedMPS
 
     state = thermo.gibbs_state(ising(512, J=1.0, g=1.0, h=0.2), 0.0)
     assert len(repr(state)) < 300 and "L=512" in repr(state)

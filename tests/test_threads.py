@@ -8,9 +8,13 @@ import pytest
 from threadpoolctl import threadpool_info, threadpool_limits
 
 import mpsobs
-from mpsobs import coarse, estimate, models, states, tebd, thermo, threads
-from mpsobs.errors import InputError
-from mpsobs.mps import random_mps
+from mpsobs.chain import coarse, models, states
+from mpsobs.chain import evolution as tebd
+from mpsobs.core import threads
+from mpsobs.core.errors import InputError
+from mpsobs.estimators import estimate
+from mpsobs.mps.tensors import random_mps
+from mpsobs.references import thermo
 
 OUTER = 2  # the BLAS count set around each test (conftest pins 1 for the session)
 

@@ -41,11 +41,11 @@ from typing import Literal, get_args
 import numpy as np
 from scipy.linalg import lapack
 
-from mpsobs.errors import InputError, finite_number, integer, one_of
-from mpsobs.models import Model, bond_hamiltonians
-from mpsobs.mps import MPS, as_mps, right_canonical, robust_svd
-from mpsobs.printing import number
-from mpsobs.threads import kernel_threads
+from mpsobs.chain.models import Model, bond_hamiltonians
+from mpsobs.core.errors import InputError, finite_number, integer, one_of
+from mpsobs.core.printing import number
+from mpsobs.core.threads import kernel_threads
+from mpsobs.mps.tensors import MPS, as_mps, right_canonical, robust_svd
 
 __all__ = ["Snapshot", "evolve", "ORDERS", "Symmetry", "CHARGE_TOL", "BLOCKS_MIN_BOND"]
 

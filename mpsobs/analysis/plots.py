@@ -42,13 +42,13 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
-from mpsobs import scaling
-from mpsobs.store import RunStore, atomic_write
+from mpsobs.analysis import scaling
+from mpsobs.pipeline.store import atomic_write
 
 __all__ = [
     "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "figure_parameters",
     "caption", "entropy_figure", "parts_figure", "knowledge_figure", "collapse_figure",
-    "save_figure", "plot_results", "plot_run",
+    "save_figure", "plot_results",
 ]
 
 #: Width of one panel in inches (a single journal column).
@@ -443,8 +443,3 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Pa
             paths += save_figure(make(rows, colors, shown),
                                  Path(directory) / f"{name}{suffix}")
     return paths
-
-
-def plot_run(run_dir: str | os.PathLike) -> list[Path]:
-    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
-    return plot_results(scaling.read_results(run_dir), RunStore(run_dir).figures_dir)

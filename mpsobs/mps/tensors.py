@@ -21,8 +21,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg as sla
 
-from mpsobs.errors import InputError
-from mpsobs.printing import size_range
+from mpsobs.core.errors import InputError
+from mpsobs.core.printing import size_range
 
 __all__ = ["MPS", "as_mps", "from_quimb", "to_quimb", "from_dense", "to_dense",
            "right_canonical", "right_canonical_log_norm", "bond_entropies", "random_mps",

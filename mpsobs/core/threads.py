@@ -34,7 +34,7 @@ from collections.abc import Callable, Iterator
 
 import numpy as np
 
-from mpsobs.errors import InputError
+from mpsobs.core.errors import InputError
 
 __all__ = ["set_threads", "using_threads", "threads_setting", "threads_for",
            "kernel_threads", "limits_threads", "state_size", "SMALL_BOND", "ENV_VAR",

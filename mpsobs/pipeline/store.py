@@ -45,10 +45,10 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from mpsobs import __version__
-from mpsobs.columns import describe
-from mpsobs.errors import InputError
-from mpsobs.spec import Point, RunSpec, fixed_settings
+from mpsobs.core.errors import InputError
+from mpsobs.core.version import __version__
+from mpsobs.pipeline.columns import describe
+from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
            "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]

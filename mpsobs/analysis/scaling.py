@@ -86,16 +86,16 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from mpsobs.columns import parameter_columns
-from mpsobs.errors import InputError
-from mpsobs.store import RunStore, atomic_write
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline.columns import parameter_columns
+from mpsobs.pipeline.store import RunStore
 
 __all__ = [
     "ERROR_FLOOR", "LineFit", "fit_line", "read_results", "require_columns",
     "disorder_columns", "disorder_average", "group_columns", "key_columns",
     "length_companions", "split", "varying_columns",
     "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
-    "collapse_curves", "scale_run", "format_table", "format_value",
+    "collapse_curves", "format_table", "format_value",
 ]
 
 log = logging.getLogger(__name__)
@@ -830,28 +830,6 @@ def _canonical(key: dict) -> tuple:
             return float(value)
         return value
     return tuple(one(v) for v in key.values())
-
-
-def scale_run(run_dir: str | os.PathLike, *, window: float = 0.3,
-              fraction: float = 0.9) -> pd.DataFrame:
-    """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
-    with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
-
-    See :func:`scaling_table` for ``window`` and ``fraction``. Raises InputError (and
-    writes nothing) for a missing table, missing columns or a group with a single L.
-    """
-    from mpsobs import plots  # plots builds on this module; imported here to avoid a cycle
-
-    store = RunStore(run_dir)
-    results = read_results(run_dir)
-    table = scaling_table(results, window=window, fraction=fraction)
-    figure = plots.collapse_figure(collapse_curves(results, table))
-    with atomic_write(store.root / "scaling.csv") as tmp:
-        table.to_csv(tmp, index=False)
-    with atomic_write(store.root / "scaling.parquet") as tmp:
-        table.to_parquet(tmp, index=False)
-    plots.save_figure(figure, store.figures_dir / "collapse")
-    return table
 
 
 def format_value(value: float, err: float) -> str:

@@ -55,15 +55,18 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
-from mpsobs import __version__, coarse, gaussian, models, states, tebd, thermo
-from mpsobs.columns import EXTRA, REQUIRED
-from mpsobs.entropy import observational_entropy
-from mpsobs.errors import InputError
-from mpsobs.estimate import countable, pruned_entropy_bound
-from mpsobs.mps import MPS
-from mpsobs.result import EntropyResult
-from mpsobs.spec import Point
-from mpsobs.store import SITE_FIELDS_ATTR
+from mpsobs.chain import coarse, models, states
+from mpsobs.chain import evolution as tebd
+from mpsobs.core.errors import InputError
+from mpsobs.core.version import __version__
+from mpsobs.estimators.entropy import observational_entropy
+from mpsobs.estimators.estimate import countable, pruned_entropy_bound
+from mpsobs.estimators.result import EntropyResult
+from mpsobs.mps.tensors import MPS
+from mpsobs.pipeline.columns import EXTRA, REQUIRED
+from mpsobs.pipeline.spec import Point
+from mpsobs.pipeline.store import SITE_FIELDS_ATTR
+from mpsobs.references import gaussian, thermo
 
 __all__ = ["compute_point", "check_point", "check_points", "build_model",
            "build_coarse_grainings", "initial_state", "total_number", "trusted_time",

@@ -58,7 +58,9 @@ from typing import Literal
 
 import numpy as np
 
-from mpsobs.blocktensors import (
+from mpsobs.chain.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
+from mpsobs.core.errors import InputError
+from mpsobs.estimators.blocktensors import (
     WORK_BYTES,
     ReadoutBlock,
     conditional_probabilities,
@@ -67,11 +69,9 @@ from mpsobs.blocktensors import (
     transfer,
     transfer_flops,
 )
-from mpsobs.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
-from mpsobs.dense import NORM_TOL
-from mpsobs.errors import InputError
-from mpsobs.mps import MPS, PurifiedMPS, as_mps, bond_entropies, right_canonical_log_norm
-from mpsobs.result import EntropyResult, OutcomeDistribution
+from mpsobs.estimators.dense import NORM_TOL
+from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
+from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, bond_entropies, right_canonical_log_norm
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
            "draw_conditional", "ConditionalBatch", "conditional_terms",

@@ -68,10 +68,10 @@ from typing import Any, Literal
 
 import numpy as np
 
-from mpsobs.coarse import MAX_BLOCK_SITES
-from mpsobs.errors import InputError
-from mpsobs.estimate import COUNT_MAX_REGIONS
-from mpsobs.printing import short
+from mpsobs.chain.coarse import MAX_BLOCK_SITES
+from mpsobs.core.errors import InputError
+from mpsobs.core.printing import short
+from mpsobs.estimators.estimate import COUNT_MAX_REGIONS
 
 __all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
            "fixed_settings", "DISORDER_AXES", "MODELS", "STATES", "OBSERVABLES",
@@ -271,7 +271,7 @@ class RunSpec:
 
 def default_spec_path() -> Path:
     """The built-in default scenario shipped with the package."""
-    return Path(__file__).with_name("scenarios") / "default.toml"
+    return Path(__file__).parents[1] / "scenarios" / "default.toml"
 
 
 # --------------------------------------------------------------------------- helpers

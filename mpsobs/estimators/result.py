@@ -7,7 +7,7 @@ from typing import Literal
 
 import numpy as np
 
-from mpsobs.printing import number, short, with_error
+from mpsobs.core.printing import number, short, with_error
 
 __all__ = ["OutcomeDistribution", "EntropyResult", "entropy_from_distribution"]
 

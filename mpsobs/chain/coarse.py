@@ -31,9 +31,9 @@ from math import comb
 
 import numpy as np
 
-from mpsobs.errors import InputError, finite_number, integer
-from mpsobs.models import Model
-from mpsobs.printing import number, short, size_range
+from mpsobs.chain.models import Model
+from mpsobs.core.errors import InputError, finite_number, integer
+from mpsobs.core.printing import number, short, size_range
 
 __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",

@@ -20,9 +20,9 @@ from typing import Literal, get_args
 
 import numpy as np
 
-from mpsobs.errors import InputError, finite_number, integer, one_of, seed_value
-from mpsobs.models import GroundState, Model, dmrg, expectation, ground_state, mpo_tensors
-from mpsobs.mps import MPS, product_mps, right_canonical
+from mpsobs.chain.models import GroundState, Model, dmrg, expectation, ground_state, mpo_tensors
+from mpsobs.core.errors import InputError, finite_number, integer, one_of, seed_value
+from mpsobs.mps.tensors import MPS, product_mps, right_canonical
 
 __all__ = ["product_state", "neel", "domain_wall", "gas_in_box", "check_gas_in_box",
            "random_product_state",

@@ -42,10 +42,10 @@ import numpy as np
 import scipy.linalg as sla
 from scipy.special import expit, gammaln
 
-from mpsobs.errors import InputError, finite_number
-from mpsobs.models import Model
-from mpsobs.mps import as_mps, right_canonical
-from mpsobs.result import EntropyResult, OutcomeDistribution, entropy_from_distribution
+from mpsobs.chain.models import Model
+from mpsobs.core.errors import InputError, finite_number
+from mpsobs.estimators.result import EntropyResult, OutcomeDistribution, entropy_from_distribution
+from mpsobs.mps.tensors import as_mps, right_canonical
 
 __all__ = [
     "QuadraticHamiltonian", "quadratic_hamiltonian", "quasiparticle_energies",

@@ -25,10 +25,10 @@ from typing import Literal, get_args
 import numpy as np
 import scipy.sparse as sp
 
-from mpsobs.errors import InputError, finite_number, integer, one_of, seed_value
-from mpsobs.mps import MPS, as_mps, from_quimb, norm, product_mps, right_canonical, to_quimb
-from mpsobs.printing import number
-from mpsobs.threads import limits_threads
+from mpsobs.core.errors import InputError, finite_number, integer, one_of, seed_value
+from mpsobs.core.printing import number
+from mpsobs.core.threads import limits_threads
+from mpsobs.mps.tensors import MPS, as_mps, from_quimb, norm, product_mps, right_canonical, to_quimb
 
 __all__ = ["Term", "Model", "xxz", "ising", "build", "MODELS", "field_values", "site_values",
            "FieldKind", "bond_hamiltonians", "mpo_tensors", "to_quimb_mpo", "expectation",

@@ -14,10 +14,10 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pandas as pd
 
-from mpsobs import point as points
-from mpsobs import spec as specs
-from mpsobs.errors import InputError
-from mpsobs.models import Model
+from mpsobs.chain.models import Model
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import point as points
+from mpsobs.pipeline import spec as specs
 
 __all__ = ["run_quench", "quench_spec"]
 

@@ -30,10 +30,10 @@ from typing import Protocol
 import numpy as np
 import pandas as pd
 
-from mpsobs.errors import InputError
-from mpsobs.printing import short
-from mpsobs.spec import Point, RunSpec
-from mpsobs.store import RunStore
+from mpsobs.core.errors import InputError
+from mpsobs.core.printing import short
+from mpsobs.pipeline.spec import Point, RunSpec
+from mpsobs.pipeline.store import RunStore
 
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
            "check_execution", "reach_scheduler",
@@ -99,7 +99,7 @@ class SweepReport:
 
 
 def _default_kernel() -> Kernel:
-    from mpsobs.point import compute_point
+    from mpsobs.pipeline.point import compute_point
 
     return compute_point
 

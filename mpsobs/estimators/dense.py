@@ -18,9 +18,9 @@ import itertools
 
 import numpy as np
 
-from mpsobs.coarse import BlockCoarseGraining, ProjectorCoarseGraining
-from mpsobs.errors import InputError
-from mpsobs.result import EntropyResult, entropy_from_distribution
+from mpsobs.chain.coarse import BlockCoarseGraining, ProjectorCoarseGraining
+from mpsobs.core.errors import InputError
+from mpsobs.estimators.result import EntropyResult, entropy_from_distribution
 
 __all__ = ["observational_entropy", "check_state", "von_neumann_entropy",
            "MAX_VECTOR_SITES", "MAX_DENSITY_SITES"]

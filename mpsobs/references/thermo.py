@@ -55,12 +55,12 @@ from scipy.interpolate import CubicHermiteSpline, CubicSpline
 from scipy.optimize import brentq
 from scipy.special import expit
 
-from mpsobs import gaussian
-from mpsobs.errors import InputError, finite_number, integer
-from mpsobs.models import Model
-from mpsobs.mps import MPS, PurifiedMPS, as_mps, right_canonical_log_norm, robust_svd
-from mpsobs.printing import number, with_error
-from mpsobs.threads import limits_threads
+from mpsobs.chain.models import Model
+from mpsobs.core.errors import InputError, finite_number, integer
+from mpsobs.core.printing import number, with_error
+from mpsobs.core.threads import limits_threads
+from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm, robust_svd
+from mpsobs.references import gaussian
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
            "entropy_shift_bound", "Method", "Ensemble"]

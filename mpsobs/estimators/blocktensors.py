@@ -34,8 +34,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from mpsobs.coarse import BlockCoarseGraining
-from mpsobs.mps import MPS, PurifiedMPS
+from mpsobs.chain.coarse import BlockCoarseGraining
+from mpsobs.mps.tensors import MPS, PurifiedMPS
 
 __all__ = ["ReadoutBlock", "block_tensor", "readout_blocks", "transfer", "transfer_flops",
            "outcome_weights", "conditional_probabilities", "WORK_BYTES"]

@@ -6,17 +6,17 @@ import inspect
 
 import numpy as np
 
-from mpsobs import dense
-from mpsobs.errors import InputError
-from mpsobs.result import EntropyResult
-from mpsobs.threads import limits_threads, state_size
+from mpsobs.core.errors import InputError
+from mpsobs.core.threads import limits_threads, state_size
+from mpsobs.estimators import dense
+from mpsobs.estimators.result import EntropyResult
 
 __all__ = ["observational_entropy"]
 
 
 def _estimator_options() -> tuple[str, ...]:
     """The keyword options of :func:`mpsobs.estimate.mps_observational_entropy`."""
-    from mpsobs import estimate
+    from mpsobs.estimators import estimate
 
     params = inspect.signature(estimate.mps_observational_entropy).parameters.values()
     return tuple(p.name for p in params if p.kind is inspect.Parameter.KEYWORD_ONLY)
@@ -49,7 +49,7 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
     ``knowledge``, ``max_entropy``, ``method``, ``algorithm`` and, when exact (except for
     a product over blocks), ``distribution``.
     """
-    from mpsobs import estimate
+    from mpsobs.estimators import estimate
 
     allowed = _estimator_options()
     unknown = sorted(set(options) - set(allowed))

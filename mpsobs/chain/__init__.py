@@ -1,0 +1,1 @@
+"""chain layer of mpsobs."""

@@ -1,0 +1,1 @@
+"""estimators layer of mpsobs."""

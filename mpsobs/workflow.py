@@ -1,0 +1,107 @@
+"""What the ``mpsobs`` commands do, as functions: run a spec, check it, draw the figures
+of a run, write its scaling table.
+
+The command line (:mod:`mpsobs.cli`) only parses arguments and prints; everything that
+reads or writes a run directory is here, so that Python users get the same behaviour.
+Analysis options (plateau window, saturation fraction) are arguments of :func:`plot` and
+:func:`scale`: they never enter a point's identity and changing them recomputes nothing.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import pandas as pd
+
+from mpsobs.analysis import plots, scaling
+from mpsobs.core.errors import InputError
+from mpsobs.pipeline import point as points
+from mpsobs.pipeline import spec as specs
+from mpsobs.pipeline import store, sweep
+
+__all__ = ["RunOutcome", "run", "check", "plot", "scale"]
+
+log = logging.getLogger(__name__)
+
+
+@dataclass(frozen=True)
+class RunOutcome:
+    """What :func:`run` did: the sweep report, the run directory, the figure files and
+    the reason the figures were skipped (None when drawn or not asked for)."""
+
+    report: sweep.SweepReport
+    root: Path
+    figures: list[Path]
+    figures_skipped: str | None = None
+
+
+def check(spec_path: str | os.PathLike | None) -> specs.RunSpec:
+    """Load a spec and check every point's builders (nothing is evolved or written)."""
+    spec = specs.load(spec_path)
+    points.check_points(spec.points)
+    return spec
+
+
+def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = None, *,
+        workers: int | None = None, scheduler: str | None = None, progress: bool = True,
+        figures: bool = True) -> RunOutcome:
+    """Compute the points of a spec into a run directory (default: the spec's
+    ``output.dir``), then draw its figures. Everything that can be refused is refused
+    before any work and before anything is written (InputError)."""
+    spec = specs.load(spec_path)
+    root = Path(out) if out else spec.output_dir
+    sweep.check_execution(workers, scheduler)
+    store.check_target(root, spec)
+    points.check_points(spec.points)
+    if scheduler is not None:
+        sweep.reach_scheduler(scheduler)
+    with store.open_run(root, spec) as opened:
+        handler = logging.FileHandler(opened.root / store.LOG_FILE, encoding="utf-8")
+        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
+                                               "%(message)s"))
+        handler.setLevel(logging.INFO)
+        logging.getLogger("mpsobs").addHandler(handler)
+        try:
+            log.info("run %s (%s) into %s: %d points", spec.name, spec.source, root,
+                     len(spec.points))
+            report = sweep.run_sweep(spec, opened, workers=workers, scheduler=scheduler,
+                                     kernel=None, progress=progress)
+            drawn, skipped = [], None
+            if figures and not report.table.empty:
+                try:
+                    drawn = plot(opened.root)
+                except InputError as exc:  # the table is kept; figures are an extra
+                    skipped = str(exc)
+        finally:
+            logging.getLogger("mpsobs").removeHandler(handler)
+            handler.close()
+    return RunOutcome(report, root, drawn, skipped)
+
+
+def plot(run_dir: str | os.PathLike) -> list[Path]:
+    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
+    return plots.plot_results(scaling.read_results(run_dir), store.RunStore(run_dir).figures_dir)
+
+
+def scale(run_dir: str | os.PathLike, *, window: float = 0.3,
+          fraction: float = 0.9) -> pd.DataFrame:
+    """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
+    with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
+
+    See :func:`mpsobs.analysis.scaling.scaling_table` for ``window`` and ``fraction``.
+    Raises InputError (and writes nothing) for a missing table, missing columns or a
+    group with a single L.
+    """
+    run_store = store.RunStore(run_dir)
+    results = scaling.read_results(run_dir)
+    table = scaling.scaling_table(results, window=window, fraction=fraction)
+    figure = plots.collapse_figure(scaling.collapse_curves(results, table))
+    with store.atomic_write(run_store.root / "scaling.csv") as tmp:
+        table.to_csv(tmp, index=False)
+    with store.atomic_write(run_store.root / "scaling.parquet") as tmp:
+        table.to_parquet(tmp, index=False)
+    plots.save_figure(figure, run_store.figures_dir / "collapse")
+    return table
