@@ -177,15 +177,19 @@ def _coarse_arguments(path: str, entry: dict) -> dict[str, str]:
 
 
 def estimator_options(estimator: dict) -> dict:
-    """Keyword arguments of the estimator from a resolved ``[estimator]`` section: the
-    sample settings go to the methods that may sample ("auto" and
-    :data:`mpsobs.estimators.estimate.SAMPLING_METHODS`); the estimator applies them
-    where it samples."""
+    """Keyword arguments of the estimator from a resolved ``[estimator]`` section.
+
+    ``samples`` is a budget for where the estimator samples: it goes to the methods that
+    may sample ("auto" and :data:`mpsobs.estimators.estimate.SAMPLING_METHODS`) and is
+    ignored by the exact ones. ``target_stderr`` > 0 is a demand: it always goes to the
+    estimator, which refuses it for a method that draws no samples.
+    """
     method = None if estimator["method"] == "auto" else estimator["method"]
     options = {"method": method, "prune": estimator["prune"]}
     if method is None or method in estimate.SAMPLING_METHODS:
-        options.update(samples=estimator["samples"],
-                       target_stderr=estimator["target_stderr"] or None)
+        options["samples"] = estimator["samples"]
+    if estimator["target_stderr"]:
+        options["target_stderr"] = estimator["target_stderr"]
     return options
 
 
