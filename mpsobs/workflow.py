@@ -23,7 +23,8 @@ from mpsobs.pipeline import build, columns, store, sweep
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 
-__all__ = ["RunOutcome", "run", "check", "plot", "scale", "reference", "REFERENCES"]
+__all__ = ["RunOutcome", "run", "check", "plot", "scale", "reference", "REFERENCES",
+           "refresh_references"]
 
 log = logging.getLogger(__name__)
 
@@ -129,3 +130,22 @@ def reference(topic: str) -> str:
     if topic not in REFERENCES:
         raise InputError(f"TOPIC: expected one of {', '.join(REFERENCES)}, got {topic!r}")
     return REFERENCES[topic]()
+
+
+#: Marker names of the generated blocks in a markdown file, by topic.
+_MARKERS = {"keys": "spec-keys", "columns": "columns"}
+
+
+def refresh_references(text: str) -> str:
+    """``text`` (markdown, e.g. the README) with every generated block replaced by a
+    fresh :func:`reference`: the lines between ``<!-- generated: spec-keys -->`` and
+    ``<!-- end generated: spec-keys -->`` (likewise ``columns``). A missing marker pair
+    is an InputError naming it."""
+    for topic, name in _MARKERS.items():
+        start, end = f"<!-- generated: {name} -->", f"<!-- end generated: {name} -->"
+        head, found, rest = text.partition(start + "\n")
+        _, closed, tail = rest.partition(end)
+        if not (found and closed):
+            raise InputError(f"markers: expected a block between {start!r} and {end!r}")
+        text = f"{head}{start}\n{reference(topic)}{end}{tail}"
+    return text
