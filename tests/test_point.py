@@ -221,3 +221,26 @@ def test_refusal_about_regions_names_the_regions_key():
                                        "regions": [[0, 13], [13, 26]]}], L=26)
     with pytest.raises(InputError, match=r"^coarse\[0\]\.regions: .*more than 12 sites"):
         check_point(p)
+
+
+@pytest.mark.parametrize("pattern", ["01", "0"])
+def test_a_state_above_infinite_temperature_is_flagged(pattern, caplog):
+    """Transverse Ising chain (h = 0, free fermions: exact Gibbs reference). The Gibbs
+    temperature is negative exactly when the state's energy lies above the
+    infinite-temperature energy Tr H / 2**L, computed here from the sparse Hamiltonian
+    (a fact of the trade: <H>_beta decreases in beta, through Tr H / 2**L at beta = 0)."""
+    L = 6
+    data = {"model": {"name": "ising", "L": L, "g": 0.5},
+            "state": {"kind": "product", "pattern": pattern},
+            "evolution": {"chi_max": 8}, "times": {"values": [0.0, 0.5]},
+            "coarse": [{"observable": "number", "block": 2}],
+            "estimator": {"method": "exact"}}
+    (point,) = spec.parse(data).points
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.point"):
+        rows = compute_point(point)
+    infinite = models.ising(L, g=0.5).sparse_hamiltonian().diagonal().sum().real / 2**L
+    above = bool(rows["energy"].iloc[0] > infinite)
+    assert above == (pattern == "01")   # antiparallel neighbours: the top of -J sz sz
+    assert (rows["above_infinite_temperature"] == above).all()
+    assert ((rows["beta"] < 0) == above).all()
+    assert ("above infinite temperature" in caplog.text) == above

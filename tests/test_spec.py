@@ -341,3 +341,32 @@ def test_fixed_settings_ignore_sweep_values_only():
     assert spec.fixed_settings(run.body, axes) == spec.fixed_settings(grown.body, axes)
     other = spec.parse({**DISORDER, "times": {"t_max": 0.4, "n_times": 3}})
     assert spec.fixed_settings(run.body, axes) != spec.fixed_settings(other.body, axes)
+
+
+def test_spec_imports_nothing_numerical_from_the_package():
+    """The spec is schema and parsing only: of the package it imports the core alone."""
+    import ast
+
+    tree = ast.parse(Path(spec.__file__).read_text(encoding="utf-8"))
+    imported = {node.module for node in ast.walk(tree)
+                if isinstance(node, ast.ImportFrom) and node.module}
+    imported |= {alias.name for node in ast.walk(tree) if isinstance(node, ast.Import)
+                 for alias in node.names}
+    ours = {name for name in imported if name.startswith("mpsobs")}
+    assert ours and all(name.startswith("mpsobs.core.") for name in ours), ours
+
+
+def test_retired_trust_rtol_leaves_body_and_run_identity(caplog):
+    data = _base()
+    data["evolution"]["trust_rtol"] = 0.2
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.spec"):
+        old = spec.parse(data)
+    assert "analysis option" in caplog.text or "no longer part of a point" in caplog.text
+    new = spec.parse(_base())
+    assert "trust_rtol" not in old.body["evolution"]
+    assert old.run_id == new.run_id
+    assert [p.point_id for p in old.points] == [p.point_id for p in new.points]
+    # a run directory written with the key in its stored spec is the same run
+    stored = {**old.body, "evolution": {**old.body["evolution"], "trust_rtol": 0.01}}
+    axes = [path for group in new.axes for path in group]
+    assert spec.fixed_settings(stored, axes) == spec.fixed_settings(new.body, axes)
