@@ -20,6 +20,7 @@ bond-1 state and, unless ``cheap_only``, the initial state (DMRG for ground stat
 from __future__ import annotations
 
 import contextlib
+import re
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -89,13 +90,14 @@ class BuiltPoint:
 
 
 def _locate(message: str, section: str, arguments: Mapping[str, str]) -> str:
-    """The key path of a module's message (its leading argument name looked up in
-    ``arguments``; ``regions[j]`` keeps its index; else ``section``) and the message."""
-    head = message.partition(": ")[0]
-    base, bracket, index = head.partition("[")
-    if base in arguments:
-        return arguments[base] + (f"[{index}" if bracket else "")
-    return section
+    """The key path of a module's message: its leading argument name looked up in
+    ``arguments`` (with the index of a ``regions[j]`` the message names), else
+    ``section``."""
+    head, _, rest = message.partition(": ")
+    if head not in arguments:
+        return section
+    index = re.search(r"\bregions\[(\d+)\]", rest) if head == "regions" else None
+    return arguments[head] + (f"[{index.group(1)}]" if index else "")
 
 
 @contextlib.contextmanager
