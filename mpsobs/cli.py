@@ -2,7 +2,8 @@
 
 Commands: ``run`` (compute a spec's sweep into a run directory), ``check`` (validate a
 spec and list its points), ``template`` (print the built-in default scenario),
-``plot`` and ``scale`` (figures and finite-size-scaling table of a finished run).
+``plot`` and ``scale`` (figures and finite-size-scaling table of a finished run),
+``reference`` (the spec keys or the result columns as markdown).
 
 Exit codes: 0 done; 1 some points failed (the others are kept); 2 bad input (spec,
 arguments, run directory: nothing is written then; or an InputError raised while
@@ -48,6 +49,26 @@ def _fraction(text: str) -> float:
     if not 0.0 < value < 1.0:
         raise argparse.ArgumentTypeError(f"expected a number in (0, 1), got {text!r}")
     return value
+
+
+def _tolerance(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number in [0, 1], got {text!r}") from None
+    if not 0.0 <= value <= 1.0:
+        raise argparse.ArgumentTypeError(f"expected a number in [0, 1], got {text!r}")
+    return value
+
+
+def _add_trust_option(parser: argparse.ArgumentParser) -> None:
+    from mpsobs.analysis.trust import DEFAULT_TRUST_RTOL
+
+    parser.add_argument("--trust-rtol", type=_tolerance, default=DEFAULT_TRUST_RTOL,
+                        metavar="R",
+                        help="trusted times: a curve is trusted while its truncation error "
+                             "is within R times S_obs (or its sampling error); changing R "
+                             f"recomputes nothing (default {DEFAULT_TRUST_RTOL:g})")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -97,6 +118,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Write the entropy, parts and knowledge figures of RUN_DIR/results.parquet "
                     "to RUN_DIR/figures.")
     plot.add_argument("run_dir", metavar="RUN_DIR")
+    _add_trust_option(plot)
 
     scale = commands.add_parser(
         "scale", help="finite-size scaling table of a run",
@@ -109,6 +131,15 @@ def build_parser() -> argparse.ArgumentParser:
     scale.add_argument("--fraction", type=_fraction, default=0.9, metavar="F",
                        help="saturation time = first time the curve reaches this fraction "
                             "of its rise to the plateau (default 0.9)")
+    _add_trust_option(scale)
+
+    reference = commands.add_parser(
+        "reference", help="print the spec keys or the result columns as markdown",
+        description="Print a reference generated from the code: 'keys' (every spec key "
+                    "with its type, default, allowed values, unit and description) or "
+                    "'columns' (every column of the results table).")
+    reference.add_argument("topic", choices=("keys", "columns"), metavar="TOPIC",
+                           help="keys or columns")
     return parser
 
 
@@ -170,7 +201,7 @@ def _cmd_template(args) -> int:
 def _cmd_plot(args) -> int:
     from mpsobs import workflow
 
-    for path in workflow.plot(args.run_dir):
+    for path in workflow.plot(args.run_dir, trust_rtol=args.trust_rtol):
         print(path)
     return 0
 
@@ -179,8 +210,16 @@ def _cmd_scale(args) -> int:
     from mpsobs import workflow
     from mpsobs.analysis import scaling
 
-    table = workflow.scale(args.run_dir, window=args.window, fraction=args.fraction)
+    table = workflow.scale(args.run_dir, window=args.window, fraction=args.fraction,
+                           trust_rtol=args.trust_rtol)
     print(scaling.format_table(table))
+    return 0
+
+
+def _cmd_reference(args) -> int:
+    from mpsobs import workflow
+
+    sys.stdout.write(workflow.reference(args.topic))
     return 0
 
 
@@ -201,7 +240,7 @@ def _setup_logging(verbose: bool) -> None:
 
 
 _COMMANDS = {"run": _cmd_run, "check": _cmd_check, "template": _cmd_template,
-             "plot": _cmd_plot, "scale": _cmd_scale}
+             "plot": _cmd_plot, "scale": _cmd_scale, "reference": _cmd_reference}
 
 
 def main(argv: list[str] | None = None) -> int:

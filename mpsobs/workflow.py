@@ -1,10 +1,11 @@
 """What the ``mpsobs`` commands do, as functions: run a spec, check it, draw the figures
-of a run, write its scaling table.
+of a run, write its scaling table, print the references of spec keys and columns.
 
 The command line (:mod:`mpsobs.cli`) only parses arguments and prints; everything that
 reads or writes a run directory is here, so that Python users get the same behaviour.
-Analysis options (plateau window, saturation fraction) are arguments of :func:`plot` and
-:func:`scale`: they never enter a point's identity and changing them recomputes nothing.
+Analysis options (plateau window, saturation fraction, the tolerance of trusted times)
+are arguments of :func:`plot` and :func:`scale`: they never enter a point's identity and
+changing them recomputes nothing.
 """
 
 from __future__ import annotations
@@ -16,13 +17,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from mpsobs.analysis import plots, scaling
+from mpsobs.analysis import plots, scaling, trust
 from mpsobs.core.errors import InputError
+from mpsobs.pipeline import build, columns, store, sweep
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
-from mpsobs.pipeline import store, sweep
 
-__all__ = ["RunOutcome", "run", "check", "plot", "scale"]
+__all__ = ["RunOutcome", "run", "check", "plot", "scale", "reference", "REFERENCES",
+           "refresh_references"]
 
 log = logging.getLogger(__name__)
 
@@ -81,22 +83,33 @@ def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = Non
     return RunOutcome(report, root, drawn, skipped)
 
 
-def plot(run_dir: str | os.PathLike) -> list[Path]:
-    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
-    return plots.plot_results(scaling.read_results(run_dir), store.RunStore(run_dir).figures_dir)
+def _results(run_dir: str | os.PathLike, trust_rtol: float) -> pd.DataFrame:
+    """RUN_DIR/results.parquet with its trusted times at ``trust_rtol``."""
+    rtol = trust.check_rtol(trust_rtol, "--trust-rtol")
+    return trust.with_trusted_times(scaling.read_results(run_dir), rtol)
 
 
-def scale(run_dir: str | os.PathLike, *, window: float = 0.3,
-          fraction: float = 0.9) -> pd.DataFrame:
+def plot(run_dir: str | os.PathLike, *,
+         trust_rtol: float = trust.DEFAULT_TRUST_RTOL) -> list[Path]:
+    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF);
+    curves are faint past their trusted time at tolerance ``trust_rtol``
+    (:mod:`mpsobs.analysis.trust`)."""
+    results = _results(run_dir, trust_rtol)
+    return plots.plot_results(results, store.RunStore(run_dir).figures_dir)
+
+
+def scale(run_dir: str | os.PathLike, *, window: float = 0.3, fraction: float = 0.9,
+          trust_rtol: float = trust.DEFAULT_TRUST_RTOL) -> pd.DataFrame:
     """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
     with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
 
-    See :func:`mpsobs.analysis.scaling.scaling_table` for ``window`` and ``fraction``.
-    Raises InputError (and writes nothing) for a missing table, missing columns or a
-    group with a single L.
+    See :func:`mpsobs.analysis.scaling.scaling_table` for ``window`` and ``fraction``;
+    the trusted times are computed at tolerance ``trust_rtol``
+    (:mod:`mpsobs.analysis.trust`). Raises InputError (and writes nothing) for a missing
+    table, missing columns or a group with a single L.
     """
     run_store = store.RunStore(run_dir)
-    results = scaling.read_results(run_dir)
+    results = _results(run_dir, trust_rtol)
     table = scaling.scaling_table(results, window=window, fraction=fraction)
     figure = plots.collapse_figure(scaling.collapse_curves(results, table))
     with store.atomic_write(run_store.root / "scaling.csv") as tmp:
@@ -105,3 +118,34 @@ def scale(run_dir: str | os.PathLike, *, window: float = 0.3,
         table.to_parquet(tmp, index=False)
     plots.save_figure(figure, run_store.figures_dir / "collapse")
     return table
+
+
+#: The generated references: topic -> function returning markdown.
+REFERENCES = {"keys": build.keys_reference, "columns": columns.columns_markdown}
+
+
+def reference(topic: str) -> str:
+    """The markdown reference of ``topic``: "keys" (spec keys, from the schema) or
+    "columns" (result and parameter columns)."""
+    if topic not in REFERENCES:
+        raise InputError(f"TOPIC: expected one of {', '.join(REFERENCES)}, got {topic!r}")
+    return REFERENCES[topic]()
+
+
+#: Marker names of the generated blocks in a markdown file, by topic.
+_MARKERS = {"keys": "spec-keys", "columns": "columns"}
+
+
+def refresh_references(text: str) -> str:
+    """``text`` (markdown, e.g. the README) with every generated block replaced by a
+    fresh :func:`reference`: the lines between ``<!-- generated: spec-keys -->`` and
+    ``<!-- end generated: spec-keys -->`` (likewise ``columns``). A missing marker pair
+    is an InputError naming it."""
+    for topic, name in _MARKERS.items():
+        start, end = f"<!-- generated: {name} -->", f"<!-- end generated: {name} -->"
+        head, found, rest = text.partition(start + "\n")
+        _, closed, tail = rest.partition(end)
+        if not (found and closed):
+            raise InputError(f"markers: expected a block between {start!r} and {end!r}")
+        text = f"{head}{start}\n{reference(topic)}{end}{tail}"
+    return text

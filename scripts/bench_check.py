@@ -31,7 +31,7 @@ from pathlib import Path
 from mpsobs import evolve
 from mpsobs.chain import models
 from mpsobs.pipeline import point, spec
-from mpsobs.pipeline.point import build_model, initial_state
+from mpsobs.pipeline.build import build_model, initial_state
 
 RUNS = Path(__file__).resolve().parents[1] / "runs"
 

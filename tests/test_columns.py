@@ -6,7 +6,7 @@ from __future__ import annotations
 import pytest
 
 from mpsobs.pipeline import columns, spec
-from mpsobs.pipeline.point import ROW_COLUMNS
+from mpsobs.pipeline.columns import ROW_COLUMNS
 
 #: Specs whose points together have every kind of parameter column.
 SPECS = [

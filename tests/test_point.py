@@ -1,7 +1,7 @@
 """The point kernel: its truncation check (the check evolution at a smaller bond against
-exact evolution, at round-off for an exact bond, across a resume, and the trusted-time
-rule), and check_point, the cheap half of compute_point (no DMRG, no time step), with its
-refusals named by point and coarse-graining."""
+exact evolution, at round-off for an exact bond, across a resume, with the trusted times
+the analysis derives from it), and check_point, the cheap half of compute_point (no DMRG,
+no time step), with its refusals named by key path, point and coarse-graining."""
 
 from __future__ import annotations
 
@@ -11,17 +11,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from mpsobs.analysis.trust import trusted_time, with_trusted_times
 from mpsobs.chain import evolution as tebd
-from mpsobs.chain import models
+from mpsobs.chain import models, states
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline import spec
-from mpsobs.pipeline.point import (
-    ROUNDOFF_NATS,
-    check_point,
-    check_points,
-    compute_point,
-    trusted_time,
-)
+from mpsobs.pipeline import build, spec
+from mpsobs.pipeline.point import check_point, check_points, compute_point
 
 TRUNC_COLUMNS = ["S_obs_trunc_err", "S_shannon_trunc_err", "S_boltzmann_trunc_err",
                  "check_discarded_weight", "t_trusted"]
@@ -94,7 +89,7 @@ def test_truncation_error_covers_the_true_error_against_exact_evolution(
     times = QUENCH_TIMES
     (point,) = spec.parse(_quench(QUENCH_L, chi_max, times, cutoff=0.0)).points
     assert point.params["evolution"]["chi_check"] == chi_max // 2
-    rows = compute_point(point)
+    rows = with_trusted_times(compute_point(point), 0.01)
     true_err = np.abs(rows["S_obs"].to_numpy() - exact_quench_entropies)
     assert rows["discarded_weight"].iloc[-1] > 0.1   # truncation matters by the end
     assert true_err.max() > 0.1
@@ -111,7 +106,7 @@ def test_truncation_error_is_round_off_when_both_bonds_are_exact():
     data["coarse"] = [{"observable": "number", "block": 2},
                       {"observable": "energy", "block": 2}]
     (point,) = spec.parse(data).points
-    rows = compute_point(point)
+    rows = with_trusted_times(compute_point(point))
     assert rows["S_ent_half"].iloc[-1] > 1.0   # entangled: not a trivial check
     for column in ("S_obs_trunc_err", "S_shannon_trunc_err", "S_boltzmann_trunc_err"):
         assert rows[column].max() < 1e-10, column
@@ -121,7 +116,7 @@ def test_truncation_error_is_round_off_when_both_bonds_are_exact():
 
 def test_check_off_gives_nan_columns():
     (point,) = spec.parse(_quench(8, 8, [0.0, 0.5], chi_check=0)).points
-    rows = compute_point(point)
+    rows = with_trusted_times(compute_point(point))
     assert rows[TRUNC_COLUMNS].isna().all().all()
 
 
@@ -165,43 +160,12 @@ def test_checkpoint_with_the_wrong_number_of_states_is_not_resumed():
                                   full.drop(columns="elapsed_s"))
 
 
-# --------------------------------------------------------------------------- rule
-
-T = np.arange(6.0)
-S = np.array([1.0, 2.0, 3.0, 3.5, 3.6, 3.6])
-
-
-def test_trusted_time_ends_before_the_first_failing_time():
-    #            t = 0     1     2      3     4     5;  rtol * S = 0.02, 0.04, 0.06, ...
-    err = np.array([0.0, 0.03, 0.05, 0.2, 0.01, 0.5])
-    assert trusted_time(T, S, np.zeros(6), err, 0.02) == 2.0   # fails at t = 3 first
-    assert trusted_time(T, S, np.zeros(6), err, 0.1) == 4.0    # 0.5 > 0.36 at t = 5
-    assert trusted_time(T, S, np.zeros(6), err, 0.2) == math.inf   # nothing fails
-
-
-def test_sampling_error_widens_the_allowance():
-    err = np.array([0.0, 0.03, 0.05, 0.2, 0.01, 0.5])
-    stderr = np.array([0.0, 0.0, 0.0, 0.25, 0.0, 0.0])
-    assert trusted_time(T, S, stderr, err, 0.02) == 4.0   # t = 3 hidden in the noise
-
-
-def test_trusted_time_conventions_at_the_edges():
-    # the first time already fails: nothing trusted
-    assert trusted_time(T, S, np.zeros(6), np.full(6, 1.0), 0.01) == -math.inf
-    # S_obs = 0 at t = 0 (a basis state in its macrostate): round-off passes there
-    zero = np.array([0.0, 1.0])
-    assert trusted_time(np.arange(2.0), zero, np.zeros(2), np.array([ROUNDOFF_NATS / 2,
-                                                                      1e-3]), 0.01) == math.inf
-    # no check evolution
-    assert math.isnan(trusted_time(T, S, np.zeros(6), np.full(6, np.nan), 0.01))
-
-
 def test_trusted_time_is_one_value_per_coarse_graining_in_the_rows():
     data = _quench(8, 4, [0.0, 1.0, 2.0, 3.0, 4.0])
     data["coarse"] = [{"observable": "number", "block": 2},
                       {"observable": "energy", "block": 2}]
     (point,) = spec.parse(data).points
-    rows = compute_point(point)
+    rows = with_trusted_times(compute_point(point), 0.01)
     for _, curve in rows.groupby("coarse_graining"):
         assert curve["t_trusted"].nunique() == 1
         want = trusted_time(curve["t"].to_numpy(), curve["S_obs"].to_numpy(),
@@ -220,16 +184,23 @@ def _forbid(*_args, **_kwargs):
     raise AssertionError("the check ran an expensive kernel")
 
 
-@pytest.mark.parametrize("state", [
-    {"kind": "ground", "prequench": {"delta": 2.0}},
-    {"kind": "gas", "box": [2, 8], "number": 3, "fill": "ground"},
-    {"kind": "random_product", "draw": "haar"},
+@pytest.mark.parametrize("state, needs_dmrg", [
+    ({"kind": "ground", "prequench": {"delta": 2.0}}, True),
+    ({"kind": "gas", "box": [2, 8], "number": 3, "fill": "ground"}, True),
+    ({"kind": "random_product", "draw": "haar"}, False),
 ])
-def test_check_runs_no_dmrg_and_no_time_step(state, monkeypatch):
+def test_check_runs_no_dmrg_and_no_time_step(state, needs_dmrg, monkeypatch):
+    # DMRG is called as models.dmrg (ground states) and, imported by name, as
+    # states.dmrg (a gas filled by its ground state): patch both names
     monkeypatch.setattr(models, "dmrg", _forbid)
+    monkeypatch.setattr(states, "dmrg", _forbid)
     monkeypatch.setattr(tebd._Chain, "apply_layer", _forbid)
     (p,) = _points(state, [{"observable": ["number", "energy"], "block": 3}])
     check_point(p)
+    if needs_dmrg:   # the patches catch the DMRG that the full build would run
+        model = build.build_model(p.params["model"], p.L)
+        with pytest.raises(AssertionError, match="expensive kernel"):
+            build.initial_state(p.params["state"], model, p.params["evolution"])
 
 
 def test_refusal_names_the_point_and_the_coarse_graining():
@@ -239,3 +210,37 @@ def test_refusal_names_the_point_and_the_coarse_graining():
     with pytest.raises(InputError, match=r"point 1 \(model.L=52\): coarse-graining 'wide': "
                                          r"coarse_graining: blocks wider than 12"):
         check_points(points)
+    with pytest.raises(InputError, match=r"^coarse\[0\]\.block: point 1 "):
+        check_points(points)
+
+
+def test_refusal_about_regions_names_the_regions_key():
+    # a 13-site energy region is too wide for block tensors: the message names the
+    # regions, not a block size
+    (p,) = _points({"kind": "neel"}, [{"observable": "energy",
+                                       "regions": [[0, 13], [13, 26]]}], L=26)
+    with pytest.raises(InputError, match=r"^coarse\[0\]\.regions: .*more than 12 sites"):
+        check_point(p)
+
+
+@pytest.mark.parametrize("pattern", ["01", "0"])
+def test_a_state_above_infinite_temperature_is_flagged(pattern, caplog):
+    """Transverse Ising chain (h = 0, free fermions: exact Gibbs reference). The Gibbs
+    temperature is negative exactly when the state's energy lies above the
+    infinite-temperature energy Tr H / 2**L, computed here from the sparse Hamiltonian
+    (a fact of the trade: <H>_beta decreases in beta, through Tr H / 2**L at beta = 0)."""
+    L = 6
+    data = {"model": {"name": "ising", "L": L, "g": 0.5},
+            "state": {"kind": "product", "pattern": pattern},
+            "evolution": {"chi_max": 8}, "times": {"values": [0.0, 0.5]},
+            "coarse": [{"observable": "number", "block": 2}],
+            "estimator": {"method": "exact"}}
+    (point,) = spec.parse(data).points
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.point"):
+        rows = compute_point(point)
+    infinite = models.ising(L, g=0.5).sparse_hamiltonian().diagonal().sum().real / 2**L
+    above = bool(rows["energy"].iloc[0] > infinite)
+    assert above == (pattern == "01")   # antiparallel neighbours: the top of -J sz sz
+    assert (rows["above_infinite_temperature"] == above).all()
+    assert ((rows["beta"] < 0) == above).all()
+    assert ("above infinite temperature" in caplog.text) == above

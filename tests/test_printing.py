@@ -12,7 +12,7 @@ from mpsobs.chain import coarse, models, states
 from mpsobs.core.printing import with_error
 from mpsobs.estimators import blocktensors
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
-from mpsobs.pipeline import spec, store, sweep
+from mpsobs.pipeline import build, spec, store, sweep
 from mpsobs.references import gaussian, thermo
 
 L = 512
@@ -35,6 +35,7 @@ def objects() -> dict:
                       "state": {"kind": "neel"}, "times": {"t_max": 1.0, "n_times": 11},
                       "coarse": [{"observable": "number", "block": [2, 4, 8]}]})
     point = run.points[0]
+    built = build.build_point(point, cheap_only=True)
     failure = sweep.Failure(point, "InputError", "x" * 2000, True)
     n = L // 2
     return {
@@ -53,6 +54,7 @@ def objects() -> dict:
             ((0, n), (n, L)), np.zeros((n + 1, 2), int), np.full(n + 1, 1 / (n + 1)),
             0.0, 0.0, 1e-16, None),
         "point": point, "run spec": run, "failure": failure,
+        "built point": built, "built coarse-graining": built.coarse[0],
         "report": sweep.SweepReport(6, 1, 4, (failure,), pd.DataFrame({"a": range(99)})),
         "store": store.RunStore("/tmp/somewhere"),
     }

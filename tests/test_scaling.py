@@ -17,6 +17,7 @@ from mpsobs import workflow
 from mpsobs.analysis import scaling
 from mpsobs.analysis.synthetic import SaturationLaw, saturating_results
 from mpsobs.core.errors import InputError
+from mpsobs.core.printing import with_error
 
 LENGTHS = (8, 12, 16, 24)
 TIMES = np.arange(0.0, 200.0 + 1e-9, 0.5)
@@ -167,7 +168,7 @@ def test_scale_run_writes_tables_and_collapse(tmp_path):
     assert np.allclose(csv.plateau_per_site, table.plateau_per_site, rtol=1e-12)
     text = scaling.format_table(table)
     for row in table.drop_duplicates(["coarse_graining", "Delta"]).itertuples():
-        assert scaling.format_value(row.extrapolated_per_site, row.extrapolated_err) in text
+        assert with_error(row.extrapolated_per_site, row.extrapolated_err) in text
 
 
 def test_collapse_curves_rescale_time_and_rise():
@@ -394,6 +395,6 @@ def test_warnings_name_only_the_parameters_that_vary(caplog):
 
 
 def test_numbers_are_printed_to_the_precision_of_their_error():
-    assert scaling.format_value(0.123456, 0.0123) == "0.123 +- 0.012"
-    assert scaling.format_value(12.3456, 1.7) == "12.3 +- 1.7"
-    assert scaling.format_value(0.65, 1e-17) == "0.65"  # exact up to rounding
+    assert with_error(0.123456, 0.0123) == "0.123 +- 0.012"
+    assert with_error(12.3456, 1.7) == "12.3 +- 1.7"
+    assert with_error(0.65, 1e-17) == "0.65"  # exact up to rounding

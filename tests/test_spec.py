@@ -10,8 +10,9 @@ import pytest
 
 from mpsobs import cli
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline import spec
+from mpsobs.pipeline import build, spec
 from mpsobs.pipeline.columns import EXTRA, REQUIRED
+from mpsobs.pipeline.point import check_points
 
 RUNS = Path(__file__).resolve().parents[1] / "runs"
 
@@ -175,19 +176,21 @@ def _base() -> dict:
     return tomllib.loads(BASE)
 
 
-@pytest.mark.parametrize("method", spec.ESTIMATOR_METHODS)
+@pytest.mark.parametrize("method", build.ESTIMATOR_METHODS)
 def test_every_estimator_method_is_accepted_and_an_unknown_one_refused(method):
+    # the spec parses the method as a string; the builder checks it with the estimators
     data = _base()
     data["estimator"] = {"method": method}
     if method in ("auto", "sample", "sample_strings"):
         data["estimator"]["target_stderr"] = 0.05  # these sample, so a target is allowed
     data["model"]["L"] = 8
     data["coarse"] = [{"observable": "number", "regions": [[0, 4], [4, 8]]}]
-    point = spec.parse(data).points[0]
-    assert point.params["estimator"]["method"] == method
+    points = spec.parse(data).points
+    check_points(points)
+    assert points[0].params["estimator"]["method"] == method
     data["estimator"]["method"] = "sample-path"
     with pytest.raises(InputError, match=r"^estimator\.method: .*'sample_strings'"):
-        spec.parse(data)
+        check_points(spec.parse(data).points)
 
 
 def test_cartesian_product_and_zip():
@@ -261,12 +264,13 @@ def test_check_bond_follows_chi_max_and_can_be_swept_or_switched_off():
     run = spec.parse(data)
     assert {(p.columns["chi_max"], p.columns["chi_check"]) for p in run.points} == {
         (16, 8), (33, 16)}  # default chi_max // 2 per point
-    assert all(p.params["evolution"]["trust_rtol"] == 0.01 for p in run.points)
-    data["evolution"].update(chi_max=16, chi_check=[0, 4, 12], trust_rtol=0.05)
+    # the trusted-time tolerance is an analysis option, not a point parameter
+    assert all("trust_rtol" not in p.params["evolution"] for p in run.points)
+    data["evolution"].update(chi_max=16, chi_check=[0, 4, 12])
     swept = spec.parse(data)
     assert ("evolution.chi_check",) in swept.axes
     assert sorted({p.columns["chi_check"] for p in swept.points}) == [0, 4, 12]
-    assert {p.columns["trust_rtol"] for p in swept.points} == {0.05}
+    assert all("trust_rtol" not in p.columns for p in swept.points)
     off = spec.parse({**data, "evolution": {"chi_max": 1}})  # chi_max // 2 = 0: off
     assert {p.columns["chi_check"] for p in off.points} == {0}
 
@@ -337,3 +341,32 @@ def test_fixed_settings_ignore_sweep_values_only():
     assert spec.fixed_settings(run.body, axes) == spec.fixed_settings(grown.body, axes)
     other = spec.parse({**DISORDER, "times": {"t_max": 0.4, "n_times": 3}})
     assert spec.fixed_settings(run.body, axes) != spec.fixed_settings(other.body, axes)
+
+
+def test_spec_imports_nothing_numerical_from_the_package():
+    """The spec is schema and parsing only: of the package it imports the core alone."""
+    import ast
+
+    tree = ast.parse(Path(spec.__file__).read_text(encoding="utf-8"))
+    imported = {node.module for node in ast.walk(tree)
+                if isinstance(node, ast.ImportFrom) and node.module}
+    imported |= {alias.name for node in ast.walk(tree) if isinstance(node, ast.Import)
+                 for alias in node.names}
+    ours = {name for name in imported if name.startswith("mpsobs")}
+    assert ours and all(name.startswith("mpsobs.core.") for name in ours), ours
+
+
+def test_retired_trust_rtol_leaves_body_and_run_identity(caplog):
+    data = _base()
+    data["evolution"]["trust_rtol"] = 0.2
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.spec"):
+        old = spec.parse(data)
+    assert "analysis option" in caplog.text or "no longer part of a point" in caplog.text
+    new = spec.parse(_base())
+    assert "trust_rtol" not in old.body["evolution"]
+    assert old.run_id == new.run_id
+    assert [p.point_id for p in old.points] == [p.point_id for p in new.points]
+    # a run directory written with the key in its stored spec is the same run
+    stored = {**old.body, "evolution": {**old.body["evolution"], "trust_rtol": 0.01}}
+    axes = [path for group in new.axes for path in group]
+    assert spec.fixed_settings(stored, axes) == spec.fixed_settings(new.body, axes)

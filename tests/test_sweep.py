@@ -443,7 +443,7 @@ def test_grown_run_computes_only_the_new_points_and_equals_a_fresh_run(tmp_path,
 
 def test_stored_site_fields_rebuild_the_model(tmp_path, scheduler):
     from mpsobs.chain import models
-    from mpsobs.pipeline.point import build_model
+    from mpsobs.pipeline.build import build_model
 
     run = spec.parse(GROW_SPEC)
     root = tmp_path / "run"

@@ -42,7 +42,9 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
-from mpsobs.analysis import scaling
+from mpsobs.analysis import scaling, trust
+from mpsobs.core.printing import with_error
+from mpsobs.pipeline import columns as col
 from mpsobs.pipeline.store import atomic_write
 
 __all__ = [
@@ -78,11 +80,10 @@ CAPTION_SIZE = 6.5
 #: Parameter columns left out of captions (bookkeeping, not physics).
 CAPTION_SKIP = ("block_size",)
 
-ENTROPY_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo",
-                   "S_ent_half")
-PARTS_COLUMNS = ("t", "coarse_graining", "L", "S_shannon", "S_boltzmann")
-KNOWLEDGE_COLUMNS = ("t", "coarse_graining", "L", "knowledge", "S_obs_err", "S_max",
-                     "S_thermo")
+_CURVE = (col.T, col.COARSE_GRAINING, col.LENGTH)
+ENTROPY_COLUMNS = (*_CURVE, col.S_OBS, col.S_OBS_ERR, col.S_THERMO, col.S_ENT_HALF)
+PARTS_COLUMNS = (*_CURVE, col.S_SHANNON, col.S_BOLTZMANN)
+KNOWLEDGE_COLUMNS = (*_CURVE, col.KNOWLEDGE, col.S_OBS_ERR, col.S_MAX, col.S_THERMO)
 
 Draw = Callable[[object, pd.DataFrame, int, object], None]
 
@@ -247,8 +248,8 @@ def _diagnostics(ent_ax, weight_ax, data: pd.DataFrame, colors: Mapping[int, tup
 
 def _has_equilibrium(results: pd.DataFrame) -> bool:
     """Whether the rows carry an equilibrium value S_obs_eq (some finite)."""
-    return scaling.EQUILIBRIUM in results and bool(
-        np.isfinite(results[scaling.EQUILIBRIUM].to_numpy(dtype=float)).any())
+    return col.EQUILIBRIUM in results and bool(
+        np.isfinite(results[col.EQUILIBRIUM].to_numpy(dtype=float)).any())
 
 
 def _style(label: str, **line) -> Line2D:
@@ -263,18 +264,18 @@ def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = N
     half-chain entanglement and the discarded weight."""
     scaling.require_columns(results, ENTROPY_COLUMNS, "entropy figure")
     has_eq = _has_equilibrium(results)
-    has_trunc = scaling.TRUNCATION_ERROR in results
+    has_trunc = col.TRUNCATION_ERROR in results
     trusted_range: dict[int, list[float]] = {}  # per panel: values on trusted times
 
     def draw(ax, curve, L, color):
         t = curve["t"].to_numpy(dtype=float)
         y = curve["S_obs"].to_numpy(dtype=float) / L
         trusted = None
-        if scaling.TRUSTED_TIME in curve:
-            limits = curve[scaling.TRUSTED_TIME].to_numpy(dtype=float)
+        if col.TRUSTED_TIME in curve:
+            limits = curve[col.TRUSTED_TIME].to_numpy(dtype=float)
             trusted = float(np.min(np.where(np.isnan(limits), np.inf, limits)))
         if has_trunc:
-            trunc = np.nan_to_num(curve[scaling.TRUNCATION_ERROR].to_numpy(dtype=float)) / L
+            trunc = np.nan_to_num(curve[col.TRUNCATION_ERROR].to_numpy(dtype=float)) / L
             ax.fill_between(t, y - trunc, y + trunc, color=color, alpha=TRUNCATION_ALPHA,
                             linewidth=0)
         err = curve["S_obs_err"].to_numpy(dtype=float) / L
@@ -284,7 +285,7 @@ def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = N
         inside = t <= (np.inf if trusted is None else trusted)
         shown_values = [y[inside] - err[inside], y[inside] + err[inside], thermo]
         if has_eq:
-            eq = curve[scaling.EQUILIBRIUM].to_numpy(dtype=float) / L
+            eq = curve[col.EQUILIBRIUM].to_numpy(dtype=float) / L
             ax.plot(t, eq, color=color, **EQUILIBRIUM_STYLE)
             shown_values.append(eq)
         trusted_range.setdefault(id(ax), []).extend(
@@ -342,7 +343,7 @@ def knowledge_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None =
         thermal = (curve["S_max"] - curve["S_thermo"]).to_numpy(dtype=float) / L
         ax.plot(t, thermal, color=color, linestyle="--", linewidth=0.8)
         if has_eq:
-            eq = (curve["S_max"] - curve[scaling.EQUILIBRIUM]).to_numpy(dtype=float) / L
+            eq = (curve["S_max"] - curve[col.EQUILIBRIUM]).to_numpy(dtype=float) / L
             ax.plot(t, eq, color=color, **EQUILIBRIUM_STYLE)
 
     styles = [_style(r"$K/L$"),
@@ -389,7 +390,7 @@ def collapse_figure(collapse: pd.DataFrame,
                     _band(ax, curve["scaled_time"].to_numpy(), curve["rise"].to_numpy(),
                           curve["rise_err"].to_numpy(), colors[int(L)])
                 _log_time_axis(ax)
-                note = "$z = " + scaling.format_value(z, z_err).replace("+-", r"\pm") + "$"
+                note = "$z = " + with_error(z, z_err).replace("+-", r"\pm") + "$"
             else:
                 note = "z not available"
             for level in (1.0, rows["saturation_fraction"].iloc[0]):
@@ -424,13 +425,17 @@ def _suffix(key: Mapping[str, object]) -> str:
     return "".join("_" + re.sub(r"[^A-Za-z0-9.=+-]+", "-", p) for p in parts)
 
 
-def plot_results(results: pd.DataFrame, directory: str | os.PathLike) -> list[Path]:
+def plot_results(results: pd.DataFrame, directory: str | os.PathLike,
+                 trust_rtol: float | None = None) -> list[Path]:
     """Write the entropy, parts and knowledge figures of a results table to ``directory``.
 
     One set per combination of the parameters other than L (file names
     ``entropy_<name>=<value>_....png`` etc., just ``entropy.png`` when L is the only
     parameter), PNG and PDF each. Colours per L are shared by all figures.
+    ``trust_rtol``: tolerance of the trusted times (:func:`mpsobs.analysis.trust.trusted`:
+    None keeps a ``t_trusted`` column the table has, else uses the default tolerance).
     """
+    results = trust.trusted(results, trust_rtol)
     scaling.require_columns(results, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
                             "figures")
     colors = length_colors(results["L"])

@@ -16,7 +16,9 @@ both enters the fits (a per-realization plateau carries its disorder offset at e
 time of the window, so the window scatter of the mean curve would understate it).
 
 Trusted times: where the table has ``t_trusted`` (the last time at which the truncation
-error is within tolerance; NaN or inf = every time), a curve is used only up to its
+error is within tolerance; NaN or inf = every time; :mod:`mpsobs.analysis.trust` computes
+it from the stored truncation errors, at the tolerance ``trust_rtol`` of
+:func:`scaling_table`), a curve is used only up to its
 smallest t_trusted when at least MIN_TRUSTED_POINTS times remain; otherwise all times
 are used, with ``S_obs_trunc_err`` added in quadrature to S_obs_err beyond t_trusted
 (a warning is logged). The window below is then the last fraction of the used range.
@@ -86,8 +88,23 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from mpsobs.analysis import trust
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline.columns import parameter_columns
+from mpsobs.core.printing import with_error
+from mpsobs.pipeline.columns import (
+    COARSE_GRAINING,
+    DISORDER_AXES,
+    EQUILIBRIUM,
+    EQUILIBRIUM_ERR,
+    LENGTH,
+    S_OBS,
+    S_OBS_ERR,
+    S_THERMO,
+    TRUNCATION_ERROR,
+    TRUSTED_TIME,
+    T,
+    parameter_columns,
+)
 from mpsobs.pipeline.store import RunStore
 
 __all__ = [
@@ -95,7 +112,7 @@ __all__ = [
     "disorder_columns", "disorder_average", "group_columns", "key_columns",
     "length_companions", "split", "varying_columns",
     "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
-    "collapse_curves", "format_table", "format_value",
+    "collapse_curves", "format_table",
 ]
 
 log = logging.getLogger(__name__)
@@ -108,17 +125,10 @@ BOOTSTRAP_SAMPLES = 256
 BOOTSTRAP_SEED = 20240601
 #: A curve has surely crossed a level at its first point beyond it by this many errors.
 CLEAR_MARGIN = 3.0
-#: Columns the scaling needs in the results table.
-SCALING_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo")
-#: Columns read when present (tables of older runs lack them): the truncation error of
-#: S_obs (nats), the last time it is within tolerance (1/J; NaN or inf = every time),
-#: the equilibrium value S_obs of the Gibbs state with its error (nats), and the
-#: parameter columns that label disorder realizations (comma-separated names).
-TRUNCATION_ERROR = "S_obs_trunc_err"
-TRUSTED_TIME = "t_trusted"
-EQUILIBRIUM = "S_obs_eq"
-EQUILIBRIUM_ERR = "S_obs_eq_err"
-DISORDER_AXES = "disorder_axes"
+#: Columns the scaling needs in the results table. Read when present (tables of older
+#: runs lack them): TRUNCATION_ERROR, TRUSTED_TIME, EQUILIBRIUM, EQUILIBRIUM_ERR and
+#: DISORDER_AXES (:mod:`mpsobs.pipeline.columns`).
+SCALING_COLUMNS = (T, COARSE_GRAINING, LENGTH, S_OBS, S_OBS_ERR, S_THERMO)
 #: Columns of disorder means made here (never taken for parameters).
 _DISORDER_MEAN_COLUMNS = ("S_obs_disorder_err", "S_obs_sampling_err", "realizations")
 #: A curve is scaled on its trusted times alone when at least this many remain.
@@ -522,7 +532,7 @@ def _plateau_row(curve: _Curve, window: float) -> dict:
     if abs(drift) > 4 * drift_err:
         log.warning("plateau: S_obs/L still drifts by %s over the window for %s; the curve "
                     "has not saturated (the drift is added to plateau_err)",
-                    format_value(drift, drift_err), name)
+                    with_error(drift, drift_err), name)
         plateau_err = float(np.hypot(plateau_err, drift))
     frame = curve.mean
     thermo = _window_mean(frame, "S_thermo", inside, L)
@@ -762,15 +772,18 @@ def fit_exponent(saturation_df: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def scaling_table(results: pd.DataFrame, window: float = 0.3,
-                  fraction: float = 0.9) -> pd.DataFrame:
+def scaling_table(results: pd.DataFrame, window: float = 0.3, fraction: float = 0.9,
+                  trust_rtol: float | None = None) -> pd.DataFrame:
     """The scaling table: one row per (coarse_graining, other parameters, L).
 
     Columns: those of :func:`plateaus` and :func:`saturation_times`, plus the group fits
     of :func:`extrapolate` and :func:`fit_exponent` repeated on every row of the group.
+    ``trust_rtol``: tolerance of the trusted times (:mod:`mpsobs.analysis.trust`); None
+    keeps a ``t_trusted`` column the table has, else uses the default tolerance.
     Raises InputError for missing columns or a group with a single L.
     """
     _check_options(window=window, fraction=fraction)
+    results = trust.trusted(results, trust_rtol)
     keys, curves = _curves(results, SCALING_COLUMNS)
     plateau_df = pd.DataFrame([_plateau_row(curve, window) for curve in curves])
     saturation_df = _saturation_rows(curves, plateau_df, fraction)
@@ -832,18 +845,6 @@ def _canonical(key: dict) -> tuple:
     return tuple(one(v) for v in key.values())
 
 
-def format_value(value: float, err: float) -> str:
-    """'value +- err' with two significant digits of the error, the value to the same
-    decimal ('nan' for NaN; the value alone, 6 significant digits, when the error is NaN
-    or below ERROR_FLOOR relative to the value, i.e. exact up to rounding)."""
-    if not np.isfinite(value):
-        return "nan"
-    if not np.isfinite(err) or err <= ERROR_FLOOR * max(1.0, abs(value)):
-        return f"{value:.6g}"
-    digits = int(min(10, max(0, 1 - np.floor(np.log10(err)))))
-    return f"{value:.{digits}f} +- {err:.{digits}f}"
-
-
 def _known(df: pd.DataFrame, column: str) -> bool:
     """Whether ``column`` is present with at least one finite value."""
     return column in df and bool(np.isfinite(df[column].to_numpy(dtype=float)).any())
@@ -877,21 +878,21 @@ def format_table(df: pd.DataFrame) -> str:
                     ("deficit_eq/L", "deficit_eq_per_site", "deficit_eq_err")]
     columns.append((f"t_{fraction:g}", "saturation_time", "saturation_time_err"))
     for label, value, err in columns:
-        per_length[label] = [format_value(v, e) for v, e in zip(df[value], df[err], strict=True)]
+        per_length[label] = [with_error(v, e) for v, e in zip(df[value], df[err], strict=True)]
     fits = df.drop_duplicates(keys)
     per_group = fits[keys].copy()
     per_group["L_count"] = fits["extrapolation_lengths"].to_numpy()
     per_group["plateau/L (L->inf)"] = [
-        format_value(v, e)
+        with_error(v, e)
         for v, e in zip(fits["extrapolated_per_site"], fits["extrapolated_err"], strict=True)]
     per_group["chi2/dof"] = [f"{v:.2f}" for v in fits["extrapolation_chi2_red"]]
     if _known(fits, "deficit_eq_extrapolated"):
         per_group["deficit_eq/L (L->inf)"] = [
-            format_value(v, e) for v, e in zip(fits["deficit_eq_extrapolated"],
+            with_error(v, e) for v, e in zip(fits["deficit_eq_extrapolated"],
                                                fits["deficit_eq_extrapolated_err"],
                                                strict=True)]
     per_group[f"z (t_{fraction:g} ~ L^z)"] = [
-        format_value(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
+        with_error(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
     per_group["z chi2/dof"] = [f"{v:.2f}" for v in fits["z_chi2_red"]]
     return "\n".join([
         "Plateaus per chain length (entropy per site in nats, time in 1/J):",

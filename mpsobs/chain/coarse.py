@@ -201,13 +201,15 @@ def _resolve_regions(L: int, size: int | None,
     if not out:
         raise InputError("regions: expected at least one (start, stop) pair")
     position = 0
-    for start, stop in out:
+    for j, (start, stop) in enumerate(out):
         if start != position:
             kind = "a gap" if start > position else "an overlap"
-            raise InputError(f"regions: {kind} at site {min(start, position)}; regions must "
-                             f"be contiguous, half-open and cover 0..{L} in order")
+            raise InputError(f"regions: {kind} at site {min(start, position)} before "
+                             f"regions[{j}]; regions must be contiguous, half-open and cover "
+                             f"0..{L} in order")
         if stop <= start:
-            raise InputError(f"regions: empty or reversed region ({start}, {stop})")
+            raise InputError(f"regions: empty or reversed region ({start}, {stop}) at "
+                             f"regions[{j}]")
         position = stop
     if position != L:
         raise InputError(f"regions: they cover 0..{position}, not 0..{L}")

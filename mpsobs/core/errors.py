@@ -59,8 +59,22 @@ def one_of(value, name: str, allowed: Collection) -> object:
     return value
 
 
+def check_seed(seed, name: str = "seed") -> None:
+    """Refuse a seed that :func:`numpy.random.default_rng` does not take: the one seed
+    rule of the package. Accepted: None (fresh entropy), a non-negative integer, a
+    sequence of them, a numpy SeedSequence or Generator; refused (InputError naming
+    ``name``): strings, floats, booleans and anything numpy refuses."""
+    expected = ("expected an integer >= 0, a sequence of them, a numpy SeedSequence or "
+                "Generator, or None")
+    if isinstance(seed, str | bytes | float | bool | np.bool_ | np.floating):
+        raise InputError(f"{name}: {expected}; got {seed!r}")
+    try:
+        np.random.default_rng(seed)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"{name}: {expected}; got {seed!r} ({exc})") from None
+
+
 def seed_value(value, name: str = "seed"):
-    """A seed for :func:`numpy.random.default_rng`: an integer >= 0 or a SeedSequence."""
-    if isinstance(value, np.random.SeedSequence):
-        return value
-    return integer(value, name, 0)
+    """``value`` if it is a seed (:func:`check_seed`), for ``np.random.default_rng``."""
+    check_seed(value, name)
+    return value

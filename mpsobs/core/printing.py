@@ -22,11 +22,24 @@ def number(value) -> str:
     return f"{float(value) + 0.0:.6g}"  # + 0.0: no "-0"
 
 
+#: An error at most this fraction of max(1, |value|) counts as exact up to rounding.
+EXACT_RTOL = 1e-12
+
+
 def with_error(value: float, error: float) -> str:
-    """``value +- error`` rounded at the error's first significant digit (two when it
-    starts with 1); an error of 0 (exact) or not finite prints the value alone."""
+    """``value +- error``: the one format of a number with its error.
+
+    The error is rounded to one significant digit, two when that digit is 1 (so that
+    the rounding changes it by at most about 5 %; a rule of the trade, simplified from
+    the Particle Data Group's, Review of Particle Physics, Introduction, from memory),
+    the value to the same decimal. A value that is not finite prints as ``nan``/``inf``; an error
+    that is 0, not finite or at most EXACT_RTOL * max(1, |value|) (exact up to
+    rounding) prints the value alone in six significant digits.
+    """
     value, error = float(value), float(error)
-    if not (error > 0 and math.isfinite(error) and math.isfinite(value)):
+    if not math.isfinite(value):
+        return number(value)
+    if not (math.isfinite(error) and error > EXACT_RTOL * max(1.0, abs(value))):
         return number(value)
     exponent = math.floor(math.log10(error))
     digits = max(0, -exponent + (1 if f"{error:e}"[0] == "1" else 0))

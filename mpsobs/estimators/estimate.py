@@ -59,7 +59,7 @@ from typing import Literal
 import numpy as np
 
 from mpsobs.chain.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
-from mpsobs.core.errors import InputError
+from mpsobs.core.errors import InputError, check_seed
 from mpsobs.estimators.blocktensors import (
     WORK_BYTES,
     ReadoutBlock,
@@ -76,12 +76,15 @@ from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, bond_entropies, right_c
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
            "draw_conditional", "ConditionalBatch", "conditional_terms",
            "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
-           "check_seed", "Method", "METHODS"]
+           "check_seed", "Method", "METHODS", "SAMPLING_METHODS"]
 
 logger = logging.getLogger(__name__)
 
 Method = Literal["enumerate", "count", "sample", "sample_strings", "exact"]
 METHODS = ("enumerate", "count", "sample", "sample_strings", "exact")
+#: The methods that always sample (the automatic choice samples where exact methods cost
+#: more); sample settings apply to these and to the automatic choice.
+SAMPLING_METHODS = ("sample", "sample_strings")
 
 #: Samples drawn when neither ``samples`` nor ``target_stderr`` is given.
 DEFAULT_SAMPLES = 1000
@@ -134,19 +137,6 @@ def _positive_int(value, name: str, minimum: int = 1) -> int:
     if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
         raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
     return int(value)
-
-
-def check_seed(seed) -> None:
-    """Refuse a ``seed`` that :func:`numpy.random.default_rng` does not take (InputError
-    naming ``seed``)."""
-    if isinstance(seed, str | bytes | float | bool):
-        raise InputError(f"seed: expected None, a non-negative integer, a sequence of them, "
-                         f"a numpy SeedSequence or Generator; got {seed!r}")
-    try:
-        np.random.default_rng(seed)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"seed: expected None, a non-negative integer, a sequence of them, "
-                         f"a numpy SeedSequence or Generator; got {seed!r} ({exc})") from None
 
 
 def _check_options(samples, target_stderr, prune, max_branches, batch, max_samples,

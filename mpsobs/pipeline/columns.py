@@ -1,156 +1,168 @@
 """Column names of the results table (one row per point, time and coarse-graining).
 
-The names in :data:`REQUIRED` are fixed: tools outside the project read them. Every
-other column that is not in :data:`EXTRA` is a parameter of the sweep point (``L`` is
-always one of them).
+This module is the one home of every result column name: the producers
+(:mod:`mpsobs.pipeline.point`) and the readers (:mod:`mpsobs.analysis.scaling`,
+:mod:`mpsobs.analysis.plots`, :mod:`mpsobs.analysis.trust`) use the constants below.
+:data:`RESULT_COLUMNS` gives each its unit and one-line description; the names of
+:data:`REQUIRED` are fixed (tools outside the project read them). Every column of a
+table that is not a result column is a parameter of the sweep point (``L`` is always one
+of them); the parameter columns, their units and descriptions come from the spec schema
+(:data:`mpsobs.pipeline.spec.SCHEMA`).
+
+Units: nats for entropies, 1/J for times and inverse temperatures, J for energies, s
+for wall times; "" when the value is a count, a label, a flag or dimensionless.
 """
 
 from __future__ import annotations
 
 from collections.abc import Iterable
+from dataclasses import dataclass
 
-__all__ = ["REQUIRED", "EXTRA", "DESCRIPTIONS", "PARAMETER_DESCRIPTIONS", "describe",
-           "parameter_columns"]
+from mpsobs.pipeline.spec import parameter_column_descriptions
+
+__all__ = ["Column", "RESULT_COLUMNS", "REQUIRED", "EXTRA", "ANALYSIS", "ROW_COLUMNS",
+           "DESCRIPTIONS", "PARAMETER_DESCRIPTIONS", "describe", "parameter_columns",
+           "columns_markdown"]
+
+# --------------------------------------------------------------------------- names
+
+T = "t"
+COARSE_GRAINING = "coarse_graining"
+S_OBS = "S_obs"
+S_OBS_ERR = "S_obs_err"
+S_SHANNON = "S_shannon"
+S_BOLTZMANN = "S_boltzmann"
+KNOWLEDGE = "knowledge"
+S_MAX = "S_max"
+S_THERMO = "S_thermo"
+S_ENT_HALF = "S_ent_half"
+DISCARDED_WEIGHT = "discarded_weight"
+MAX_BOND = "max_bond"
+SEED = "seed"
+METHOD = "method"
+POINT_ID = "point_id"
+S_SHANNON_ERR = "S_shannon_err"
+S_BOLTZMANN_ERR = "S_boltzmann_err"
+PRUNED_MASS = "pruned_mass"
+SAMPLES = "samples"
+ALGORITHM = "algorithm"
+S_THERMO_ERR = "S_thermo_err"
+S_GGE = "S_gge"
+BETA = "beta"
+ABOVE_INFINITE_TEMPERATURE = "above_infinite_temperature"
+ENERGY = "energy"
+ENERGY_DRIFT = "energy_drift"
+NORM = "norm"
+ELAPSED = "elapsed_s"
+VERSION = "mpsobs_version"
+EQUILIBRIUM = "S_obs_eq"
+EQUILIBRIUM_ERR = "S_obs_eq_err"
+S_OBS_GGE = "S_obs_gge"
+TRUNCATION_ERROR = "S_obs_trunc_err"
+SHANNON_TRUNCATION_ERROR = "S_shannon_trunc_err"
+BOLTZMANN_TRUNCATION_ERROR = "S_boltzmann_trunc_err"
+CHECK_DISCARDED_WEIGHT = "check_discarded_weight"
+OBSERVABLES = "observables"
+N_OBSERVABLES = "n_observables"
+DISORDER_AXES = "disorder_axes"
+BLOCK_SIZE = "block_size"
+TRUSTED_TIME = "t_trusted"
+#: The chain length: a parameter column every table has.
+LENGTH = "L"
+
+
+@dataclass(frozen=True)
+class Column:
+    """One result column: name, unit, one-line description, and where it comes from
+    (``"required"``: a point's row, fixed name; ``"row"``: a point's row;
+    ``"grouping"``: a point's row that the analysis treats like a parameter;
+    ``"analysis"``: added by the analysis when it reads a table)."""
+
+    name: str
+    unit: str
+    description: str
+    kind: str = "row"
+
+
+_NO_CHECK = "; NaN without the check (evolution.chi_check = 0)"
+
+#: Every result column, in table order (the point's parameters follow in the table).
+RESULT_COLUMNS: tuple[Column, ...] = (
+    Column(T, "1/J", "time after the quench (hbar = 1)", "required"),
+    Column(COARSE_GRAINING, "", "short label of the coarse-graining", "required"),
+    Column(S_OBS, "nats", "observational entropy of the state at t", "required"),
+    Column(S_OBS_ERR, "nats", "standard error of S_obs (0 when exact)", "required"),
+    Column(S_SHANNON, "nats", "Shannon part H(p) of S_obs", "required"),
+    Column(S_BOLTZMANN, "nats", "mean Boltzmann entropy sum_i p_i ln V_i of S_obs",
+           "required"),
+    Column(KNOWLEDGE, "nats", "S_max - S_obs, the KL divergence from the maximally mixed "
+                              "outcomes", "required"),
+    Column(S_MAX, "nats", "largest possible S_obs, L ln 2", "required"),
+    Column(S_THERMO, "nats", "Gibbs entropy at the initial energy (and particle number)",
+           "required"),
+    Column(S_ENT_HALF, "nats", "von Neumann entanglement entropy of the half-chain bond",
+           "required"),
+    Column(DISCARDED_WEIGHT, "", "cumulative TEBD discarded weight up to t", "required"),
+    Column(MAX_BOND, "", "largest bond dimension of the state at t", "required"),
+    Column(SEED, "", "the point's own seed (derived from its parameters)", "required"),
+    Column(METHOD, "", "'exact' or 'sampled'", "required"),
+    Column(POINT_ID, "", "hash of the point's resolved parameters (its store key)"),
+    Column(S_SHANNON_ERR, "nats", "standard error of S_shannon"),
+    Column(S_BOLTZMANN_ERR, "nats", "standard error of S_boltzmann"),
+    Column(PRUNED_MASS, "", "probability left out by exact enumeration"),
+    Column(SAMPLES, "", "number of samples drawn (0 when exact)"),
+    Column(ALGORITHM, "", "which estimator ran"),
+    Column(S_THERMO_ERR, "nats", "error of S_thermo (purification or root finding)"),
+    Column(S_GGE, "nats", "generalised Gibbs entropy of the initial mode occupations (XX); "
+                          "NaN otherwise"),
+    Column(BETA, "1/J", "inverse temperature of the Gibbs reference (negative: the state "
+                        "lies above infinite temperature)"),
+    Column(ENERGY, "J", "energy <H> of the state at t"),
+    Column(ENERGY_DRIFT, "J", "<H>(t) - <H>(0)"),
+    Column(NORM, "", "norm of the state at t before renormalisation"),
+    Column(ELAPSED, "s", "wall time of the point"),
+    Column(VERSION, "", "version of mpsobs that computed the row"),
+    Column(EQUILIBRIUM, "nats", "S_obs of the Gibbs ensemble behind S_thermo for this "
+                                "coarse-graining (the equilibrium value)"),
+    Column(EQUILIBRIUM_ERR, "nats", "error of S_obs_eq: stderr + pruned-mass bound + "
+                                    "Gibbs-state error bound"),
+    Column(S_OBS_GGE, "nats", "S_obs of the XX generalised Gibbs ensemble (number, <= 3 "
+                              "regions); NaN otherwise"),
+    Column(TRUNCATION_ERROR, "nats", "|S_obs(chi_max) - S_obs(chi_check)|, a truncation "
+                                     "error estimate (not a bound)" + _NO_CHECK),
+    Column(SHANNON_TRUNCATION_ERROR, "nats", "the same for the Shannon part" + _NO_CHECK),
+    Column(BOLTZMANN_TRUNCATION_ERROR, "nats", "the same for the Boltzmann part" + _NO_CHECK),
+    Column(CHECK_DISCARDED_WEIGHT, "", "cumulative discarded weight of the check evolution "
+                                       "at bond chi_check up to t" + _NO_CHECK),
+    Column(OBSERVABLES, "", "observables of the coarse-graining, comma-separated, asked in "
+                            "this order on every block"),
+    Column(N_OBSERVABLES, "", "number of observables asked per block (1 = a single one)"),
+    Column(DISORDER_AXES, "", "parameter columns whose values are disorder realizations of "
+                              "one ensemble, comma-separated ('' = none)"),
+    Column(ABOVE_INFINITE_TEMPERATURE, "", "True when the Gibbs reference has beta < 0 (a "
+                                           "state above infinite temperature)"),
+    Column(BLOCK_SIZE, "", "block size of the coarse-graining (0 for explicit regions); "
+                           "the analysis groups by it like a parameter", "grouping"),
+    Column(TRUSTED_TIME, "1/J", "end of the trusted time range of the point and "
+                                "coarse-graining at the analysis tolerance (inf: all "
+                                "trusted; -inf: none; NaN: no check)", "analysis"),
+)
 
 #: Fixed result columns (besides the point's parameters, among them ``L``).
-REQUIRED = (
-    "t",                 # time, in units of 1/J (hbar = 1)
-    "coarse_graining",   # short label of the coarse-graining
-    "S_obs",             # observational entropy, nats
-    "S_obs_err",         # its standard error (0 when exact)
-    "S_shannon",         # Shannon part H(p)
-    "S_boltzmann",       # mean Boltzmann entropy sum p ln V
-    "knowledge",         # S_max - S_obs (KL divergence from the maximally mixed outcomes)
-    "S_max",             # L ln 2
-    "S_thermo",          # Gibbs entropy at the initial energy (and number)
-    "S_ent_half",        # von Neumann entropy of the half-chain bond
-    "discarded_weight",  # cumulative TEBD discarded weight up to t
-    "max_bond",          # largest bond dimension of the state at t
-    "seed",              # the point's seed
-    "method",            # "exact" or "sampled"
-)
+REQUIRED = tuple(c.name for c in RESULT_COLUMNS if c.kind == "required")
+#: Further result columns of a point's rows that are not parameters.
+EXTRA = tuple(c.name for c in RESULT_COLUMNS if c.kind == "row")
+#: Columns the analysis adds to a table it reads (never stored by a point).
+ANALYSIS = tuple(c.name for c in RESULT_COLUMNS if c.kind == "analysis")
+#: Columns of a point's rows before its parameters, in order.
+ROW_COLUMNS = (*REQUIRED, *EXTRA, *(c.name for c in RESULT_COLUMNS if c.kind == "grouping"))
 
-#: Further result columns that are not parameters.
-EXTRA = (
-    "point_id",          # hash of the point's canonical parameters
-    "S_shannon_err",
-    "S_boltzmann_err",
-    "pruned_mass",       # probability left out by exact enumeration
-    "samples",           # number of samples (0 when exact)
-    "algorithm",         # which estimator ran
-    "S_thermo_err",
-    "S_gge",             # generalised Gibbs entropy (free-fermion models), NaN otherwise
-    "beta",              # inverse temperature of the Gibbs reference
-    "energy",            # <H> of the state at t
-    "energy_drift",      # <H>(t) - <H>(0)
-    "norm",              # norm of the state at t before renormalisation
-    "elapsed_s",         # wall time of the point
-    "mpsobs_version",
-    "S_obs_eq",          # S_obs of the Gibbs ensemble behind S_thermo (the equilibrium value)
-    "S_obs_eq_err",      # its error: stderr + pruned-mass bound + Gibbs-state error bound
-    "S_obs_gge",         # S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions)
-    # truncation check: the same point evolved at bond chi_check (evolution.chi_check),
-    # estimated with the same seeds; all NaN when the check is off (chi_check = 0)
-    "S_obs_trunc_err",         # |S_obs(chi_max) - S_obs(chi_check)|: an error estimate, not a bound
-    "S_shannon_trunc_err",     # the same for the Shannon part
-    "S_boltzmann_trunc_err",   # the same for the Boltzmann part
-    "check_discarded_weight",  # cumulative discarded weight of the check evolution up to t
-    "t_trusted",               # end of the trusted time range of the (point, coarse-graining)
-    "observables",       # the coarse-graining's observables, comma-separated, in asking order
-    "n_observables",     # how many observables it asks per block, one after the other
-    "disorder_axes",     # parameter columns that label disorder realizations, comma-separated
-)
-
-#: Unit and one-line description of every result column, by name (units: nats for
-#: entropies, 1/J for times and inverse temperatures, J for energies; "" when the value
-#: is a count, a label or dimensionless). A column without an entry here has no
-#: description in the Parquet schema; tests check that every column has one.
-DESCRIPTIONS: dict[str, tuple[str, str]] = {
-    "t": ("1/J", "time after the quench (hbar = 1)"),
-    "coarse_graining": ("", "short label of the coarse-graining"),
-    "S_obs": ("nats", "observational entropy of the state at t"),
-    "S_obs_err": ("nats", "standard error of S_obs (0 when exact)"),
-    "S_shannon": ("nats", "Shannon part H(p) of S_obs"),
-    "S_boltzmann": ("nats", "mean Boltzmann entropy sum_i p_i ln V_i of S_obs"),
-    "knowledge": ("nats", "S_max - S_obs, the KL divergence from the maximally mixed outcomes"),
-    "S_max": ("nats", "largest possible S_obs, L ln 2"),
-    "S_thermo": ("nats", "Gibbs entropy at the initial energy (and particle number)"),
-    "S_ent_half": ("nats", "von Neumann entanglement entropy of the half-chain bond"),
-    "discarded_weight": ("", "cumulative TEBD discarded weight up to t"),
-    "max_bond": ("", "largest bond dimension of the state at t"),
-    "seed": ("", "the point's own seed (derived from its parameters)"),
-    "method": ("", "'exact' or 'sampled'"),
-    "point_id": ("", "hash of the point's resolved parameters (its store key)"),
-    "S_shannon_err": ("nats", "standard error of S_shannon"),
-    "S_boltzmann_err": ("nats", "standard error of S_boltzmann"),
-    "pruned_mass": ("", "probability left out by exact enumeration"),
-    "samples": ("", "number of samples drawn (0 when exact)"),
-    "algorithm": ("", "which estimator ran"),
-    "S_thermo_err": ("nats", "error of S_thermo (purification or root finding)"),
-    "S_gge": ("nats", "generalised Gibbs entropy of the initial mode occupations (XX); NaN "
-                      "otherwise"),
-    "beta": ("1/J", "inverse temperature of the Gibbs reference"),
-    "energy": ("J", "energy <H> of the state at t"),
-    "energy_drift": ("J", "<H>(t) - <H>(0)"),
-    "norm": ("", "norm of the state at t before renormalisation"),
-    "elapsed_s": ("s", "wall time of the point"),
-    "mpsobs_version": ("", "version of mpsobs that computed the row"),
-    "S_obs_eq": ("nats", "S_obs of the Gibbs ensemble behind S_thermo for this "
-                         "coarse-graining (the equilibrium value)"),
-    "S_obs_eq_err": ("nats", "error of S_obs_eq: stderr + pruned-mass bound + Gibbs-state "
-                             "error bound"),
-    "S_obs_gge": ("nats", "S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions); "
-                          "NaN otherwise"),
-    "S_obs_trunc_err": ("nats", "|S_obs(chi_max) - S_obs(chi_check)|, a truncation error "
-                                "estimate (not a bound); NaN without the check"),
-    "S_shannon_trunc_err": ("nats", "the same for the Shannon part"),
-    "S_boltzmann_trunc_err": ("nats", "the same for the Boltzmann part"),
-    "check_discarded_weight": ("", "cumulative discarded weight of the check evolution at "
-                                   "bond chi_check up to t"),
-    "t_trusted": ("1/J", "end of the trusted time range of the point and coarse-graining "
-                         "(inf: all trusted; -inf: none; NaN: no check)"),
-    "observables": ("", "observables of the coarse-graining, comma-separated, asked in this "
-                        "order on every block"),
-    "n_observables": ("", "number of observables asked per block (1 = a single one)"),
-    "disorder_axes": ("", "parameter columns whose values are disorder realizations of one "
-                          "ensemble, comma-separated ('' = none)"),
-    "block_size": ("", "block size of the coarse-graining (0 for explicit regions)"),
-}
-
-#: Unit and description of the parameter columns the spec writes (see
-#: :mod:`mpsobs.spec`); ``pre_<name>`` columns are the same parameter before the quench.
-PARAMETER_DESCRIPTIONS: dict[str, tuple[str, str]] = {
-    "run_seed": ("", "seed of the run (spec key seed)"),
-    "model": ("", "model name (spec key model.name)"),
-    "L": ("", "chain length in sites"),
-    "J": ("J", "exchange coupling (the energy unit)"),
-    "delta": ("", "XXZ anisotropy Delta (in units of J)"),
-    "g": ("J", "transverse field of the Ising chain"),
-    "field": ("", "shape of the longitudinal field: uniform, staggered or random"),
-    "h": ("J", "strength of the longitudinal field"),
-    "field_seed": ("", "seed of the random field (model.field.seed)"),
-    "state": ("", "kind of initial state"),
-    "pattern": ("", "product-state pattern repeated along the chain"),
-    "number": ("", "particles in the gas box"),
-    "filling": ("", "filling fraction of the gas box"),
-    "box_start": ("", "first site of the gas box"),
-    "box_stop": ("", "site after the gas box"),
-    "box_from": ("", "start of the gas box as a fraction of L"),
-    "box_to": ("", "end of the gas box as a fraction of L"),
-    "fill": ("", "how the gas box is filled"),
-    "state_seed": ("", "seed of the random product state"),
-    "draw": ("", "how random product states are drawn"),
-    "dt": ("1/J", "TEBD time step"),
-    "order": ("", "Trotter order of TEBD"),
-    "chi_max": ("", "largest bond dimension allowed in TEBD"),
-    "cutoff": ("", "TEBD truncation cutoff (discarded weight per bond)"),
-    "chi_check": ("", "bond dimension of the truncation-check evolution (0 = off)"),
-    "trust_rtol": ("", "relative tolerance of the trusted time range (evolution.trust_rtol)"),
-    "estimator": ("", "estimator method asked for in the spec"),
-    "sample_budget": ("", "samples per estimate asked for in the spec"),
-    "target_stderr": ("nats", "target standard error of sampling (0 = off)"),
-    "prune": ("", "probability floor of exact enumeration"),
-}
+#: Unit and one-line description of every result column, by name.
+DESCRIPTIONS: dict[str, tuple[str, str]] = {c.name: (c.unit, c.description)
+                                            for c in RESULT_COLUMNS}
+#: Unit and description of the parameter columns the spec writes (from its schema);
+#: ``pre_<name>`` columns are the same parameter before the quench.
+PARAMETER_DESCRIPTIONS: dict[str, tuple[str, str]] = parameter_column_descriptions()
 
 
 def describe(name: str) -> tuple[str, str] | None:
@@ -167,5 +179,26 @@ def describe(name: str) -> tuple[str, str] | None:
 
 def parameter_columns(columns: Iterable[str]) -> list[str]:
     """The columns of a results table that are sweep-point parameters, in table order."""
-    known = set(REQUIRED) | set(EXTRA)
+    known = {*REQUIRED, *EXTRA, *ANALYSIS}
     return [c for c in columns if c not in known]
+
+
+def _cell(text: str) -> str:
+    return text.replace("|", "\\|")
+
+
+def columns_markdown() -> str:
+    """The column reference as markdown: result columns (with where they come from),
+    then the parameter columns; generated from :data:`RESULT_COLUMNS` and the spec
+    schema."""
+    origin = {"required": "point (fixed name)", "row": "point", "grouping": "point",
+              "analysis": "analysis"}
+    lines = ["Result columns (one row per point, time and coarse-graining):", "",
+             "| column | unit | from | description |", "| --- | --- | --- | --- |"]
+    lines += [f"| `{c.name}` | {c.unit} | {origin[c.kind]} | {_cell(c.description)} |"
+              for c in RESULT_COLUMNS]
+    lines += ["", "Parameter columns (from the spec; `pre_<name>`: the same before the "
+              "quench):", "", "| column | unit | description |", "| --- | --- | --- |"]
+    lines += [f"| `{name}` | {unit} | {_cell(text)} |"
+              for name, (unit, text) in PARAMETER_DESCRIPTIONS.items()]
+    return "\n".join(lines) + "\n"

@@ -37,11 +37,13 @@ coarse-graining, see :func:`trusted_time`) is the end of the time range where th
 truncation error stays within ``evolution.trust_rtol`` times S_obs or within the
 sampling error. Without the check all four error columns and ``t_trusted`` are NaN.
 
-Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
-block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
-point's parameters. Entropies in nats. The frame's ``attrs["site_fields"]`` holds the
-longitudinal field h_i of every site (units of J), which the store keeps in the point
-file's metadata.
+The model, initial state, coarse-grainings and estimator options come from the builder
+(:mod:`mpsobs.pipeline.build`) that :func:`check_point` uses too.
+
+Rows: one per (time, coarse-graining), with the columns
+:data:`mpsobs.pipeline.columns.ROW_COLUMNS` and the point's parameters. Entropies in
+nats. The frame's ``attrs["site_fields"]`` holds the longitudinal field h_i of every
+site (units of J), which the store keeps in the point file's metadata.
 """
 
 from __future__ import annotations
@@ -55,27 +57,29 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
-from mpsobs.chain import coarse, models, states
-from mpsobs.chain import evolution as tebd
+from mpsobs.chain import coarse, models
 from mpsobs.core.errors import InputError
 from mpsobs.core.version import __version__
 from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.estimators.estimate import countable, pruned_entropy_bound
 from mpsobs.estimators.result import EntropyResult
 from mpsobs.mps.tensors import MPS
-from mpsobs.pipeline.columns import EXTRA, REQUIRED
+from mpsobs.pipeline import columns as col
+from mpsobs.pipeline.build import (
+    BuiltCoarse,
+    build_point,
+    estimator_seed,
+    evolve,
+    initial_state,
+)
 from mpsobs.pipeline.spec import Point
 from mpsobs.pipeline.store import SITE_FIELDS_ATTR
 from mpsobs.references import gaussian, thermo
 
-__all__ = ["compute_point", "check_point", "check_points", "build_model",
-           "build_coarse_grainings", "initial_state", "total_number", "trusted_time",
-           "ROW_COLUMNS", "ROUNDOFF_NATS"]
+__all__ = ["compute_point", "check_point", "check_points", "total_number", "EQ_MAX_BOND"]
 
 log = logging.getLogger(__name__)
 
-#: Columns of a point's rows before its parameters.
-ROW_COLUMNS = (*REQUIRED, *EXTRA, "block_size")
 _NUMBER = np.diag([0.0, 1.0])  # sites in |1>
 #: <N> this close to an integer is taken as that integer (a state of definite number).
 NUMBER_TOL = 1e-8
@@ -83,8 +87,6 @@ NUMBER_TOL = 1e-8
 #: chi_max if smaller). Its sampling costs about 2**b chi^3 per block and sample (b sites
 #: per block), so the bond is kept modest; the truncation it causes is in S_obs_eq_err.
 EQ_MAX_BOND = 24
-#: Truncation errors up to this (nats) are round-off for the trusted time range.
-ROUNDOFF_NATS = 1e-9
 
 
 @dataclass(frozen=True)
@@ -99,76 +101,6 @@ class _Reference:
     S_obs_eq: tuple[float, ...]
     S_obs_eq_err: tuple[float, ...]
     S_obs_gge: tuple[float, ...]
-
-
-def build_model(params: dict, L: int) -> models.Model:
-    """The model of a resolved ``[model]`` (or ``[state.prequench]``) section."""
-    couplings = {k: v for k, v in params.items() if k not in ("name", "L", "field")}
-    field = params["field"]
-    return models.build(params["name"], L, **couplings, h=field["strength"],
-                        field=field["kind"], seed=field["seed"])
-
-
-def build_coarse_grainings(entries: list[dict], model: models.Model
-                           ) -> list[tuple[str, int, coarse.BlockCoarseGraining]]:
-    """(label, block size or 0, coarse-graining) for each resolved ``[[coarse]]`` entry.
-    An InputError names the entry (its label, or observable and blocks)."""
-    out = []
-    for entry in entries:
-        parts = []
-        try:
-            for name in entry["observable"]:
-                energy = name == "energy"
-                parts.append(coarse.blocks(model.L, entry["block"], name,
-                                           model=model if energy else None,
-                                           bin_width=entry["bin_width"] if energy else None,
-                                           regions=entry["regions"]))
-            cg = parts[0] if len(parts) == 1 else coarse.sequence(*parts)
-        except InputError as exc:
-            raise InputError(f"coarse-graining {_entry_name(entry)}: {exc}") from None
-        out.append((entry["label"] or cg.label, entry["block"] or 0, cg))
-    return out
-
-
-def _entry_name(entry: dict) -> str:
-    if entry["label"]:
-        return repr(entry["label"])
-    where = (f"block {entry['block']}" if entry["block"] is not None
-             else f"regions {entry['regions']}")
-    return f"{'>'.join(entry['observable'])} {where}"
-
-
-def initial_state(params: dict, model: models.Model, evolution: dict, *,
-                  cheap_only: bool = False) -> MPS:
-    """The initial MPS of a resolved ``[state]`` section (a ground state is found with
-    the evolution's chi_max and cutoff).
-
-    With ``cheap_only``, a state that needs DMRG (``ground``, a gas filled by ``ground``)
-    is not computed: its arguments and pre-quench model are checked and the all-empty
-    product state stands in for it (for :func:`check_point`).
-    """
-    L, kind = model.L, params["kind"]
-    if kind == "product":
-        return states.product_state(params["pattern"] * (L // len(params["pattern"])))
-    if kind == "domain_wall":
-        return states.domain_wall(L)
-    if kind == "neel":
-        return states.neel(L)
-    if kind == "gas":
-        start, stop = params["box"]
-        args = (L, start, stop, params["number"], params["fill"])
-        if cheap_only and params["fill"] == "ground":
-            states.check_gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
-            return _empty_chain(L)
-        return states.gas_in_box(*args, model=model, max_bond=evolution["chi_max"])
-    if kind == "random_product":
-        return states.random_product_state(L, params["seed"], params["draw"])
-    if kind == "ground":
-        pre = build_model({**params["prequench"], "name": model.name}, L)
-        if cheap_only:
-            return _empty_chain(L)
-        return states.ground_state(pre, max_bond=evolution["chi_max"]).state
-    raise InputError(f"state.kind: unknown {kind!r}")
 
 
 def total_number(state: MPS) -> float:
@@ -188,8 +120,8 @@ def _is_xx(model: models.Model) -> bool:
     return True
 
 
-def _reference(model: models.Model, state: MPS, energy: float, cgs, options: list[dict],
-               seeds: list[int], max_bond: int) -> _Reference:
+def _reference(model: models.Model, state: MPS, energy: float,
+               cgs: Sequence[BuiltCoarse], seeds: list[int], max_bond: int) -> _Reference:
     """Gibbs entropy at the state's energy (and number, where conserved); the GGE entropy
     of its mode occupations for XX chains; S_obs of both ensembles per coarse-graining
     (see the module docstring). A state with every site empty or every site filled is
@@ -201,7 +133,7 @@ def _reference(model: models.Model, state: MPS, energy: float, cgs, options: lis
             number = float(round(number))
         if number in (0.0, float(model.L)):
             return _Reference(0.0, 0.0, math.nan, math.nan,
-                              *_equilibrium_values(state, 0.0, cgs, options, seeds),
+                              *_equilibrium_values(state, 0.0, cgs, seeds),
                               S_obs_gge=(math.nan,) * len(cgs))
     xx = _is_xx(model)
     ensemble = "canonical" if xx and number is not None and number.is_integer() else "grand"
@@ -210,25 +142,30 @@ def _reference(model: models.Model, state: MPS, energy: float, cgs, options: lis
     eq_values = eq_errors = (math.nan,) * len(cgs)
     sector = int(number) if ensemble == "canonical" else None
     mu = None if sector is not None else gibbs.mu
+    if gibbs.beta < 0:
+        log.warning("the initial state lies above infinite temperature: its Gibbs reference "
+                    "has beta = %g < 0 (energy %g in the upper half of the spectrum); "
+                    "S_thermo and S_obs_eq refer to that negative-temperature ensemble",
+                    gibbs.beta, energy)
     if np.isfinite(gibbs.beta) and (mu is None or np.isfinite(mu)):
         rho = thermo.gibbs_state(model, gibbs.beta, mu, number=sector,
                                  max_bond=min(max_bond, EQ_MAX_BOND))
-        eq_values, eq_errors = _equilibrium_values(rho, rho.error, cgs, options, seeds)
+        eq_values, eq_errors = _equilibrium_values(rho, rho.error, cgs, seeds)
     else:
         log.warning("S_obs_eq: no Gibbs state at beta = %g, mu = %s (ground or ceiling "
                     "energy, or infinite temperature off half filling); NaN", gibbs.beta, mu)
-    gge_obs = tuple(_gge_entropy(gge, cg) for _, _, cg in cgs)
+    gge_obs = tuple(_gge_entropy(gge, c.coarse_graining) for c in cgs)
     return _Reference(S_thermo=float(gibbs.entropy), S_thermo_err=float(gibbs.entropy_err),
                       beta=float(gibbs.beta),
                       S_gge=float(gge.entropy) if gge is not None else math.nan,
                       S_obs_eq=eq_values, S_obs_eq_err=eq_errors, S_obs_gge=gge_obs)
 
 
-def _equilibrium_values(state, trace_distance: float, cgs, options: list[dict],
-                       seeds: list[int]) -> tuple[tuple[float, ...], tuple[float, ...]]:
+def _equilibrium_values(state, trace_distance: float, cgs: Sequence[BuiltCoarse],
+                        seeds: list[int]) -> tuple[tuple[float, ...], tuple[float, ...]]:
     """(S_obs per coarse-graining, their errors) of an equilibrium state (:func:`_estimate`)."""
-    eq = [_estimate(state, cg, opts, seed, trace_distance)
-          for (_, _, cg), opts, seed in zip(cgs, options, seeds, strict=True)]
+    eq = [_estimate(state, c.coarse_graining, c.options, seed, trace_distance)
+          for c, seed in zip(cgs, seeds, strict=True)]
     values, errors = zip(*eq, strict=True)
     return tuple(values), tuple(errors)
 
@@ -252,68 +189,22 @@ def _gge_entropy(gge: thermo.GGEResult | None, cg: coarse.BlockCoarseGraining) -
     return float(gaussian.number_entropy(gge.correlation, cg.regions).entropy)
 
 
-def _estimator_options(estimator: dict, cg: coarse.BlockCoarseGraining) -> dict:
-    """Keyword arguments of the estimator; the sample settings only where sampling can
-    happen (the exact methods, and "auto" on a countable coarse-graining, take none)."""
-    method = None if estimator["method"] == "auto" else estimator["method"]
-    options = {"method": method, "prune": estimator["prune"]}
-    if method in ("sample", "sample_strings") or (method is None and not countable(cg)):
-        options.update(samples=estimator["samples"],
-                       target_stderr=estimator["target_stderr"] or None)
-    return options
-
-
-def _estimator_seed(point_seed: int, time_index: int, cg_index: int) -> int:
-    return int(np.random.SeedSequence(point_seed, spawn_key=(time_index, cg_index))
-               .generate_state(1, np.uint64)[0] >> 1)
-
-
-def _empty_chain(L: int) -> MPS:
-    """Every site in |0>: a bond-1 stand-in state for the checks."""
-    return states.product_state("0" * L)
-
-
-def _prepare(point: Point) -> tuple[models.Model, list, list[dict]]:
-    """The point's model, coarse-grainings and estimator options."""
-    p = point.params
-    model = build_model(p["model"], p["model"]["L"])
-    cgs = build_coarse_grainings(p["coarse"], model)
-    return model, cgs, [_estimator_options(p["estimator"], cg) for _, _, cg in cgs]
-
-
 def check_point(point: Point) -> None:
     """Raise every InputError that :func:`compute_point` would raise from the point's
-    parameters, without its expensive part.
-
-    The same builders as compute_point make the model, the coarse-grainings, the
-    estimator options and the initial state (only checked where it needs DMRG, see
-    :func:`initial_state`); the evolution is set up (its arguments are checked at the
-    call) but not stepped; each estimator, with the point's options, evaluates the
-    all-empty product state (bond dimension 1). Cost: the block eigendecompositions of
-    energy coarse-grainings (2**b per block) and the estimators on a bond-1 state.
-    """
-    p = point.params
-    evo = p["evolution"]
-    model, cgs, options = _prepare(point)
-    state = initial_state(p["state"], model, evo, cheap_only=True)
-    tebd.evolve(state, model, p["times"]["values"], max_bond=evo["chi_max"],
-                cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"])
-    blank = _empty_chain(model.L)
-    for j, (label, _, cg) in enumerate(cgs):
-        try:
-            observational_entropy(blank, cg, seed=_estimator_seed(point.seed, 0, j),
-                                  **options[j])
-        except InputError as exc:
-            raise InputError(f"coarse-graining {label!r}: {exc}") from None
+    parameters, without its expensive part: :func:`mpsobs.pipeline.build.build_point`
+    with ``cheap_only`` (no DMRG, no time step; see there for the cost)."""
+    build_point(point, cheap_only=True)
 
 
 def check_points(points: Sequence[Point]) -> None:
-    """:func:`check_point` for every point; the error names the point."""
+    """:func:`check_point` for every point; the error keeps its key path first and names
+    the point after it (``coarse[0].block: point 1 (model.L=52): ...``)."""
     for point in points:
         try:
             check_point(point)
         except InputError as exc:
-            raise InputError(f"point {point.index} ({point.label}): {exc}") from None
+            path, _, rest = str(exc).partition(": ")
+            raise InputError(f"{path}: point {point.index} ({point.label}): {rest}") from None
 
 
 def _paired_options(main: EntropyResult, estimator: dict) -> dict:
@@ -341,48 +232,23 @@ def _truncation_columns(main: EntropyResult, check: EntropyResult | None,
                         check_discarded: float) -> dict:
     """The truncation-error columns of a row (NaN without a check evolution)."""
     if check is None:
-        return {"S_obs_trunc_err": math.nan, "S_shannon_trunc_err": math.nan,
-                "S_boltzmann_trunc_err": math.nan, "check_discarded_weight": math.nan}
-    return {"S_obs_trunc_err": abs(main.entropy - check.entropy),
-            "S_shannon_trunc_err": abs(main.shannon - check.shannon),
-            "S_boltzmann_trunc_err": abs(main.boltzmann - check.boltzmann),
-            "check_discarded_weight": check_discarded}
+        return {col.TRUNCATION_ERROR: math.nan, col.SHANNON_TRUNCATION_ERROR: math.nan,
+                col.BOLTZMANN_TRUNCATION_ERROR: math.nan,
+                col.CHECK_DISCARDED_WEIGHT: math.nan}
+    return {col.TRUNCATION_ERROR: abs(main.entropy - check.entropy),
+            col.SHANNON_TRUNCATION_ERROR: abs(main.shannon - check.shannon),
+            col.BOLTZMANN_TRUNCATION_ERROR: abs(main.boltzmann - check.boltzmann),
+            col.CHECK_DISCARDED_WEIGHT: check_discarded}
 
 
-def trusted_time(t: np.ndarray, S_obs: np.ndarray, S_obs_err: np.ndarray,
-                 trunc_err: np.ndarray, rtol: float) -> float:
-    """The end of the trusted time range of one curve (one point and coarse-graining).
-
-    An output time passes when its truncation error is within the tolerance or hidden
-    in the sampling noise::
-
-        S_obs_trunc_err <= max(rtol * |S_obs|, S_obs_err, ROUNDOFF_NATS)
-
-    and the trusted range ends at the last output time before the first time that fails
-    (later times that pass again do not count). Returns that time; ``inf`` when no time
-    fails (the check says nothing beyond the last computed time); ``-inf`` when the
-    first output time already fails; NaN when there is no check evolution (NaN
-    truncation errors). The arrays are in time order.
-    """
-    trunc_err = np.asarray(trunc_err, dtype=float)
-    if np.isnan(trunc_err).all():
-        return math.nan
-    allowed = np.maximum(np.maximum(rtol * np.abs(S_obs), S_obs_err), ROUNDOFF_NATS)
-    failing = np.flatnonzero(~(trunc_err <= allowed))
-    if failing.size == 0:
-        return math.inf
-    return float(t[failing[0] - 1]) if failing[0] > 0 else -math.inf
-
-
-def _with_trusted_times(frame: pd.DataFrame, rtol: float) -> pd.DataFrame:
-    """``frame`` with the column ``t_trusted`` (:func:`trusted_time` per coarse-graining)."""
-    frame["t_trusted"] = math.nan
-    for _, curve in frame.groupby("coarse_graining", sort=False):
-        curve = curve.sort_values("t")
-        frame.loc[curve.index, "t_trusted"] = trusted_time(
-            curve["t"].to_numpy(), curve["S_obs"].to_numpy(), curve["S_obs_err"].to_numpy(),
-            curve["S_obs_trunc_err"].to_numpy(), rtol)
-    return frame
+def _result_columns(res: EntropyResult) -> dict:
+    """The columns of a row that come from the estimate."""
+    return {col.S_OBS: res.entropy, col.S_OBS_ERR: res.stderr, col.S_SHANNON: res.shannon,
+            col.S_BOLTZMANN: res.boltzmann, col.KNOWLEDGE: res.knowledge,
+            col.S_MAX: res.max_entropy, col.METHOD: res.method,
+            col.S_SHANNON_ERR: res.shannon_err, col.S_BOLTZMANN_ERR: res.boltzmann_err,
+            col.PRUNED_MASS: res.pruned_mass, col.SAMPLES: res.samples,
+            col.ALGORITHM: res.algorithm}
 
 
 def compute_point(point: Point, *, progress: Callable[[int, int], None] | None = None,
@@ -405,16 +271,18 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         and, when there is a check evolution, of the check state; meta).
 
     Cost: the evolution, O(t_max / dt * L chi^3) (x3 for order 4), plus the estimators
-    at every output time (see :mod:`mpsobs.estimate`) and the thermodynamic reference;
-    the check evolution adds the same at its bond, about (chi_check / chi_max)^3 of the
-    evolution, and one more estimate per output time and coarse-graining.
+    at every output time (see :mod:`mpsobs.estimators.estimate`) and the thermodynamic
+    reference; the check evolution adds the same at its bond, about
+    (chi_check / chi_max)^3 of the evolution, and one more estimate per output time and
+    coarse-graining.
     """
     clock = time.monotonic()
     p = point.params
     evo, est, times = p["evolution"], p["estimator"], p["times"]["values"]
     chi_check = evo["chi_check"]
-    model, cgs, options = _prepare(point)
-    eq_seeds = [_estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
+    built = build_point(point, cheap_only=True)
+    model, cgs = built.model, built.coarse
+    eq_seeds = [estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
     n_states = 2 if chi_check else 1
     if (resume is not None and resume[1].get("point_id") == point.point_id
@@ -435,17 +303,16 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         state = initial_state(p["state"], model, evo)
         check_state = state if chi_check else None
         energy0 = models.energy(model, state)
-        ref = _reference(model, state, energy0, cgs, options, eq_seeds, evo["chi_max"])
+        ref = _reference(model, state, energy0, cgs, eq_seeds, evo["chi_max"])
         done, t_start, discarded0, norm0, check_discarded0 = 0, 0.0, 0.0, 1.0, 0.0
         rows, elapsed0 = [], 0.0
-    base = {"seed": point.seed, "point_id": point.point_id, "S_thermo": ref.S_thermo,
-            "S_thermo_err": ref.S_thermo_err, "S_gge": ref.S_gge, "beta": ref.beta,
-            "mpsobs_version": __version__}
+    base = {col.SEED: point.seed, col.POINT_ID: point.point_id, col.S_THERMO: ref.S_thermo,
+            col.S_THERMO_ERR: ref.S_thermo_err, col.S_GGE: ref.S_gge, col.BETA: ref.beta,
+            col.ABOVE_INFINITE_TEMPERATURE: bool(ref.beta < 0), col.VERSION: __version__}
     remaining = times[done:]
 
     def snapshots(start: MPS, bond: int):
-        return tebd.evolve(start, model, remaining, max_bond=bond, cutoff=evo["cutoff"],
-                           dt=evo["dt"], order=evo["order"], start_time=t_start)
+        return evolve(built, start, remaining, bond, start_time=t_start)
 
     if not remaining:
         pairs: Iterable = ()
@@ -459,25 +326,22 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         check_discarded = (check_discarded0 + check_snap.discarded_weight
                            if check_snap is not None else math.nan)
         norm = norm0 * snap.norm
-        for j, (label, block_size, cg) in enumerate(cgs):
-            seed = _estimator_seed(point.seed, k, j)
-            res = observational_entropy(snap.state, cg, seed=seed, **options[j])
+        for j, c in enumerate(cgs):
+            seed = estimator_seed(point.seed, k, j)
+            res = observational_entropy(snap.state, c.coarse_graining, seed=seed, **c.options)
             check = (None if check_snap is None else
-                     _check_estimate(check_snap.state, cg, res, seed, est, options[j]))
+                     _check_estimate(check_snap.state, c.coarse_graining, res, seed, est,
+                                     c.options))
             rows.append({
-                **base, "t": times[k], "coarse_graining": label, "S_obs": res.entropy,
-                "S_obs_err": res.stderr, "S_shannon": res.shannon,
-                "S_boltzmann": res.boltzmann, "knowledge": res.knowledge,
-                "S_max": res.max_entropy, "S_ent_half": snap.half_chain_entanglement,
-                "discarded_weight": discarded, "max_bond": snap.max_bond,
-                "method": res.method, "S_shannon_err": res.shannon_err,
-                "S_boltzmann_err": res.boltzmann_err, "pruned_mass": res.pruned_mass,
-                "samples": res.samples, "algorithm": res.algorithm, "energy": snap.energy,
-                "energy_drift": snap.energy - energy0, "norm": norm,
-                "S_obs_eq": ref.S_obs_eq[j], "S_obs_eq_err": ref.S_obs_eq_err[j],
-                "S_obs_gge": ref.S_obs_gge[j],
+                **base, col.T: times[k], col.COARSE_GRAINING: c.label, **_result_columns(res),
+                col.S_ENT_HALF: snap.half_chain_entanglement,
+                col.DISCARDED_WEIGHT: discarded, col.MAX_BOND: snap.max_bond,
+                col.ENERGY: snap.energy, col.ENERGY_DRIFT: snap.energy - energy0,
+                col.NORM: norm, col.EQUILIBRIUM: ref.S_obs_eq[j],
+                col.EQUILIBRIUM_ERR: ref.S_obs_eq_err[j], col.S_OBS_GGE: ref.S_obs_gge[j],
                 **_truncation_columns(res, check, check_discarded),
-                "block_size": block_size})
+                col.OBSERVABLES: ",".join(c.observables),
+                col.N_OBSERVABLES: len(c.observables), col.BLOCK_SIZE: c.block_size})
         elapsed = elapsed0 + time.monotonic() - clock
         if progress is not None:
             progress(round(times[k] / evo["dt"]), total_steps)
@@ -490,16 +354,12 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
             if check_snap is not None:
                 saved.append(list(check_snap.state.tensors))
             save(saved, meta)
-    frame = _with_trusted_times(pd.DataFrame(rows), evo["trust_rtol"])
-    frame["elapsed_s"] = elapsed0 + time.monotonic() - clock
-    asked = {label: entry["observable"] for (label, _, _), entry in zip(cgs, p["coarse"],
-                                                                          strict=True)}
-    frame["observables"] = frame["coarse_graining"].map(lambda lab: ",".join(asked[lab]))
-    frame["n_observables"] = frame["coarse_graining"].map(lambda lab: len(asked[lab]))
-    frame["disorder_axes"] = ",".join(point.disorder)
+    frame = pd.DataFrame(rows)
+    frame[col.ELAPSED] = elapsed0 + time.monotonic() - clock
+    frame[col.DISORDER_AXES] = ",".join(point.disorder)
     field = p["model"]["field"]
     frame.attrs[SITE_FIELDS_ATTR] = models.field_values(
         field["kind"], field["strength"], model.L, field["seed"]).tolist()
     for name, value in point.columns.items():
         frame[name] = value
-    return frame[[*ROW_COLUMNS, *point.columns]]
+    return frame[[*col.ROW_COLUMNS, *point.columns]]

@@ -1,10 +1,13 @@
 """One quench from Python: the rows a run table holds, without a spec file or a loop.
 
 :func:`run_quench` writes its arguments into a spec mapping (the sections of a spec
-file, see :mod:`mpsobs.spec`), validates it with :func:`mpsobs.spec.parse`, checks the
-single point with :func:`mpsobs.point.check_point` and computes it with
-:func:`mpsobs.point.compute_point`: the rows, columns and seeds are those of
-``mpsobs run`` on the same spec.
+file, see :mod:`mpsobs.pipeline.spec`), validates it with
+:func:`mpsobs.pipeline.spec.parse`, checks the single point with
+:func:`mpsobs.pipeline.point.check_point` and computes it with
+:func:`mpsobs.pipeline.point.compute_point`: the rows, columns and seeds are those of
+``mpsobs run`` on the same spec. Trusted times are an analysis of the rows:
+:func:`mpsobs.analysis.trust.with_trusted_times` adds them at a tolerance of your
+choice.
 """
 
 from __future__ import annotations
@@ -87,15 +90,15 @@ def run_quench(model: Mapping | Model, state: Mapping | str, times: Sequence[flo
     coarse : one ``[[coarse]]`` entry as a dict, e.g. ``{"observable": "number",
         "block": [2, 4]}``, or a list of them.
     max_bond : the evolution's bond dimension cap (``evolution.chi_max``, default 64).
-    evolution, estimator : the ``[evolution]`` (dt, order, chi_max, cutoff) and
-        ``[estimator]`` (method, samples, target_stderr, prune) tables; defaults as in
-        a spec file.
+    evolution, estimator : the ``[evolution]`` (dt, order, chi_max, cutoff, chi_check)
+        and ``[estimator]`` (method, samples, target_stderr, prune) tables; defaults as
+        in a spec file (``mpsobs reference keys``).
     seed : the run seed (random fields and states, sampling).
 
     Returns
     -------
     DataFrame: one row per (time, coarse-graining), the columns of a run table
-    (:mod:`mpsobs.columns`, then the point's parameters), entropies in nats.
+    (:mod:`mpsobs.pipeline.columns`, then the point's parameters), entropies in nats.
 
     Every value is checked as in a spec file (InputError naming the key path, e.g.
     ``model.delta``) and the point as by ``mpsobs check``, before the evolution starts.

@@ -1,57 +1,31 @@
-"""Spec files: parse and validate a TOML run description and expand it into sweep points.
+"""Spec files: the schema of a TOML run description, its parsing and validation, and
+the expansion of its sweep into points.
 
-A spec is data (TOML, read with :mod:`tomllib`); nothing in it is evaluated. Every key is
-checked before any work starts: unknown keys, wrong types, values out of range and
-inconsistent combinations raise :class:`mpsobs.errors.InputError` with the key path
-(``evolution.dt``, ``coarse[1].block``) and the allowed values.
+A spec is data (TOML, read with :mod:`tomllib`); nothing in it is evaluated. This module
+is schema and parsing only: it imports nothing numerical from mpsobs. One table,
+:data:`SCHEMA`, lists every key with its type, default, allowed values or range, unit
+and description; it drives the parsing, the checks of types and ranges, the names and
+descriptions of the parameter columns and the generated key reference
+(:func:`keys_markdown`, ``mpsobs reference keys``). Unknown keys, wrong types and values
+out of range raise :class:`mpsobs.core.errors.InputError` with the key path
+(``evolution.dt``, ``coarse[1].block``) and the allowed values. Rules that belong to the
+physics modules (block sizes, regions, estimator methods and what they can evaluate)
+are raised by those modules when :mod:`mpsobs.pipeline.build` makes the point's objects;
+the builder adds the key path.
 
-Sweeps: any scalar key marked sweepable below may be given a list; the run is then the
+Sweeps: any scalar key marked sweepable may be given a list; the run is then the
 cartesian product of all such axes (first axis slowest), except for axes tied together
 by ``sweep.zip``, which advance together. Lists inside a ``[[coarse]]`` entry (``block``,
 ``bin_width``) are not sweep axes: they give one coarse-graining per value, evaluated on
 the same states.
 
-The schema (defaults in brackets; S = sweepable):
-
-- top level: ``name`` (str) [file stem], ``seed`` (int >= 0, S) [0], ``description``.
-- ``[model]``: ``name`` "xxz" | "ising" (required); ``L`` (int >= 2, S, required);
-  ``J`` (S) [1.0]; xxz: ``delta`` (S) [1.0]; ising: ``g`` (S) [1.0].
-  ``[model.field]`` (the longitudinal field h_i): ``kind`` uniform | staggered | random (S)
-  [uniform]; ``strength`` (S) [0.0]; ``seed`` (int >= 0, S) [the run seed].
-- ``[state]``: ``kind`` (required) product | domain_wall | neel | gas | random_product |
-  ground. product: ``pattern`` (string of 0, 1, +, -, repeated along the chain, S);
-  gas: ``box = [start, stop]`` (sites) or ``box_fraction = [a, b]`` (fractions of L,
-  rounded half up to sites),
-  ``number`` (int, S) or ``filling`` (fraction of the box, S) [filling 1.0], ``fill``
-  packed | spread | ground (S) [packed]; random_product: ``seed`` (S) [the run seed],
-  ``draw`` haar | basis (S) [haar];
-  ground: ``[state.prequench]`` with model keys (J, delta or g, field) that differ
-  from ``[model]`` before the quench [none].
-- ``[evolution]``: ``dt`` (> 0, S) [0.05]; ``order`` 2 | 4 (S) [4]; ``chi_max``
-  (int >= 1, S) [64]; ``cutoff`` (0 <= c < 1, S) [1e-10]; ``chi_check`` (int >= 0 and
-  < chi_max, 0 = off, S) [chi_max // 2]: bond of the check evolution that gives the
-  truncation error of every row (see :mod:`mpsobs.point`); ``trust_rtol`` (0 <= r <= 1)
-  [0.01]: truncation error allowed relative to S_obs within the trusted time range.
-- ``[times]``: ``t_max`` (> 0) with ``n_times`` (int >= 2): an even grid from 0;
-  or ``values`` (increasing list >= 0).
-- ``[[coarse]]`` (one or more): ``observable`` number | energy | fine, or a list of them
-  asked in that order; ``block`` (int >= 1 or a list) or ``regions`` (list of
-  [start, stop]); ``bin_width`` (> 0 or a list; energy only); ``label`` (str).
-- ``[estimator]``: ``method`` auto | exact | enumerate | count | sample |
-  sample_strings (S) [auto], see :mod:`mpsobs.estimate` (sample: the conditional
-  chain-rule estimator; sample_strings: the per-string estimator, for comparison);
-  ``samples`` (int >= 1, S) [2000]; ``target_stderr`` (>= 0, 0 = off, S) [0]; ``prune``
-  (0 <= p < 1, S) [1e-12].
-- ``[sweep]``: ``zip`` = list of groups of axis names, e.g. [["model.L", "evolution.chi_max"]];
-  ``disorder`` = list of seed axes whose values are realizations of one disorder
-  ensemble, from ``model.field.seed`` (needs ``model.field.kind = "random"``) and
-  ``state.seed`` (needs ``state.kind = "random_product"``) [none]. The analysis averages
-  over them (:mod:`mpsobs.scaling`); a disorder axis is zipped only with another one.
-- ``[output]``: ``dir`` (str) [mpsobs-runs/<name>]; ``checkpoint_seconds`` (>= 0) [300].
-
 The resolved point (all defaults filled, axes substituted, gas box and number in sites)
-is hashed (SHA-256 of its canonical JSON) into the point's store key; its seed derives
-from the run seed and that hash through :class:`numpy.random.SeedSequence`.
+is hashed (SHA-256 of its canonical JSON) into the point's store key. Its seed derives
+from the run seed and the hash of the same parameters with ``evolution.trust_rtol``
+added back as versions up to 0.3 hashed it (the value of an old spec that still gives
+the key, else its former default 0.01), through :class:`numpy.random.SeedSequence`: so a
+spec gives the same numbers as before trusted times moved into the analysis, and
+:attr:`Point.former_id` is the store key those versions used.
 """
 
 from __future__ import annotations
@@ -59,6 +33,7 @@ from __future__ import annotations
 import hashlib
 import itertools
 import json
+import logging
 import math
 import tomllib
 from collections.abc import Mapping
@@ -68,21 +43,20 @@ from typing import Any, Literal
 
 import numpy as np
 
-from mpsobs.chain.coarse import MAX_BLOCK_SITES
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import short
-from mpsobs.estimators.estimate import COUNT_MAX_REGIONS
 
-__all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
-           "fixed_settings", "DISORDER_AXES", "MODELS", "STATES", "OBSERVABLES",
-           "FIELD_KINDS", "ESTIMATOR_METHODS"]
+__all__ = ["Point", "RunSpec", "Key", "SCHEMA", "load", "parse", "default_spec_path",
+           "DEFAULT_OUTPUT_ROOT", "fixed_settings", "DISORDER_AXES", "MODELS", "STATES",
+           "OBSERVABLES", "FIELD_KINDS", "keys_markdown", "parameter_column_descriptions",
+           "LEGACY_TRUST_RTOL"]
+
+log = logging.getLogger(__name__)
 
 MODELS = ("xxz", "ising")
 STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")
 OBSERVABLES = ("number", "energy", "fine")
 FIELD_KINDS = ("uniform", "staggered", "random")
-ESTIMATOR_METHODS = ("auto", "exact", "enumerate", "count", "sample", "sample_strings")
-_SAMPLING_METHODS = ("auto", "sample", "sample_strings")
 GAS_FILLS = ("packed", "spread", "ground")
 RANDOM_DRAWS = ("haar", "basis")
 PATTERN_CHARACTERS = "01+-"
@@ -92,27 +66,62 @@ DISORDER_AXES = {"model.field.seed": ("field_seed", ("model.field.kind", "random
                  "state.seed": ("state_seed", ("state.kind", "random_product"))}
 #: Where runs go when neither the spec nor the command line names a directory.
 DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
+#: The default of ``evolution.trust_rtol`` when that key was part of a point (versions up
+#: to 0.3); it enters the seeds and former store keys only (see the module docstring).
+LEGACY_TRUST_RTOL = 0.01
 
 _REQUIRED = object()
 _RUN_SEED = None  # default of seeds that follow the point's run seed
 _HALF_CHI = None  # default of evolution.chi_check: the point's chi_max // 2
 
 
-@dataclass(frozen=True)
-class _Key:
-    """One scalar key: its type, allowed values, default and table column."""
+# --------------------------------------------------------------------------- schema
 
-    kind: Literal["int", "float", "str"]
+
+@dataclass(frozen=True)
+class Key:
+    """One spec key.
+
+    ``path`` is the key path (``[]`` marks an array of tables: ``coarse[].block``);
+    ``kind`` a scalar type (int, float, str: checked here by :meth:`check`) or a
+    structure parsed by its section (``pair``, ``list``, ``table``); ``when`` the
+    setting under which the key exists (e.g. ``model.name = 'xxz'``); ``column`` the
+    parameter column it fills (``columns``: the columns of a structured key), ``unit``
+    its unit; ``sweep`` whether a list of values makes it a sweep axis. ``allowed_text``
+    and ``default_text`` describe what the fields cannot (values checked by the builder,
+    defaults that depend on other keys). ``retired`` is the message of a key that is
+    accepted only for old specs.
+    """
+
+    path: str
+    kind: Literal["int", "float", "str", "pair", "list", "table"]
+    doc: str
     default: Any = _REQUIRED
     choices: tuple = ()
     low: float | None = None
     low_open: bool = False
     high: float | None = None
     high_open: bool = False
+    unit: str = ""
     column: str | None = None
+    columns: tuple[tuple[str, str], ...] = ()
     sweep: bool = True
+    when: str = ""
+    allowed_text: str = ""
+    default_text: str = ""
+    retired: str = ""
+
+    @property
+    def name(self) -> str:
+        return self.path.rsplit(".", 1)[-1]
+
+    @property
+    def section(self) -> str:
+        return self.path.rsplit(".", 1)[0] if "." in self.path else ""
 
     def allowed(self) -> str:
+        if self.allowed_text:
+            return self.allowed_text
         if self.choices:
             return "one of " + ", ".join(repr(c) for c in self.choices)
         noun = {"int": "an integer", "float": "a number", "str": "a string"}[self.kind]
@@ -147,66 +156,206 @@ class _Key:
         return value
 
 
-def _number(column: str | None, default: Any = _REQUIRED, **bounds) -> _Key:
-    return _Key("float", default, column=column, **bounds)
+def _kind_is(kind: str) -> str:
+    return f"state.kind = {kind!r}"
 
 
-_TOP = {
-    "name": _Key("str", None, sweep=False),
-    "seed": _Key("int", 0, low=0, column="run_seed"),
-    "description": _Key("str", "", sweep=False),
-}
+_XXZ, _ISING = "model.name = 'xxz'", "model.name = 'ising'"
+_POSITIVE = {"low": 0.0, "low_open": True}
+
+#: Every key of a spec, in the order of the reference.
+SCHEMA: tuple[Key, ...] = (
+    Key("name", "str", "name of the run (run directory and figure titles)", None,
+        sweep=False, default_text="the spec file's stem"),
+    Key("seed", "int", "seed of the run: random fields, random states and sampling derive "
+        "from it", 0, low=0, column="run_seed"),
+    Key("description", "str", "free text, kept with the run", "", sweep=False),
+    # [model]
+    Key("model.name", "str", "model name: XXZ chain (S = sigma/2) or Ising chain (Pauli)",
+        choices=MODELS, column="model", sweep=False),
+    Key("model.L", "int", "chain length in sites", low=2, column="L"),
+    Key("model.J", "float", "exchange coupling (the energy unit)", 1.0, unit="J",
+        column="J"),
+    Key("model.delta", "float", "XXZ anisotropy Delta (in units of J)", 1.0, column="delta",
+        when=_XXZ),
+    Key("model.g", "float", "transverse field of the Ising chain", 1.0, unit="J",
+        column="g", when=_ISING),
+    Key("model.field.kind", "str", "shape of the longitudinal field h_i: uniform, staggered "
+        "or random", "uniform", choices=FIELD_KINDS, column="field"),
+    Key("model.field.strength", "float", "strength of the longitudinal field", 0.0,
+        unit="J", column="h"),
+    Key("model.field.seed", "int", "seed of the random field", _RUN_SEED, low=0,
+        column="field_seed", default_text="the run seed"),
+    # [state]
+    Key("state.kind", "str", "kind of initial state", choices=STATES, column="state",
+        sweep=False),
+    Key("state.pattern", "str", "product-state pattern repeated along the chain (site 0 "
+        "first; 1 = occupied, +/- = (|0> +/- |1>)/sqrt 2); its length divides model.L",
+        column="pattern", when=_kind_is("product"),
+        allowed_text="a string of the characters 0, 1, +, -"),
+    Key("state.box", "pair", "the gas box [start, stop) in sites", None, sweep=False,
+        columns=(("box_start", "first site of the gas box"),
+                 ("box_stop", "site after the gas box")),
+        when=_kind_is("gas"), allowed_text="[start, stop] with 0 <= start < stop <= model.L",
+        default_text="give box or box_fraction"),
+    Key("state.box_fraction", "pair", "the gas box as fractions [a, b] of L, rounded half "
+        "up to sites", None, sweep=False,
+        columns=(("box_from", "start of the gas box as a fraction of L"),
+                 ("box_to", "end of the gas box as a fraction of L")),
+        when=_kind_is("gas"), allowed_text="[a, b] with 0 <= a < b <= 1",
+        default_text="give box or box_fraction"),
+    Key("state.number", "int", "particles in the gas box", None, low=0, column="number",
+        when=_kind_is("gas"), default_text="from filling"),
+    Key("state.filling", "float", "filling fraction of the gas box", None, low=0.0,
+        low_open=True, high=1.0, column="filling", when=_kind_is("gas"),
+        default_text="1.0 when number is not given"),
+    Key("state.fill", "str", "how the gas box is filled ('ground': the box's ground state, "
+        "number-conserving models only)", "packed", choices=GAS_FILLS, column="fill",
+        when=_kind_is("gas")),
+    Key("state.seed", "int", "seed of the random product state", _RUN_SEED, low=0,
+        column="state_seed", when=_kind_is("random_product"), default_text="the run seed"),
+    Key("state.draw", "str", "how random product states are drawn (haar: uniform on the "
+        "Bloch sphere; basis: |0> or |1>)", "haar", choices=RANDOM_DRAWS, column="draw",
+        when=_kind_is("random_product")),
+    Key("state.prequench", "table", "model keys (J, delta or g, field) of the "
+        "Hamiltonian whose ground state is the initial state, where they differ from "
+        "[model]", None, sweep=False, when=_kind_is("ground"),
+        allowed_text="a table of [model] couplings and [model.field] keys",
+        default_text="the [model] values"),
+    # [evolution]
+    Key("evolution.dt", "float", "TEBD time step", 0.05, unit="1/J", column="dt",
+        **_POSITIVE),
+    Key("evolution.order", "int", "Trotter order of TEBD", 4, choices=(2, 4),
+        column="order"),
+    Key("evolution.chi_max", "int", "largest bond dimension allowed in TEBD", 64, low=1,
+        column="chi_max"),
+    Key("evolution.cutoff", "float", "TEBD truncation cutoff (discarded weight per bond)",
+        1e-10, low=0.0, high=1.0, high_open=True, column="cutoff"),
+    Key("evolution.chi_check", "int", "bond dimension of the truncation-check evolution "
+        "(0 = off); it gives the truncation error of every row", _HALF_CHI, low=0,
+        column="chi_check", allowed_text="an integer >= 0 and below evolution.chi_max",
+        default_text="chi_max // 2"),
+    Key("evolution.trust_rtol", "float", "retired: the tolerance of trusted times is an "
+        "analysis option now (mpsobs plot/scale --trust-rtol)", None, low=0.0, high=1.0,
+        sweep=False, default_text="-",
+        retired="evolution.trust_rtol is no longer part of a point: trusted times are "
+        "computed by the analysis; give the tolerance to `mpsobs plot` or `mpsobs scale` "
+        "(--trust-rtol) or to mpsobs.workflow.plot/scale (trust_rtol=); the key is "
+        "ignored"),
+    # [times]
+    Key("times.t_max", "float", "last output time of an even grid from 0", None,
+        unit="1/J", sweep=False, default_text="give t_max and n_times, or values",
+        **_POSITIVE),
+    Key("times.n_times", "int", "number of output times of the even grid", None, low=2,
+        sweep=False, default_text="give t_max and n_times, or values"),
+    Key("times.values", "list", "output times, instead of the grid", None, unit="1/J",
+        sweep=False, allowed_text="a strictly increasing list of times >= 0",
+        default_text="give t_max and n_times, or values"),
+    # [[coarse]]
+    Key("coarse[].observable", "list", "observable measured on every block, or a list of "
+        "them asked in that order", sweep=False,
+        allowed_text="one of 'number', 'energy', 'fine', or a list of them"),
+    Key("coarse[].block", "list", "block size in sites (the last block may be shorter); a "
+        "list gives one coarse-graining per size", None, sweep=False,
+        allowed_text="an integer >= 1 or a list of them",
+        default_text="give block or regions (fine: 1)"),
+    Key("coarse[].regions", "list", "explicit blocks [start, stop), contiguous, covering "
+        "the chain from site 0", None, sweep=False,
+        allowed_text="a list of [start, stop] pairs", default_text="give block or regions"),
+    Key("coarse[].bin_width", "list", "energy outcomes are bins floor(E / bin_width) "
+        "instead of distinct eigenvalues; a list gives one coarse-graining per width", None,
+        unit="J", sweep=False, allowed_text="a number > 0 or a list of them (energy only)",
+        default_text="distinct eigenvalues"),
+    Key("coarse[].label", "str", "label of the coarse-graining in the table", None,
+        sweep=False, allowed_text="a non-empty string", default_text="made from the "
+        "observable and blocks"),
+    # [estimator]
+    Key("estimator.method", "str", "estimator method (see the methods section); checked "
+        "against the estimators' registry when the point is built", "auto",
+        column="estimator"),
+    Key("estimator.samples", "int", "samples per estimate where the estimator samples",
+        None, low=1, column="sample_budget", default_text="the estimator's default"),
+    Key("estimator.target_stderr", "float", "target standard error of sampling (0 = off); "
+        "needs a method that samples", 0.0, low=0.0, unit="nats", column="target_stderr"),
+    Key("estimator.prune", "float", "probability floor of exact enumeration", 1e-12,
+        low=0.0, high=1.0, high_open=True, column="prune"),
+    # [sweep]
+    Key("sweep.zip", "list", "groups of axis names that advance together", None,
+        sweep=False, allowed_text='a list of groups of axis names, e.g. [["model.L", '
+        '"evolution.chi_max"]]', default_text="none"),
+    Key("sweep.disorder", "list", "seed axes whose values are realizations of one disorder "
+        "ensemble (the analysis averages over them); zipped only with another one", None,
+        sweep=False, allowed_text=" or ".join(DISORDER_AXES), default_text="none"),
+    # [output]
+    Key("output.dir", "str", "run directory", None, sweep=False,
+        default_text="mpsobs-runs/<name>"),
+    Key("output.checkpoint_seconds", "float", "seconds between checkpoints of a point", 300.0,
+        low=0.0, unit="s", sweep=False),
+)
+
+_BY_PATH = {key.path: key for key in SCHEMA}
+
+
+def _keys(section: str, *whens: str) -> dict[str, Key]:
+    """The scalar keys directly in ``section`` that exist under no setting or under one
+    of ``whens``, by name."""
+    return {k.name: k for k in SCHEMA if k.section == section and k.when in ("", *whens)
+            and k.kind in ("int", "float", "str")}
+
+
 _TOP_TABLES = ("model", "state", "evolution", "times", "coarse", "estimator", "sweep",
                "output")
-_FIELD = {
-    "kind": _Key("str", "uniform", choices=FIELD_KINDS, column="field"),
-    "strength": _number("h", 0.0),
-    "seed": _Key("int", _RUN_SEED, low=0, column="field_seed"),
-}
-_MODEL_COMMON = {
-    "name": _Key("str", choices=MODELS, column="model", sweep=False),
-    "L": _Key("int", low=2, column="L"),
-}
-_COUPLINGS = {
-    "xxz": {"J": _number("J", 1.0), "delta": _number("delta", 1.0)},
-    "ising": {"J": _number("J", 1.0), "g": _number("g", 1.0)},
-}
-_STATE_KEYS = {
-    "product": {"pattern": _Key("str", column="pattern")},
-    "domain_wall": {},
-    "neel": {},
-    "gas": {
-        "number": _Key("int", None, low=0, column="number"),
-        "filling": _number(None, None, low=0.0, low_open=True, high=1.0),
-        "fill": _Key("str", "packed", choices=GAS_FILLS, column="fill"),
-    },
-    "random_product": {"seed": _Key("int", _RUN_SEED, low=0, column="state_seed"),
-                       "draw": _Key("str", "haar", choices=RANDOM_DRAWS, column="draw")},
-    "ground": {},
-}
-_EVOLUTION = {
-    "dt": _number("dt", 0.05, low=0.0, low_open=True),
-    "order": _Key("int", 4, choices=(2, 4), column="order"),
-    "chi_max": _Key("int", 64, low=1, column="chi_max"),
-    "cutoff": _number("cutoff", 1e-10, low=0.0, high=1.0, high_open=True),
-    "chi_check": _Key("int", _HALF_CHI, low=0, column="chi_check"),
-    "trust_rtol": _number("trust_rtol", 0.01, low=0.0, high=1.0, sweep=False),
-}
-_TIMES = {
-    "t_max": _number(None, None, low=0.0, low_open=True, sweep=False),
-    "n_times": _Key("int", None, low=2, sweep=False),
-}
-_ESTIMATOR = {
-    "method": _Key("str", "auto", choices=ESTIMATOR_METHODS, column="estimator"),
-    "samples": _Key("int", 2000, low=1, column="sample_budget"),
-    "target_stderr": _number("target_stderr", 0.0, low=0.0),
-    "prune": _number("prune", 1e-12, low=0.0, high=1.0, high_open=True),
-}
-_OUTPUT = {
-    "dir": _Key("str", None, sweep=False),
-    "checkpoint_seconds": _number(None, 300.0, low=0.0, sweep=False),
-}
-_COARSE_KEYS = ("observable", "block", "regions", "bin_width", "label")
+_COARSE_KEYS = tuple(k.name for k in SCHEMA if k.section == "coarse[]")
+
+
+def _couplings(model: str) -> dict[str, Key]:
+    cond = f"model.name = {model!r}"
+    return {n: k for n, k in _keys("model", cond).items() if n not in ("name", "L")}
+
+
+def _state_keys(kind: str) -> dict[str, Key]:
+    return {n: k for n, k in _keys("state", _kind_is(kind)).items() if n != "kind"}
+
+
+def parameter_column_descriptions() -> dict[str, tuple[str, str]]:
+    """(unit, description) of every parameter column the schema fills, by column name."""
+    out: dict[str, tuple[str, str]] = {}
+    for key in SCHEMA:
+        if key.column:
+            out.setdefault(key.column, (key.unit, key.doc))
+        for name, text in key.columns:
+            out.setdefault(name, (key.unit, text))
+    return out
+
+
+def _default_text(key: Key, defaults: Mapping[str, Any]) -> str:
+    if key.path in defaults:
+        return f"{defaults[key.path]!r}"
+    if key.default_text:
+        return key.default_text
+    if key.default is _REQUIRED:
+        return "required"
+    return repr(key.default)
+
+
+def keys_markdown(allowed: Mapping[str, str] | None = None,
+                  defaults: Mapping[str, Any] | None = None) -> str:
+    """The spec-key reference as a markdown table, generated from :data:`SCHEMA`.
+
+    ``allowed`` and ``defaults`` (by key path) fill in what other modules own: the
+    estimator methods and the estimator's default sample count
+    (:func:`mpsobs.pipeline.build.keys_reference` passes them).
+    """
+    allowed, defaults = dict(allowed or {}), dict(defaults or {})
+    lines = ["| key | type | default | allowed | unit | sweep | description |",
+             "| --- | --- | --- | --- | --- | --- | --- |"]
+    for key in SCHEMA:
+        text = key.doc + (f" (when {key.when})" if key.when else "")
+        cells = [f"`{key.path}`", key.kind, _default_text(key, defaults),
+                 allowed.get(key.path) or key.allowed(), key.unit,
+                 "yes" if key.sweep else "", text]
+        lines.append("| " + " | ".join(c.replace("|", "\\|") for c in cells) + " |")
+    return "\n".join(lines) + "\n"
 
 
 # --------------------------------------------------------------------------- data
@@ -220,7 +369,10 @@ class Point:
     coarse, estimator and the run seed) with every default filled in and the gas box
     and number resolved to sites; treat it as read-only. ``columns`` are its scalar
     parameters under their table column names. ``point_id`` is the store key (hash of
-    the canonical ``params``), ``seed`` the point's own seed (63-bit integer).
+    the canonical ``params``), ``seed`` the point's own seed (63-bit integer),
+    ``former_id`` the store key of the same point in versions up to 0.3 (see the module
+    docstring), ``coarse_paths`` the spec key of each entry of ``params["coarse"]``
+    (``coarse[1]``), for messages.
     """
 
     index: int
@@ -230,6 +382,8 @@ class Point:
     columns: dict
     label: str = ""  # the swept values, e.g. "model.L=16 evolution.chi_max=32"
     disorder: tuple[str, ...] = ()  # parameter columns that label disorder realizations
+    former_id: str = ""
+    coarse_paths: tuple[str, ...] = ()
 
     @property
     def L(self) -> int:
@@ -299,15 +453,17 @@ def _unknown(path: str, table: Mapping, allowed) -> None:
                              f"{', '.join(allowed)}")
 
 
-def _scalars(path: str, table: Mapping, keys: Mapping[str, _Key], out: dict,
+def _scalars(path: str, table: Mapping, keys: Mapping[str, Key], out: dict,
              axes: list[str]) -> None:
-    """Check the scalar keys of ``table`` into ``out`` (lists become sweep axes)."""
+    """Check the scalar keys of ``table`` into ``out`` (lists become sweep axes). A
+    retired key is checked, then dropped with a warning."""
     for name, key in keys.items():
         p = _join(path, name)
         if name not in table:
             if key.default is _REQUIRED:
                 raise _fail(p, f"missing; expected {key.allowed()}")
-            out[name] = key.default
+            if not key.retired:
+                out[name] = key.default
             continue
         value = table[name]
         if isinstance(value, list):
@@ -323,6 +479,9 @@ def _scalars(path: str, table: Mapping, keys: Mapping[str, _Key], out: dict,
             axes.append(p)
         else:
             out[name] = key.check(p, value)
+        if key.retired:
+            log.warning("%s", key.retired)
+            out.pop(name)
 
 
 def _pair(path: str, value: Any, kind: type) -> tuple:
@@ -338,7 +497,7 @@ def _pair(path: str, value: Any, kind: type) -> tuple:
 # --------------------------------------------------------------------------- sections
 
 
-def _optional(keys: Mapping[str, _Key]) -> dict[str, _Key]:
+def _optional(keys: Mapping[str, Key]) -> dict[str, Key]:
     """The same keys with default None (unset keys of a prequench model inherit)."""
     return {name: replace(key, default=None) for name, key in keys.items()}
 
@@ -347,18 +506,20 @@ def _model_section(path: str, table: dict, axes: list[str],
                    prequench_of: str | None = None) -> dict:
     """[model], or with ``prequench_of`` (the model name) the partial [state.prequench]."""
     out: dict = {}
+    common = {n: k for n, k in _keys("model").items() if n in ("name", "L")}
+    fields = _keys("model.field")
     if prequench_of is None:
-        _scalars(path, table, _MODEL_COMMON, out, axes)
-        couplings, fields = _COUPLINGS[out["name"]], _FIELD
-        allowed = [*_MODEL_COMMON, *couplings, "field"]
+        _scalars(path, table, common, out, axes)
+        couplings = _couplings(out["name"])
+        allowed = [*common, *couplings, "field"]
     else:
-        couplings, fields = _optional(_COUPLINGS[prequench_of]), _optional(_FIELD)
+        couplings, fields = _optional(_couplings(prequench_of)), _optional(fields)
         allowed = [*couplings, "field"]
     _unknown(path, table, allowed)
     _scalars(path, table, couplings, out, axes)
     field_path = _join(path, "field")
     field_table = _table(field_path, table.get("field", {}))
-    _unknown(field_path, field_table, list(_FIELD))
+    _unknown(field_path, field_table, list(fields))
     out["field"] = {}
     _scalars(field_path, field_table, fields, out["field"], axes)
     return out
@@ -366,19 +527,19 @@ def _model_section(path: str, table: dict, axes: list[str],
 
 def _state_section(table: dict, model_name: str, axes: list[str]) -> dict:
     out: dict = {}
-    kind_key = _Key("str", choices=STATES, column="state", sweep=False)
-    _scalars("state", table, {"kind": kind_key}, out, axes)
+    _scalars("state", table, {"kind": _BY_PATH["state.kind"]}, out, axes)
     kind = out["kind"]
-    extra = {"gas": ["box", "box_fraction"], "ground": ["prequench"]}.get(kind, [])
-    allowed = ["kind", *_STATE_KEYS[kind], *extra]
+    structured = [k.name for k in SCHEMA if k.section == "state" and k.when == _kind_is(kind)
+                  and k.kind in ("pair", "table")]
+    allowed = ["kind", *_state_keys(kind), *structured]
     _unknown("state", table, allowed)
-    _scalars("state", table, _STATE_KEYS[kind], out, axes)
+    _scalars("state", table, _state_keys(kind), out, axes)
     if kind == "product":
         patterns = out["pattern"] if isinstance(out["pattern"], list) else [out["pattern"]]
         for pattern in patterns:
             if not pattern or set(pattern) - set(PATTERN_CHARACTERS):
-                raise _fail("state.pattern", f"expected a string of the characters 0, 1, +, "
-                            f"- (site 0 first; 1 = occupied, +/- = (|0> +/- |1>)/sqrt 2), "
+                raise _fail("state.pattern", f"expected {_BY_PATH['state.pattern'].allowed()} "
+                            f"(site 0 first; 1 = occupied, +/- = (|0> +/- |1>)/sqrt 2), "
                             f"got {pattern!r}")
     if kind == "gas":
         if ("box" in table) == ("box_fraction" in table):
@@ -408,7 +569,7 @@ def _state_section(table: dict, model_name: str, axes: list[str]) -> dict:
 
 
 def _times_section(table: dict) -> dict:
-    _unknown("times", table, ["t_max", "n_times", "values"])
+    _unknown("times", table, [k.name for k in SCHEMA if k.section == "times"])
     if "values" in table:
         if "t_max" in table or "n_times" in table:
             raise _fail("times.values", "give either times.values or times.t_max with "
@@ -417,13 +578,13 @@ def _times_section(table: dict) -> dict:
         if not isinstance(values, list) or not values:
             raise _fail("times.values", f"expected a non-empty list of times >= 0, got "
                         f"{values!r}")
-        key = _number(None, low=0.0)
+        key = Key("times.values", "float", "", low=0.0)
         checked = [key.check(f"times.values[{i}]", v) for i, v in enumerate(values)]
         if any(b <= a for a, b in itertools.pairwise(checked)):
             raise _fail("times.values", f"expected strictly increasing times, got {values!r}")
         return {"values": checked}
     out: dict = {}
-    _scalars("times", table, _TIMES, out, [])
+    _scalars("times", table, _keys("times"), out, [])
     if out["t_max"] is None or out["n_times"] is None:
         raise _fail("times", "give times.t_max and times.n_times (an even grid from 0), "
                     "or times.values")
@@ -441,7 +602,7 @@ def _coarse_section(value: Any) -> list[dict]:
         table = _table(path, raw)
         _unknown(path, table, list(_COARSE_KEYS))
         observable = table.get("observable", _REQUIRED)
-        allowed = f"one of {', '.join(map(repr, OBSERVABLES))}, or a list of them"
+        allowed = _BY_PATH["coarse[].observable"].allowed()
         names = observable if isinstance(observable, list) else [observable]
         if observable is _REQUIRED:
             raise _fail(f"{path}.observable", f"missing; expected {allowed}")
@@ -457,7 +618,7 @@ def _coarse_section(value: Any) -> list[dict]:
         if "block" in table:
             raw_blocks = table["block"]
             items = raw_blocks if isinstance(raw_blocks, list) else [raw_blocks]
-            key = _Key("int", low=1)
+            key = Key("coarse[].block", "int", "", low=1)
             if not items:
                 raise _fail(f"{path}.block", "expected a block size or a non-empty list")
             blocks = [key.check(f"{path}.block", b) for b in items]
@@ -477,7 +638,7 @@ def _coarse_section(value: Any) -> list[dict]:
                             "'energy' to the observable or drop bin_width")
             raw_widths = table["bin_width"]
             items = raw_widths if isinstance(raw_widths, list) else [raw_widths]
-            key = _number(None, low=0.0, low_open=True)
+            key = Key("coarse[].bin_width", "float", "", low=0.0, low_open=True)
             if not items:
                 raise _fail(f"{path}.bin_width", "expected a width or a non-empty list")
             widths = [key.check(f"{path}.bin_width", w) for w in items]
@@ -561,9 +722,15 @@ def _disorder_axes(table: dict, body: dict, groups: list[tuple[str, ...]]) -> li
 def fixed_settings(body: Mapping[str, Any], axes) -> dict:
     """The part of a resolved spec body that must be equal for two specs to share a run
     directory: everything that enters the points except the sweep axes ``axes`` (key
-    paths, replaced by a placeholder) and the sweep grouping."""
+    paths, replaced by a placeholder) and the sweep grouping. Retired keys (in bodies
+    stored by older versions) are left out."""
     fixed = json.loads(json.dumps({k: v for k, v in body.items()
                                    if k not in ("name", "description", "output", "sweep")}))
+    for key in SCHEMA:
+        if key.retired:
+            section = fixed.get(key.section)
+            if isinstance(section, dict):
+                section.pop(key.name, None)
     for path in axes:
         try:
             _get(fixed, path)
@@ -606,9 +773,9 @@ def _point_seed(run_seed: int, digest: str) -> int:
 
 
 def _resolve_point(body: dict, values: dict[str, Any], index: int,
-                   disorder: tuple[str, ...] = ()) -> Point:
+                   disorder: tuple[str, ...], trust_rtol: float) -> Point:
     """Substitute one combination of axis values, fill run-seed defaults, check the
-    point's consistency with its chain length and resolve the gas box."""
+    point's consistency with its chain length and resolve the gas box; then hash."""
     p = json.loads(json.dumps(body))  # deep copy of plain data
     for path, value in values.items():
         _set(p, path, value)
@@ -628,128 +795,113 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int,
                         value[fk] = model["field"][fk]
             elif value is None:
                 pre[key] = model[key]
-    _check_evolution(p["evolution"])
-    _check_state(state, L)
-    _check_coarse(p["coarse"], L, p["estimator"]["method"])
-    for entry in p["coarse"]:
-        entry.pop("path")
+    p["evolution"]["chi_check"] = _chi_check(p["evolution"])
+    _check_pattern(state, L)
+    given = {}
+    if state["kind"] == "gas":
+        box, number, given = _gas_in_sites(state, L)
+        state.update(box=box, number=number)
+    paths = tuple(entry.pop("path") for entry in p["coarse"])
     params = {k: p[k] for k in ("seed", "model", "state", "evolution", "times", "coarse",
                                 "estimator")}
-    columns = _columns(params)
     digest = _digest(params)
+    former = _digest({**params, "evolution": {**params["evolution"], "trust_rtol": trust_rtol}})
     label = " ".join(f"{path}={value}" for path, value in values.items())
-    return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
-                 params=params, columns=columns, label=label or "single point",
-                 disorder=disorder)
+    return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, former),
+                 params=params, columns=_columns(params, given), label=label or "single point",
+                 disorder=disorder, former_id=former[:16], coarse_paths=paths)
 
 
-def _check_evolution(evolution: dict) -> None:
-    """Resolve the check bond (default chi_max // 2) and check it against chi_max."""
-    chi_max = evolution["chi_max"]
-    if evolution["chi_check"] is _HALF_CHI:
-        evolution["chi_check"] = chi_max // 2
-    chi_check = evolution["chi_check"]
+def _chi_check(evolution: dict) -> int:
+    """The check bond (default chi_max // 2), checked against chi_max."""
+    chi_max, chi_check = evolution["chi_max"], evolution["chi_check"]
+    if chi_check is _HALF_CHI:
+        chi_check = chi_max // 2
     if chi_check and chi_check >= chi_max:
         raise _fail("evolution.chi_check", f"expected 0 (off) or a bond below "
                     f"evolution.chi_max = {chi_max}, got {chi_check}")
+    return chi_check
 
 
-def _check_state(state: dict, L: int) -> None:
-    kind = state["kind"]
-    if kind == "product" and L % len(state["pattern"]):
+def _check_pattern(state: dict, L: int) -> None:
+    """A product pattern is repeated along the chain: its length must divide L."""
+    if state["kind"] == "product" and L % len(state["pattern"]):
         raise _fail("state.pattern", f"its length {len(state['pattern'])} does not divide "
                     f"the chain length model.L = {L}")
-    if kind != "gas":
-        return
+
+
+def _gas_in_sites(state: dict, L: int) -> tuple[list[int], int, dict]:
+    """The gas box [start, stop] and particle number in sites at chain length L, and the
+    columns that hold them as given (constant along an L scan)."""
     if state["box"] is not None:
         start, stop = state["box"]
         if not 0 <= start < stop <= L:
             raise _fail("state.box", f"the box {[start, stop]} lies outside the chain: "
                         f"expected 0 <= start < stop <= model.L = {L}")
+        given: dict[str, Any] = {"box_start": start, "box_stop": stop}
     else:
         a, b = state["box_fraction"]
         start, stop = math.floor(a * L + 0.5), math.floor(b * L + 0.5)  # half up
         if stop <= start:
             raise _fail("state.box_fraction", f"{[a, b]} of L = {L} sites is an empty box")
+        given = {"box_from": a, "box_to": b}
     size = stop - start
     if state["filling"] is not None:
         number = round(state["filling"] * size)
         if number == 0:
             raise _fail("state.filling", f"{state['filling']} of a {size}-site box holds no "
                         f"particle (model.L = {L})")
+        given["filling"] = state["filling"]
     else:
         number = state["number"]
         if number > size:
             raise _fail("state.number", f"{number} particles do not fit in a box of {size} "
                         f"sites (state.box {[start, stop]}, model.L = {L})")
-    state["columns"] = ({"box_start": start, "box_stop": stop} if state["box"] is not None
-                        else dict(zip(("box_from", "box_to"), state["box_fraction"],
-                                      strict=True)))
-    state["columns"].update({"number": number} if state["filling"] is None
-                            else {"filling": state["filling"]})
-    state.update(box=[start, stop], number=number)
+        given["number"] = number
+    return [start, stop], number, given
 
 
-def _check_coarse(entries: list[dict], L: int, method: str) -> None:
-    for entry in entries:
-        path = entry["path"]
-        if entry["block"] is not None:
-            b = entry["block"]
-            if b > L:
-                raise _fail(f"{path}.block", f"block size {b} is larger than the chain "
-                            f"(model.L = {L})")
-            widest, n_blocks = b, -(-L // b)
-        else:
-            position = 0
-            for j, (start, stop) in enumerate(entry["regions"]):
-                if start != position or stop <= start:
-                    raise _fail(f"{path}.regions[{j}]", f"[{start}, {stop}]: regions must be "
-                                f"non-empty, contiguous and in order from site 0")
-                position = stop
-            if position != L:
-                raise _fail(f"{path}.regions", f"they cover sites 0..{position}, the chain "
-                            f"0..{L} (model.L = {L})")
-            widest = max(stop - start for start, stop in entry["regions"])
-            n_blocks = len(entry["regions"])
-        if method == "count" and (entry["observable"] != ["number"]
-                                  or n_blocks > COUNT_MAX_REGIONS):
-            raise _fail("estimator.method", f"'count' handles the number observable in at "
-                        f"most {COUNT_MAX_REGIONS} regions; {path} asks "
-                        f"{entry['observable']} in {n_blocks} blocks (model.L = {L}); use "
-                        f"'auto' or another method")
-        if widest > MAX_BLOCK_SITES and entry["observable"] != ["number"]:
-            raise _fail(f"{path}.block", f"blocks wider than {MAX_BLOCK_SITES} sites are "
-                        f"possible for the number observable alone; got {widest} sites for "
-                        f"{entry['observable']}")
-
-
-def _columns(params: dict) -> dict:
-    """The point's scalar parameters under their table column names."""
-    cols: dict[str, Any] = {"run_seed": params["seed"]}
+def _columns(params: dict, gas_columns: dict) -> dict:
+    """The point's scalar parameters under their table column names (``gas_columns``:
+    the gas box and number as given)."""
+    cols: dict[str, Any] = {_BY_PATH["seed"].column: params["seed"]}
     model, state = params["model"], params["state"]
-    for name, key in {**_MODEL_COMMON, **_COUPLINGS[model["name"]]}.items():
+    common = {n: k for n, k in _keys("model").items() if n in ("name", "L")}
+    for name, key in {**common, **_couplings(model["name"])}.items():
         cols[key.column] = model[name]
-    for name, key in _FIELD.items():
+    fields = _keys("model.field")
+    for name, key in fields.items():
         cols[key.column] = model["field"][name]
-    cols["state"] = state["kind"]
-    if state["kind"] == "gas":  # the box and number as given: constant along an L scan
-        cols.update(state.pop("columns"), fill=state["fill"])
+    cols[_BY_PATH["state.kind"].column] = state["kind"]
+    if state["kind"] == "gas":
+        cols.update(gas_columns, fill=state["fill"])
     else:
-        for name, key in _STATE_KEYS[state["kind"]].items():
+        for name, key in _state_keys(state["kind"]).items():
             cols[key.column] = state[name]
     if state["kind"] == "ground":
         pre = state["prequench"]
-        for name in _COUPLINGS[model["name"]]:
-            cols[f"pre_{name}"] = pre[name]
-        for name, key in _FIELD.items():
+        for name, key in _couplings(model["name"]).items():
+            cols[f"pre_{key.column}"] = pre[name]
+        for name, key in fields.items():
             cols[f"pre_{key.column}"] = pre["field"][name]
-    for section, keys in (("evolution", _EVOLUTION), ("estimator", _ESTIMATOR)):
-        for name, key in keys.items():
-            cols[key.column] = params[section][name]
+    for section in ("evolution", "estimator"):
+        for name, key in _keys(section).items():
+            if not key.retired:
+                cols[key.column] = params[section][name]
     return cols
 
 
 # --------------------------------------------------------------------------- entry
+
+
+def _section(raw: dict, name: str, axes: list[str]) -> dict:
+    """A section of scalar keys only ([evolution], [estimator], [output])."""
+    out: dict = {}
+    table = _table(name, raw.get(name, {}))
+    keys = _keys(name)
+    _unknown(name, table, list(keys))
+    _scalars(name, table, keys, out, axes)
+    return out
 
 
 def parse(data: Mapping[str, Any], *, name: str = "run", source: str = "<spec>") -> RunSpec:
@@ -760,42 +912,34 @@ def parse(data: Mapping[str, Any], *, name: str = "run", source: str = "<spec>")
     raw = json.loads(json.dumps(data, default=str)) if data is not None else {}
     if not isinstance(raw, dict):
         raise InputError("spec: expected a table of sections")
-    _unknown("", raw, [*_TOP, *_TOP_TABLES])
+    top = _keys("")
+    _unknown("", raw, [*top, *_TOP_TABLES])
     axes: list[str] = []
     body: dict = {}
-    _scalars("", raw, _TOP, body, axes)
+    _scalars("", raw, top, body, axes)
     body["name"] = body["name"] or name
     for section in ("model", "state", "coarse"):
         if section not in raw:
             raise _fail(section, "missing section; see the README's Spec files section")
     body["model"] = _model_section("model", _table("model", raw["model"]), axes)
     body["state"] = _state_section(_table("state", raw["state"]), body["model"]["name"], axes)
-    evolution: dict = {}
-    evo_table = _table("evolution", raw.get("evolution", {}))
-    _unknown("evolution", evo_table, list(_EVOLUTION))
-    _scalars("evolution", evo_table, _EVOLUTION, evolution, axes)
-    body["evolution"] = evolution
+    body["evolution"] = _section(raw, "evolution", axes)
+    trust_rtol = _table("evolution", raw.get("evolution", {})).get("trust_rtol",
+                                                                   LEGACY_TRUST_RTOL)
     if "times" not in raw:
         raise _fail("times", "missing section; give times.t_max and times.n_times, or "
                     "times.values")
     body["times"] = _times_section(_table("times", raw["times"]))
     body["coarse"] = _coarse_section(raw["coarse"])
-    estimator: dict = {}
-    est_table = _table("estimator", raw.get("estimator", {}))
-    _unknown("estimator", est_table, list(_ESTIMATOR))
-    _scalars("estimator", est_table, _ESTIMATOR, estimator, axes)
-    body["estimator"] = estimator
-    output: dict = {}
-    out_table = _table("output", raw.get("output", {}))
-    _unknown("output", out_table, list(_OUTPUT))
-    _scalars("output", out_table, _OUTPUT, output, [])
+    body["estimator"] = _section(raw, "estimator", axes)
+    output = _section(raw, "output", [])
     body["output"] = output
     sweep = _table("sweep", raw.get("sweep", {}))
     groups = _axis_groups(sweep, axes)
     disorder = _disorder_axes(sweep, body, groups)
     body["sweep"] = {"zip": [list(g) for g in groups if len(g) > 1], "disorder": disorder}
-    _check_consistency(body)
-    points = _expand(body, groups, tuple(DISORDER_AXES[name][0] for name in disorder))
+    points = _expand(body, groups, tuple(DISORDER_AXES[name][0] for name in disorder),
+                     float(trust_rtol))
     hashed = {k: v for k, v in body.items() if k not in ("name", "description", "output")}
     hashed["coarse"] = [{k: v for k, v in e.items() if k != "path"} for e in hashed["coarse"]]
     out_dir = Path(output["dir"]) if output["dir"] else DEFAULT_OUTPUT_ROOT / body["name"]
@@ -813,19 +957,8 @@ def _plain(obj: Any) -> Any:
     return obj
 
 
-def _check_consistency(body: dict) -> None:
-    est = body["estimator"]
-    methods = est["method"] if isinstance(est["method"], list) else [est["method"]]
-    targets = est["target_stderr"] if isinstance(est["target_stderr"], list) else [
-        est["target_stderr"]]
-    if set(methods) - set(_SAMPLING_METHODS) and any(t > 0 for t in targets):
-        raise _fail("estimator.target_stderr", "a target standard error needs sampling; "
-                    "use estimator.method = 'auto', 'sample' or 'sample_strings', or drop "
-                    "target_stderr")
-
-
-def _expand(body: dict, groups: list[tuple[str, ...]],
-            disorder: tuple[str, ...] = ()) -> list[Point]:
+def _expand(body: dict, groups: list[tuple[str, ...]], disorder: tuple[str, ...],
+            trust_rtol: float) -> list[Point]:
     choices = []
     for group in groups:
         lists = [_get(body, path) for path in group]
@@ -839,7 +972,7 @@ def _expand(body: dict, groups: list[tuple[str, ...]],
     points, seen = [], {}
     for index, combo in enumerate(itertools.product(*choices)):
         values = {k: v for part in combo for k, v in part.items()}
-        point = _resolve_point(stored, values, index, disorder)
+        point = _resolve_point(stored, values, index, disorder, trust_rtol)
         if point.point_id in seen:
             raise _fail("sweep", f"points {seen[point.point_id]} and {index} are the same "
                         f"point ({point.label})")

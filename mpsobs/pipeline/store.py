@@ -47,7 +47,7 @@ import pyarrow.parquet as pq
 
 from mpsobs.core.errors import InputError
 from mpsobs.core.version import __version__
-from mpsobs.pipeline.columns import describe
+from mpsobs.pipeline.columns import POINT_ID, TRUSTED_TIME, describe
 from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
@@ -329,6 +329,24 @@ class RunStore:
         log.debug("point %s written (%d rows)", point.point_id, len(frame))
         return path
 
+    def adopt_former(self, point: Point) -> bool:
+        """Take over the finished file of ``point`` stored under its former id (versions
+        up to 0.3 hashed ``evolution.trust_rtol`` into the id, see
+        :mod:`mpsobs.pipeline.spec`): its rows get the new id and lose the stored
+        ``t_trusted`` (the analysis computes it). True when a file was taken over."""
+        former = self.point_path(point.former_id) if point.former_id else None
+        if (former is None or point.former_id == point.point_id or not former.exists()
+                or self.finished(point.point_id)):
+            return False
+        frame = pd.read_parquet(former).drop(columns=[TRUSTED_TIME], errors="ignore")
+        frame[POINT_ID] = point.point_id
+        frame.attrs[SITE_FIELDS_ATTR] = self.point_metadata(point.former_id).get("site_fields")
+        self.write_point(point, frame)
+        former.unlink()
+        log.info("point %s: adopted the finished point %s of an older version", point.point_id,
+                 point.former_id)
+        return True
+
     def read_point(self, point_id: str) -> pd.DataFrame:
         return pd.read_parquet(self.point_path(point_id))
 
@@ -450,6 +468,8 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
             _write_json(root / SPEC_FILE, _spec_record(spec, before))
         store = RunStore(root)
         store.remove_temporaries()
+        for point in spec.points:
+            store.adopt_former(point)
         yield store
     finally:
         with contextlib.suppress(FileNotFoundError):
