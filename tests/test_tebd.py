@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from scipy.sparse.linalg import expm_multiply
 
-from mpsobs.chain import evolution as tebd
 from mpsobs.chain import models, states
 from mpsobs.chain.evolution import Snapshot, evolve
 from mpsobs.core.errors import InputError
+from mpsobs.mps import truncation
 from mpsobs.mps.tensors import MPS, right_canonical_defect, to_dense, to_quimb
 
 FULL = 4096   # a bond limit no state here reaches: no truncation by bond dimension
@@ -161,7 +161,8 @@ def test_energy_drift_of_truncated_run_within_error_budget():
 def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     L = 6
     model, psi0 = _ising(L), states.neel(L)
-    reference = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
+    svd_only = {"decomposition": "svd"}
+    reference = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
 
     def failing_gesdd(*args, **kwargs):
         return None, None, None, 1   # LAPACK's "did not converge"
@@ -169,10 +170,10 @@ def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     def failing_robust(m):
         raise np.linalg.LinAlgError("SVD did not converge")
 
-    monkeypatch.setattr(tebd, "_GESDD", failing_gesdd)   # -> mps.robust_svd
-    robust = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
-    monkeypatch.setattr(tebd, "robust_svd", failing_robust)   # -> Gram + eigh
-    gram = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
+    monkeypatch.setattr(truncation, "_GESDD", failing_gesdd)   # -> mps.robust_svd
+    robust = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
+    monkeypatch.setattr(truncation, "robust_svd", failing_robust)   # -> Gram + eigh
+    gram = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
     assert abs(np.vdot(reference, robust)) ** 2 == pytest.approx(1.0, abs=1e-12)
     assert abs(np.vdot(reference, gram)) ** 2 == pytest.approx(1.0, abs=1e-10)
 
