@@ -47,17 +47,19 @@ _GEQRF, _UNGQR = lapack.zgeqrf, lapack.zungqr
 
 def keep_count(s: np.ndarray, max_bond: int, cutoff: float) -> tuple[int, float]:
     """How many of the descending values ``s`` the rule keeps (at least one), and the
-    discarded fraction of sum s^2 (see the module docstring for the rule)."""
-    csum = np.cumsum(s * s)
-    total = csum[-1] if csum.size else 0.0
+    discarded fraction of sum s^2 (see the module docstring for the rule).
+
+    The discarded sums are accumulated from the smallest value up, so cutoffs far below
+    machine epsilon (e.g. 1e-20) are applied as given and not rounded away."""
+    w = s * s
+    tail = np.cumsum(w[::-1])          # tail[j]: sum of the j + 1 smallest weights
+    total = float(tail[-1]) if tail.size else 0.0
     if total <= 0.0:
         return 1, 0.0
-    if cutoff > 0.0:
-        k = int(np.count_nonzero(csum < total * (1.0 - cutoff))) + 1
-    else:   # no cutoff: keep every non-zero value
-        k = max(int(np.count_nonzero(s)), 1)
-    k = min(k, max_bond, s.size)
-    return k, float(max(total - csum[k - 1], 0.0) / total)
+    droppable = int(np.count_nonzero(tail <= cutoff * total))
+    k = min(max(s.size - droppable, 1), max_bond)
+    dropped = s.size - k
+    return k, float(tail[dropped - 1]) / total if dropped else 0.0
 
 
 def svd(m: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

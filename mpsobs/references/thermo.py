@@ -55,11 +55,13 @@ from scipy.interpolate import CubicHermiteSpline, CubicSpline
 from scipy.optimize import brentq
 from scipy.special import expit
 
-from mpsobs.chain.models import Model
+from mpsobs.chain.models import Model, bond_hamiltonians
 from mpsobs.core.errors import InputError, finite_number, integer
 from mpsobs.core.printing import number, with_error
 from mpsobs.core.threads import limits_threads
-from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm, robust_svd
+from mpsobs.mps.charges import definite_charges
+from mpsobs.mps.evolution import GateChain, Gates, layer_schedule, on_physical
+from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm
 from mpsobs.references import gaussian
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
@@ -347,113 +349,51 @@ def _check_range(target: float, e_min: float, e_max: float, tol: float,
 # --------------------------------------------------------------------------- purification
 
 
-def _bond_hamiltonians(model: Model) -> list[np.ndarray]:
-    """H = sum_b h_b with h_b on sites (b, b + 1); one-site terms shared between the
-    bonds touching the site."""
-    L = model.L
-    eye = np.eye(2)
-    out = [np.zeros((4, 4), dtype=complex) for _ in range(L - 1)]
-    for term in model.terms:
-        m, i = np.asarray(term.matrix), term.start
-        if term.width == 2:
-            out[i] = out[i] + m
-        elif term.width == 1:
-            sides = [b for b in (i - 1, i) if 0 <= b < L - 1]
-            for b in sides:
-                part = np.kron(eye, m) if b == i - 1 else np.kron(m, eye)
-                out[b] = out[b] + part / len(sides)
-        else:
-            raise InputError(f"model: the purification handles one- and two-site terms, "
-                             f"not a {term.width}-site term at site {i}")
-    if all(np.abs(h.imag).max() == 0 for h in out):
-        out = [h.real.copy() for h in out]
-    return out
-
-
-def _apply_gate(theta: np.ndarray, gate: np.ndarray) -> np.ndarray:
-    """gate (4, 4) on the physical legs (s1, s2) of theta (l, 4, 4, r), legs (s, ancilla)."""
-    chl, chr_ = theta.shape[0], theta.shape[3]
-    t = theta.reshape(chl, 2, 2, 2, 2, chr_)
-    out = np.tensordot(gate.reshape(2, 2, 2, 2), t, axes=([2, 3], [1, 3]))  # x y l a1 a2 r
-    return out.transpose(2, 0, 3, 1, 4, 5).reshape(chl, 4, 4, chr_)
-
-
-@dataclass
-class _Purification:
-    """The purified state during a sweep (normalised) and its bookkeeping."""
-
-    tensors: list[np.ndarray]
-    log_z: float
-    discarded: float = 0.0
-    max_bond: int = 1
-
-    def update(self, b: int, gate: np.ndarray, max_bond: int, cutoff: float,
-               move_right: bool) -> None:
-        a, c = self.tensors[b], self.tensors[b + 1]
-        theta = _apply_gate(np.tensordot(a, c, axes=(2, 0)), gate)
-        chl, chr_ = theta.shape[0], theta.shape[3]
-        u, s, vh = robust_svd(theta.reshape(chl * 4, 4 * chr_))
-        weight = s**2
-        total = float(weight.sum())
-        keep = max(1, min(max_bond, int(np.count_nonzero(weight > cutoff * total))))
-        self.discarded += float(weight[keep:].sum()) / total
-        u, s, vh = u[:, :keep], s[:keep], vh[:keep]
-        # ln Z takes the norm before truncation; the kept part is renormalised.
-        self.log_z += np.log(total)
-        s = s / np.sqrt(float(np.sum(s**2)))
-        if move_right:
-            self.tensors[b] = u.reshape(chl, 4, keep)
-            self.tensors[b + 1] = (s[:, None] * vh).reshape(keep, 4, chr_)
-        else:
-            self.tensors[b] = (u * s).reshape(chl, 4, keep)
-            self.tensors[b + 1] = vh.reshape(keep, 4, chr_)
-        self.max_bond = max(self.max_bond, keep)
-
-    def step(self, half: list[np.ndarray], turn: np.ndarray, max_bond: int,
-             cutoff: float) -> None:
-        """exp(-dbeta H / 2) by the symmetric sweep; the centre ends on site 0."""
-        last = len(half) - 1
-        for b in range(last):
-            self.update(b, half[b], max_bond, cutoff, move_right=True)
-        self.update(last, turn, max_bond, cutoff, move_right=False)
-        for b in range(last - 1, -1, -1):
-            self.update(b, half[b], max_bond, cutoff, move_right=False)
-
-
-def _infinite_temperature(L: int, alpha: float, number: int | None = None) -> _Purification:
+def _infinite_temperature(model: Model, alpha: float,
+                          number: int | None = None) -> tuple[GateChain, float]:
     """The normalised purification of exp(alpha N) (or, with ``number``, of the projector
-    on the sector N = number) as the start of a sweep, with its ln Z = ln Tr.
+    on the sector N = number) as the start of an imaginary-time run (a kernel chain,
+    renormalising), with its ln Z = ln Tr.
 
     Without a number: prod_i (|00> + e^{alpha/2} |11>), bond 1. With one: the sum of
     |s>|s> over the strings s with ``number`` sites in |1>, an MPS whose bond index counts
-    the particles to its left (bond <= min(N, L - N) + 1), brought to right-canonical form;
-    ln Z = ln C(L, N).
+    the particles to its left (bond <= min(N, L - N) + 1), brought to canonical form;
+    ln Z = ln C(L, N). For a number-conserving model the chain carries the charges
+    n_s - n_a (0 on every bond here; :mod:`mpsobs.mps.charges`).
     """
+    L = model.L
     if number is None:
         site = np.zeros((1, 4, 1))
         site[0, 0, 0], site[0, 3, 0] = 1.0, np.exp(alpha / 2)
         site /= np.sqrt(1 + np.exp(alpha))
-        return _Purification([site.copy() for _ in range(L)], L * float(np.logaddexp(0, alpha)))
-    tensors = []
-    for i in range(L):
-        left = np.arange(max(0, number - (L - i)), min(i, number) + 1)
-        right = np.arange(max(0, number - (L - i - 1)), min(i + 1, number) + 1)
-        t = np.zeros((left.size, 4, right.size))
-        for a, n in enumerate(left):
-            for value, index in ((n, 0), (n + 1, 3)):  # |00> keeps the count, |11> adds one
-                hit = np.flatnonzero(right == value)
-                if hit.size:
-                    t[a, index, hit[0]] = 1.0
-        tensors.append(t)
-    rc, log_norm = right_canonical_log_norm(MPS(tuple(tensors)))
-    return _Purification([t.real.copy() for t in rc.tensors], 2 * log_norm,
-                         max_bond=max(t.shape[2] for t in rc.tensors))
+        tensors = [site.astype(complex) for _ in range(L)]
+        log_z = L * float(np.logaddexp(0, alpha))
+    else:
+        raw = []
+        for i in range(L):
+            left = np.arange(max(0, number - (L - i)), min(i, number) + 1)
+            right = np.arange(max(0, number - (L - i - 1)), min(i + 1, number) + 1)
+            t = np.zeros((left.size, 4, right.size))
+            for a, n in enumerate(left):
+                for value, index in ((n, 0), (n + 1, 3)):  # |00> keeps the count, |11> adds one
+                    hit = np.flatnonzero(right == value)
+                    if hit.size:
+                        t[a, index, hit[0]] = 1.0
+            raw.append(t)
+        rc, log_norm = right_canonical_log_norm(MPS(tuple(raw)))
+        tensors, log_z = list(rc.tensors), 2 * log_norm
+    fixed = definite_charges(tensors) if model.conserves_number else None
+    if fixed is None:
+        return GateChain(tensors, None, normalize=True), log_z
+    return GateChain(fixed[0], fixed[1], center=L - 1, normalize=True), log_z
 
 
-def _step_gates(bonds: Sequence[np.ndarray], dbeta: float) -> tuple[list[np.ndarray],
-                                                                    np.ndarray]:
-    """Gates of one symmetric sweep step exp(-dbeta H / 2) (see :meth:`_Purification.step`)."""
-    return [sla.expm(-dbeta / 4 * h) for h in bonds], sla.expm(-dbeta / 2 * bonds[-1])
+def _imaginary_time(chain: GateChain, gates: Gates, steps: Sequence[float], max_bond: int,
+                    cutoff: float) -> float:
+    """exp(-tau H) for the consecutive steps tau (second-order Strang schedule of
+    :mod:`mpsobs.mps.evolution`, half layers merged); returns the discarded weight."""
+    return sum(chain.apply_layer(parity, gates.layer(parity, tau), max_bond, cutoff)
+               for parity, tau in layer_schedule(2, steps))
 
 
 def _closing(left: np.ndarray, bra: np.ndarray, ket: np.ndarray,
@@ -466,8 +406,9 @@ def _closing(left: np.ndarray, bra: np.ndarray, ket: np.ndarray,
 def _tilted(tensors: Sequence[np.ndarray], bonds: Sequence[np.ndarray] | None,
             delta: float) -> tuple[float, float, float]:
     """For the state tilted by exp(delta N / 2): (ln <e^{delta N}>, <N>, <H>) (<H> is
-    NaN when ``bonds`` is None). Local values are divided by the norm through the same
-    environments, so environments may be rescaled freely. Cost O(L chi^3 16)."""
+    NaN when ``bonds``, the (16, 16) bond Hamiltonians on the physical legs, is None).
+    Local values are divided by the norm through the same environments, so environments
+    may be rescaled freely. Cost O(L chi^3 16)."""
     w = np.array([1.0, 1.0, np.exp(delta), np.exp(delta)])
     occ = np.array([0.0, 0.0, 1.0, 1.0])
     lefts = [np.ones((1, 1))]
@@ -497,8 +438,8 @@ def _tilted(tensors: Sequence[np.ndarray], bonds: Sequence[np.ndarray] | None,
         theta = np.tensordot(tensors[b], tensors[b + 1], axes=(2, 0))
         theta = theta * root[None, :, None, None] * root[None, None, :, None]
         chl, chr_ = theta.shape[0], theta.shape[3]
-        h_theta = _apply_gate(theta, h).reshape(chl, 16, chr_)
         theta = theta.reshape(chl, 16, chr_)
+        h_theta = np.matmul(h, theta)
         num = _closing(lefts[b], theta, h_theta, rights[b + 2]).sum()
         den = _closing(lefts[b], theta, theta, rights[b + 2]).sum()
         energy += float((num / den).real)
@@ -528,30 +469,32 @@ def _sweep(model: Model, sign: int, alpha0: float, dbeta: float, n_steps: int,
     reweighting; stops after ``n_steps`` or two steps after ``stop(beta, energy)``.
     ``beta`` and ``energy`` of the curve are for H itself (beta = sign * steps * dbeta).
     """
-    bonds = [sign * h for h in _bond_hamiltonians(model)]
-    state = _infinite_temperature(model.L, alpha0)
-    half, turn = _step_gates(bonds, dbeta)
+    bonds = [sign * h for h in bond_hamiltonians(model)]
+    ops = [on_physical(h, 4) for h in bonds]
+    chain, log_z0 = _infinite_temperature(model, alpha0)
+    gates = Gates(bonds, "imaginary", 4, conserve_charge=chain.charges is not None)
     rows = []
     after = None
+    discarded = 0.0
     for step in range(n_steps + 1):
-        if step:
-            state.step(half, turn, max_bond, cutoff)
+        if step:   # exp(-dbeta H / 2) as one Strang step
+            discarded += _imaginary_time(chain, gates, [dbeta / 2], max_bond, cutoff)
         beta = step * dbeta
         if number is None:
-            _, n, e = _tilted(state.tensors, bonds, 0.0)
+            _, n, e = _tilted(chain.tensors, ops, 0.0)
             delta, log_ratio = 0.0, 0.0
         else:
-            delta = _reweight(state.tensors, number)
-            log_ratio, n, e = _tilted(state.tensors, bonds, delta)
+            delta = _reweight(chain.tensors, number)
+            log_ratio, n, e = _tilted(chain.tensors, ops, delta)
         alpha = alpha0 + delta
-        s = beta * e - alpha * n + state.log_z + log_ratio
+        s = beta * e - alpha * n + log_z0 + chain.log_norm2 + log_ratio
         rows.append((sign * beta, sign * e, s, alpha, n))
         if after is None and stop(sign * beta, sign * e):
             after = step + 2
         if after is not None and step >= after:
             break
     beta, energy, entropy, alpha, nums = (np.array(col) for col in zip(*rows, strict=True))
-    return _Curve(beta, energy, entropy, alpha, nums, state.discarded, state.max_bond,
+    return _Curve(beta, energy, entropy, alpha, nums, discarded, chain.peak_bond,
                   len(rows) - 1)
 
 
@@ -574,7 +517,7 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
                         dbeta: float, cutoff: float, beta_max: float) -> GibbsResult:
     """Gibbs ensemble by purification at ``target`` energy, or at ``beta`` (with mu)."""
     L = model.L
-    bonds = _bond_hamiltonians(model)
+    bonds = bond_hamiltonians(model)
     e_inf = float(sum(np.trace(h).real for h in bonds)) / 4
     if target is not None:
         e_lb = float(sum(sla.eigvalsh(h)[0] for h in bonds))
@@ -809,26 +752,28 @@ def gibbs_state(model: Model, beta: float, mu: float | None = None, *,
         value = _check_number(model, number, "canonical")
         number = int(value)
     alpha = 0.0 if mu is None else beta * mu
-    bonds = [np.sign(beta) * h for h in _bond_hamiltonians(model)]
+    bonds = [np.sign(beta) * h for h in bond_hamiltonians(model)]
     n_steps = int(np.ceil(abs(beta) / dbeta / 2)) * 2
 
-    def build(steps: int, bond: int) -> _Purification:
-        state = _infinite_temperature(model.L, alpha, number)
-        if steps:
-            half, turn = _step_gates(bonds, abs(beta) / steps)
-            for _ in range(steps):
-                state.step(half, turn, bond, cutoff)
-        return state
+    def build(steps: int, bond: int) -> tuple[GateChain, float]:
+        """The purification after ``steps`` Strang steps, centre on site 0, and its
+        discarded weight."""
+        chain, _ = _infinite_temperature(model, alpha, number)
+        gates = Gates(bonds, "imaginary", 4, conserve_charge=chain.charges is not None)
+        lost = _imaginary_time(chain, gates, [abs(beta) / steps / 2] * steps, bond,
+                               cutoff) if steps else 0.0
+        chain.move_to(0)
+        return chain, lost
 
-    main = build(n_steps, max_bond)
-    error = _purification_distance(main.tensors, build(n_steps // 2, max_bond).tensors) / 3
-    if main.max_bond >= max_bond and n_steps:
+    main, discarded = build(n_steps, max_bond)
+    error = _purification_distance(main.tensors, build(n_steps // 2, max_bond)[0].tensors) / 3
+    if main.peak_bond >= max_bond and n_steps:
         error += _purification_distance(main.tensors,
-                                        build(n_steps, max(1, max_bond // 2)).tensors)
+                                        build(n_steps, max(1, max_bond // 2))[0].tensors)
     log.debug("gibbs_state: beta %.6g, %d steps, bond %d, error %.3g", beta, n_steps,
-              main.max_bond, error)
+              main.peak_bond, error)
     return PurifiedMPS(tuple(main.tensors), beta=beta, mu=mu, number=number,
-                       error=float(error), discarded_weight=float(main.discarded))
+                       error=float(error), discarded_weight=float(discarded))
 
 
 def _purification_distance(a: Sequence[np.ndarray], b: Sequence[np.ndarray]) -> float:
