@@ -117,18 +117,21 @@ def test_gram_split_agrees_with_the_svd(side):
 
 
 def test_gram_route_falls_back_to_the_svd_below_its_resolution():
-    # Values down to 1e-14 relative, cutoff 0: the Gram eigenvalues cannot resolve the
-    # smallest, so the split must be the SVD's (numpy as the reference).
-    n = 20
-    s_true = np.logspace(0, -14, n)
+    # One large value and 150 near 1e-7 (weights near 1e-14, together above the cutoff
+    # 1e-12): the rule keeps values the Gram eigenvalues cannot resolve, so the split
+    # must be the SVD's (numpy as the reference).
+    n = 151
+    s_true = np.concatenate([[1.0], np.linspace(1.5e-7, 1e-7, n - 1)])
     m = _with_spectrum(s_true, (n, n), seed=5)
-    _, _, kept, lost = truncation.split(m, "left", n, 0.0)
+    _, _, kept, lost = truncation.split(m, "left", n, 1e-12)
+    reference = np.linalg.svd(m, compute_uv=False)
+    k, want_lost = truncation.keep_count(reference, n, 1e-12)
+    assert 1 < kept.size == k < n and lost == pytest.approx(want_lost, rel=1e-6)
     # the SVD has absolute accuracy ~ n eps s_1 (Golub and Van Loan, from memory); the
-    # Gram eigenvalues would give s_20 = 1e-14 with an error near 1e-9
+    # Gram eigenvalues would give these values with errors near eps / 1e-7 ~ 1e-9
     atol = n * np.finfo(float).eps
-    np.testing.assert_allclose(kept, np.linalg.svd(m, compute_uv=False), rtol=0, atol=atol)
-    np.testing.assert_allclose(kept, s_true, rtol=0, atol=atol)
-    assert kept.size == n and lost == 0.0
+    np.testing.assert_allclose(kept, reference[:k], rtol=0, atol=atol)
+    np.testing.assert_allclose(kept, s_true[:k], rtol=0, atol=atol)
 
 
 def test_block_split_matches_the_dense_split():

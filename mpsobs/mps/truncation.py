@@ -12,12 +12,13 @@ theta theta^dagger (or theta^dagger theta): its eigenvectors are the left (right
 vectors, exactly orthonormal, and the other factor is the projection U^dagger theta
 (theta V), so no division by small singular values occurs. The eigenvalues s^2 carry an
 absolute error of about machine epsilon times s_1^2, so relative weights s_k^2 / s_1^2
-below ``GRAM_FLOOR`` are rounding noise; when the rule would keep such a value the split
-is redone by the SVD (a fact of the trade: forming the Gram matrix squares the condition
-number; e.g. Golub and Van Loan, Matrix Computations, 4th ed., sec. 8.6, from memory).
+below ``GRAM_FLOOR`` are rounding noise: the route is tried only for cutoff >= GRAM_FLOOR,
+and when the rule would keep a smaller value the split is redone by the SVD (a fact of
+the trade: forming the Gram matrix squares the condition number; e.g. Golub and Van
+Loan, Matrix Computations, 4th ed., sec. 8.6, from memory).
 Cost for an (m, n) matrix, m <= n: Gram route m^2 n (product) + ~10 m^3 (eigh) + k m n
-(projection); SVD ~ 20 m^2 n. Measured on one core the eigh of the Gram matrix is 1.3 to
-1.8 times faster than LAPACK's gesdd at m = 64..256 (scripts/bench_tebd.py).
+(projection); SVD ~ 20 m^2 n. Measured on one core the eigh of a square Gram matrix is
+1.3 to 1.8 times faster than LAPACK's gesdd at m = 64..256.
 """
 
 from __future__ import annotations
@@ -139,10 +140,12 @@ def finish(m: np.ndarray, side: Side, iso: np.ndarray,
     return (m @ iso if other is None else other), iso.conj().T
 
 
-def use_gram(m: np.ndarray, side: Side, route: Route) -> bool:
-    """The Gram route is tried with route "auto" when the Gram matrix of ``side`` is the
-    smaller one (or square)."""
-    return route == "auto" and (m.shape[0] if side == "left" else m.shape[1]) <= min(m.shape)
+def use_gram(m: np.ndarray, side: Side, route: Route, cutoff: float) -> bool:
+    """Whether the Gram route is tried: with route "auto", a cutoff of at least
+    GRAM_FLOOR (a smaller one asks for values the route does not resolve) and the Gram
+    matrix of ``side`` the smaller one (or square)."""
+    smaller = (m.shape[0] if side == "left" else m.shape[1]) <= min(m.shape)
+    return route == "auto" and cutoff >= GRAM_FLOOR and smaller
 
 
 def split(m: np.ndarray, side: Side, max_bond: int, cutoff: float,
@@ -156,7 +159,7 @@ def split(m: np.ndarray, side: Side, max_bond: int, cutoff: float,
     Gram route (module docstring) and falls back to the SVD below GRAM_FLOOR; "svd" always
     takes the SVD.
     """
-    gram = use_gram(m, side, route)
+    gram = use_gram(m, side, route, cutoff)
     s, iso, other = decompose(m, side, gram)
     k, lost = keep_count(s, max_bond, cutoff)
     if gram and not resolved(s, k):

@@ -27,18 +27,21 @@ Two ways to compute it:
   from the simulated state by exp((alpha' - alpha) N / 2) applied to it, exact because
   [H, N] = 0; the sweep is redone around the final alpha if the shift is large.
 
-Accuracy and cost of the purification: the Trotter splitting is the symmetric sweep
-(all bonds left to right, then right to left, half steps each), of second order in the
-step dbeta. Every run is repeated at 2 dbeta; the result is the Richardson extrapolation
-and ``entropy_err`` = |S(dbeta) - S(2 dbeta)| / 3, the Trotter error of the
-unextrapolated S(dbeta) (so a conservative bound for the extrapolated value: at L = 8-16,
-dbeta = 0.05, the true error was 1e-8..1e-6 against a reported 1e-5..1e-4). When the bond
-limit ``max_bond`` is reached, the run is repeated at half the bond and
-|S(chi) - S(chi / 2)| is added. Singular values are kept down to a relative weight
-``cutoff`` (1e-20): truncation errors act at first order in the discarded amplitude.
-Cost per step O(L (4 chi)^3) for the SVDs, measurements O(L 16 chi^3), memory
-O(L 4 chi^2); with one BLAS thread, the Heisenberg chain to beta = 1 (bond 44) took 2 s at
-L = 32 and 5 s at L = 64 (scripts/bench_thermo.py).
+Accuracy and cost of the purification: the evolution is the shared kernel
+(:mod:`mpsobs.mps.evolution`, imaginary time, local dimension 4) with the second-order
+Strang splitting of even and odd bonds, exp(-dbeta H / 2) per step dbeta, and the one
+truncation rule of :mod:`mpsobs.mps.truncation` (at most ``max_bond`` singular values,
+the smallest dropped while their squared sum stays within ``cutoff`` times the total;
+default PURIFICATION_CUTOFF = 1e-18, small because a discarded component of low energy
+is amplified by the later imaginary-time steps). For number-conserving models the
+decompositions work in blocks of n_s - n_a (:mod:`mpsobs.mps.charges`). Every run is
+repeated at 2 dbeta; the result is the Richardson extrapolation and ``entropy_err`` =
+|S(dbeta) - S(2 dbeta)| / 3, the Trotter error of the unextrapolated S(dbeta) (so a
+conservative bound for the extrapolated value: at L = 6, dbeta = 0.05, the true error
+was 5e-9 against a reported 1e-6). When the bond limit ``max_bond`` is reached, the run
+is repeated at half the bond and |S(chi) - S(chi / 2)| is added.
+Cost per step O(L (4 chi)^3) for the splits, measurements O(L 16 chi^3), memory
+O(L 4 chi^2); see scripts/bench_thermo.py for timings.
 """
 
 from __future__ import annotations
@@ -65,13 +68,15 @@ from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_nor
 from mpsobs.references import gaussian
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
-           "entropy_shift_bound", "Method", "Ensemble"]
+           "entropy_shift_bound", "Method", "Ensemble", "PURIFICATION_CUTOFF"]
 
 log = logging.getLogger(__name__)
 
 Method = Literal["auto", "free-fermion", "purification"]
 Ensemble = Literal["grand", "canonical"]
 
+#: Default truncation cutoff of the purification (meaning: :mod:`mpsobs.mps.truncation`).
+PURIFICATION_CUTOFF = 1e-18
 #: Bracket doublings before a root search gives up.
 _MAX_DOUBLINGS = 200
 #: Largest ancilla reweighting |alpha' - alpha| * sqrt(L) / 2 kept without a new sweep.
@@ -651,7 +656,7 @@ def _pick(model: Model, method: Method, ensemble: Ensemble,
 
 def gibbs(model: Model, energy: float, number: float | None = None, *,
           ensemble: Ensemble = "grand", method: Method = "auto", max_bond: int = 64,
-          dbeta: float = 0.05, cutoff: float = 1e-20,
+          dbeta: float = 0.05, cutoff: float = PURIFICATION_CUTOFF,
           beta_max: float | None = None) -> GibbsResult:
     """The Gibbs ensemble with <H> = ``energy`` (and <N> = ``number``) and its entropy.
 
@@ -665,7 +670,8 @@ def gibbs(model: Model, energy: float, number: float | None = None, *,
     method : "auto" (free fermions when exact, else purification), "free-fermion" or
         "purification".
     max_bond, dbeta, cutoff, beta_max : purification: bond dimension limit, imaginary-time
-        step in beta, relative squared singular value kept, and the largest |beta| swept
+        step in beta, truncation cutoff (discarded weight, :mod:`mpsobs.mps.truncation`),
+        and the largest |beta| swept
         (default 20 / energy scale).
 
     Raises InputError for energies outside the spectrum range (exact bounds for free
@@ -685,7 +691,8 @@ def gibbs(model: Model, energy: float, number: float | None = None, *,
 
 
 def gibbs_at(model: Model, beta: float, mu: float | None = None, *, method: Method = "auto",
-             max_bond: int = 64, dbeta: float = 0.05, cutoff: float = 1e-20) -> GibbsResult:
+             max_bond: int = 64, dbeta: float = 0.05,
+             cutoff: float = PURIFICATION_CUTOFF) -> GibbsResult:
     """The grand Gibbs ensemble exp(-beta (H - mu N)) / Z at a given beta (any sign) and
     chemical potential (None: mu = 0; needs a number-conserving model otherwise).
     Options as :func:`gibbs`; the purification's steps are adjusted to end on beta."""
@@ -707,7 +714,7 @@ def gibbs_at(model: Model, beta: float, mu: float | None = None, *, method: Meth
 
 def gibbs_state(model: Model, beta: float, mu: float | None = None, *,
                 number: int | None = None, max_bond: int = 64, dbeta: float = 0.05,
-                cutoff: float = 1e-20) -> PurifiedMPS:
+                cutoff: float = PURIFICATION_CUTOFF) -> PurifiedMPS:
     """The Gibbs state exp(-beta (H - mu N)) / Z as a purification MPS.
 
     Parameters
@@ -718,7 +725,8 @@ def gibbs_state(model: Model, beta: float, mu: float | None = None, *,
     number : the canonical ensemble instead: P_N exp(-beta H) / Z_N in the sector of N =
         ``number`` sites in |1> (number-conserving models; mu must be None).
     max_bond, dbeta, cutoff : bond dimension limit, imaginary-time step (adjusted down
-        so that the steps end on beta) and relative squared singular value kept.
+        so that the steps end on beta) and truncation cutoff (discarded weight,
+        :mod:`mpsobs.mps.truncation`).
 
     Returns
     -------
