@@ -95,14 +95,16 @@ def test_keep_count_applies_the_discarded_weight_rule():
     assert truncation.keep_count(tiny, 10, 2e-18) == (1, pytest.approx(1e-18 + 1e-22))
 
 
+@pytest.mark.parametrize("shape", [(48, 48), (60, 40), (40, 60)])
 @pytest.mark.parametrize("side", ["left", "right"])
-def test_gram_split_agrees_with_the_svd(side):
+def test_gram_split_agrees_with_the_svd(side, shape):
     # Reference: numpy's SVD, truncated by the same rule. Spectrum decaying over 12
-    # decades: the cutoff 1e-10 falls where the Gram route resolves the values.
-    n = 48
+    # decades: the cutoff 1e-10 falls where the Gram route resolves the values. Tall and
+    # wide matrices take the QR reduction before the Gram matrix.
+    n = min(shape)
     s_true = np.logspace(0, -12, n)
-    m = _with_spectrum(s_true, (n, n), seed=3)
-    u, s, vh = np.linalg.svd(m)
+    m = _with_spectrum(s_true, shape, seed=3)
+    u, s, vh = np.linalg.svd(m, full_matrices=False)
     k, lost = truncation.keep_count(s, 40, 1e-10)
     want = (u[:, :k] * s[:k]) @ vh[:k]
     left, right, kept, got_lost = truncation.split(m, side, 40, 1e-10)

@@ -97,7 +97,7 @@ def block_split(m: np.ndarray, row_q: np.ndarray, col_q: np.ndarray, side: Side,
     ro, co, ranges = _charge_blocks(row_q, col_q)
     ms = m[ro][:, co]
     blocks = [ms[r0:r1, c0:c1] for _, r0, r1, c0, c1 in ranges]
-    gram = all(use_gram(b, side, route, cutoff) for b in blocks)
+    gram = use_gram(route, cutoff)
     for attempt in (gram, False):
         parts = [decompose(b, side, attempt) for b in blocks]
         s_all = np.concatenate([s for s, _, _ in parts])

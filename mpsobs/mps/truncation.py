@@ -115,8 +115,21 @@ def _upper_mask(k: int, n: int) -> np.ndarray:
 def decompose(m: np.ndarray, side: Side, gram: bool):
     """All singular values (descending) of m, the singular vectors of ``side`` (as columns:
     u for "left", vh^dagger for "right") and, for the SVD, the other factor (s vh or u s;
-    None for the Gram route, where it is the projection :func:`finish` takes)."""
+    None for the Gram route, where it is the projection :func:`finish` takes).
+
+    The Gram route takes the Gram matrix of ``side``; when that is the larger one, m is
+    first reduced by a QR (m = q r, or m^dagger = q r for "right"), whose isometry q
+    carries the vectors back exactly."""
     if gram:
+        rows, cols = m.shape
+        if side == "left" and rows > cols:
+            q, r = qr(m)
+            s, v, _ = decompose(r, side, True)
+            return s, q @ v, None
+        if side == "right" and cols > rows:
+            q, r = qr(m.conj().T)
+            s, v, _ = decompose(r.conj().T, side, True)
+            return s, q @ v, None
         g = m @ m.conj().T if side == "left" else m.conj().T @ m
         w, v = np.linalg.eigh(g)
         return np.sqrt(np.clip(w[::-1], 0.0, None)), v[:, ::-1], None
@@ -140,12 +153,10 @@ def finish(m: np.ndarray, side: Side, iso: np.ndarray,
     return (m @ iso if other is None else other), iso.conj().T
 
 
-def use_gram(m: np.ndarray, side: Side, route: Route, cutoff: float) -> bool:
-    """Whether the Gram route is tried: with route "auto", a cutoff of at least
-    GRAM_FLOOR (a smaller one asks for values the route does not resolve) and the Gram
-    matrix of ``side`` the smaller one (or square)."""
-    smaller = (m.shape[0] if side == "left" else m.shape[1]) <= min(m.shape)
-    return route == "auto" and cutoff >= GRAM_FLOOR and smaller
+def use_gram(route: Route, cutoff: float) -> bool:
+    """Whether the Gram route is tried: with route "auto" and a cutoff of at least
+    GRAM_FLOOR (a smaller one asks for values the route does not resolve)."""
+    return route == "auto" and cutoff >= GRAM_FLOOR
 
 
 def split(m: np.ndarray, side: Side, max_bond: int, cutoff: float,
@@ -159,7 +170,7 @@ def split(m: np.ndarray, side: Side, max_bond: int, cutoff: float,
     Gram route (module docstring) and falls back to the SVD below GRAM_FLOOR; "svd" always
     takes the SVD.
     """
-    gram = use_gram(m, side, route, cutoff)
+    gram = use_gram(route, cutoff)
     s, iso, other = decompose(m, side, gram)
     k, lost = keep_count(s, max_bond, cutoff)
     if gram and not resolved(s, k):
