@@ -743,8 +743,9 @@ def gibbs_state(model: Model, beta: float, mu: float | None = None, *,
     trace distance of the reduced states (Fuchs-van de Graaf; Nielsen and Chuang,
     Quantum Computation and Quantum Information, sec. 9.2). When the bond limit is reached
     the state is built once more at half the bond and that distance is added (an estimate,
-    not a bound, like the truncation companion of the evolution). Cost: the three sweeps,
-    about 1.6 x (|beta| / dbeta) L (4 chi)^3 for the SVDs.
+    not a bound, like the truncation companion of the evolution). Cost: the three runs
+    (Strang steps with merged half layers, about L two-site splits of (4 chi, 4 chi) per
+    step), about 2.5 x (|beta| / dbeta) L (4 chi)^3; less in number blocks.
     """
     _check_options(model, "purification", "grand", max_bond, dbeta, cutoff)
     beta = finite_number(beta, "beta")
