@@ -135,7 +135,7 @@ def definite_charges(tensors: list[np.ndarray],
     bond vectors of definite charge times site values) by the SVD of each row-charge block
     separately, so the new left vectors have definite charges; the singular values of all
     blocks together are truncated by :func:`keep_count` to the old bond dimension and
-    ``tol``. A state of definite total charge loses nothing but rounding (its reduced
+    ``tol`` / L per site. A state of definite total charge loses nothing but rounding (its reduced
     density matrices commute with the charge left of every cut, so the blocks' row spaces
     are orthogonal); otherwise more than ``tol`` of the weight would be discarded, or the
     last bond would carry several charges, and None is returned.
@@ -155,7 +155,7 @@ def definite_charges(tensors: list[np.ndarray],
         parts = [svd(m[rows]) for rows in groups]
         s_all = np.concatenate([s for _, s, _ in parts])
         order = np.argsort(-s_all, kind="stable")
-        k, lost = keep_count(s_all[order], chr_, tol)
+        k, lost = keep_count(s_all[order], chr_, tol / len(out))
         lost_total += lost
         if lost_total > tol:
             return None
