@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 from scipy.sparse.linalg import expm_multiply
 
-from mpsobs.chain import evolution as tebd
 from mpsobs.chain import models, states
 from mpsobs.chain.evolution import Snapshot, evolve
 from mpsobs.core.errors import InputError
+from mpsobs.mps import truncation
 from mpsobs.mps.tensors import MPS, right_canonical_defect, to_dense, to_quimb
 
 FULL = 4096   # a bond limit no state here reaches: no truncation by bond dimension
@@ -161,7 +161,8 @@ def test_energy_drift_of_truncated_run_within_error_budget():
 def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     L = 6
     model, psi0 = _ising(L), states.neel(L)
-    reference = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
+    svd_only = {"decomposition": "svd"}
+    reference = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
 
     def failing_gesdd(*args, **kwargs):
         return None, None, None, 1   # LAPACK's "did not converge"
@@ -169,10 +170,10 @@ def test_svd_fallbacks_give_the_same_evolution(monkeypatch):
     def failing_robust(m):
         raise np.linalg.LinAlgError("SVD did not converge")
 
-    monkeypatch.setattr(tebd, "_GESDD", failing_gesdd)   # -> mps.robust_svd
-    robust = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
-    monkeypatch.setattr(tebd, "robust_svd", failing_robust)   # -> Gram + eigh
-    gram = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2).state)
+    monkeypatch.setattr(truncation, "_GESDD", failing_gesdd)   # -> mps.robust_svd
+    robust = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
+    monkeypatch.setattr(truncation, "robust_svd", failing_robust)   # -> Gram + eigh
+    gram = to_dense(_final(model, psi0, 0.5, dt=0.1, order=2, **svd_only).state)
     assert abs(np.vdot(reference, robust)) ** 2 == pytest.approx(1.0, abs=1e-12)
     assert abs(np.vdot(reference, gram)) ** 2 == pytest.approx(1.0, abs=1e-10)
 
@@ -237,3 +238,47 @@ def test_bad_evolve_input(kwargs, word):
     times = args.pop("times")
     with pytest.raises(InputError, match=word):
         evolve(states.neel(8), model, times, **args)   # raised at the call, not on iteration
+
+
+def test_gram_route_matches_the_svd_route_and_the_exact_evolution():
+    # The truncation through the Gram matrix (decomposition="auto") against the SVD on
+    # every split, on a truncated quench; and, untruncated by the bond, against
+    # scipy's expm_multiply of the sparse Hamiltonian.
+    L = 12
+    model, psi0 = _xxz(L), states.neel(L)
+    runs = {route: list(evolve(psi0, model, [1.0, 2.0], max_bond=8, cutoff=1e-10, dt=0.05,
+                               order=2, symmetry="none", decomposition=route))
+            for route in ("auto", "svd")}
+    for gram, svd in zip(runs["auto"], runs["svd"], strict=True):
+        overlap = np.vdot(to_dense(svd.state), to_dense(gram.state))
+        assert abs(overlap) ** 2 >= 1 - 1e-10
+        assert gram.discarded_weight == pytest.approx(svd.discarded_weight, rel=1e-6)
+        _assert_right_canonical(gram.state)
+    assert runs["svd"][-1].discarded_weight > 1e-6   # the run was truncated
+    # Against the exact state: triangle inequality over the M truncations of relative
+    # weights eps_j (each moves the state by sqrt(eps_j); Cauchy-Schwarz: sum sqrt(eps_j)
+    # <= sqrt(M w)), plus the Trotter error of the same run without truncation.
+    snap = _final(model, psi0, 2.0, dt=0.05, order=4, cutoff=1e-10, symmetry="none")
+    exact = _exact(model, psi0, 2.0)
+    trotter = _state_error(model, psi0, 2.0, 0.05, 4)
+    truncations = (3 * snap.steps + 1) * (L - 1)
+    bound = trotter + np.sqrt(truncations * snap.discarded_weight)
+    assert snap.discarded_weight > 0
+    phase = np.vdot(to_dense(snap.state), exact)
+    assert np.linalg.norm(to_dense(snap.state) * phase / abs(phase) - exact) <= bound
+
+
+def test_number_blocks_for_a_ground_state_quench():
+    # A DMRG ground state (bond bases of indefinite number as quimb returns them) is
+    # rotated to definite numbers and evolved block by block; the reference is the dense
+    # path, and scipy's expm_multiply.
+    L = 10
+    ground = models.ground_state(models.xxz(L, delta=2.0), max_bond=16, cutoff=1e-12).state
+    model = _xxz(L)
+    runs = {sym: _final(model, ground, 1.0, dt=0.05, order=4, cutoff=1e-12, symmetry=sym)
+            for sym in ("number", "none")}
+    overlap = np.vdot(to_dense(runs["none"].state), to_dense(runs["number"].state))
+    assert abs(overlap) ** 2 == pytest.approx(1.0, abs=1e-10)
+    assert runs["number"].energy == pytest.approx(runs["none"].energy, abs=1e-9)
+    exact = _exact(model, ground, 1.0)
+    assert abs(np.vdot(exact, to_dense(runs["number"].state))) ** 2 >= 1 - 1e-8

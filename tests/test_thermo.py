@@ -442,3 +442,43 @@ def test_gge_correlation_commutes_with_the_hopping_matrix_and_keeps_occupations(
     assert not np.allclose(a @ corr, corr @ a, atol=1e-6)  # the state itself is not dephased
     assert np.allclose(np.linalg.eigvalsh(c), np.sort(res.occupations), atol=1e-12)
     assert abs(np.trace(c).real - 6) < 1e-12
+
+
+def _purified_density_matrix(tensors) -> np.ndarray:
+    """Tr_ancilla |psi><psi| of a purification (index 2 s + a) as a dense matrix."""
+    L = len(tensors)
+    psi = tensors[0].reshape(4, -1)
+    for t in tensors[1:]:
+        psi = np.tensordot(psi, t, axes=(1, 0)).reshape(-1, t.shape[2])
+    psi = psi.reshape([2] * (2 * L)).transpose(list(range(0, 2 * L, 2))
+                                               + list(range(1, 2 * L, 2)))
+    m = psi.reshape(2**L, 2**L)
+    return m @ m.conj().T
+
+
+@pytest.mark.parametrize(("mu", "number"), [(0.3, None), (None, 3)], ids=["grand", "sector"])
+def test_gibbs_state_number_blocks_match_the_dense_path(monkeypatch, mu, number):
+    """The purification evolved in blocks of n_s - n_a against the same evolution with
+    dense decompositions, and both against scipy's expm(-beta (H - mu N)) / Z within the
+    reported trace-distance error."""
+    model = xxz(6, J=1.0, delta=0.6, h=0.4, field="staggered")
+    fixed = []
+
+    def recording(tensors):
+        out = thermo_charges(tensors)
+        fixed.append(out is not None)
+        return out
+
+    thermo_charges = thermo.definite_charges
+    monkeypatch.setattr(thermo, "definite_charges", recording)
+    blocks = thermo.gibbs_state(model, 0.7, mu, number=number, max_bond=32)
+    assert fixed and all(fixed)   # the blocks were used
+    monkeypatch.setattr(thermo, "definite_charges", lambda tensors: None)
+    dense = thermo.gibbs_state(model, 0.7, mu, number=number, max_bond=32)
+    assert thermo._purification_distance(blocks.tensors, dense.tensors) < 1e-7
+    assert blocks.error == pytest.approx(dense.error, rel=1e-4)
+    want = _dense_gibbs_matrix(model, 0.7, mu, number)
+    for state in (blocks, dense):
+        rho = _purified_density_matrix(state.tensors)
+        trace_distance = 0.5 * np.abs(np.linalg.eigvalsh(rho - want)).sum()
+        assert trace_distance <= state.error

@@ -419,7 +419,8 @@ def dmrg(tensors: Sequence[np.ndarray], *, max_bond: int, cutoff: float, initial
     """Two-site DMRG (quimb's DMRG2) for the MPO ``tensors`` from the state ``initial``.
 
     Bond dimension ramps 8, 16, ... up to ``max_bond``; singular values are dropped while
-    their squared sum stays below ``cutoff``. Sweeps alternate right and left until the
+    their squared sum stays below ``cutoff`` (quimb's "sum2" on the normalised state:
+    the rule of :mod:`mpsobs.mps.truncation`). Sweeps alternate right and left until the
     energy changes by less than ``tol``. DMRG: Phys. Rev. Lett. 69, 2863 (1992).
     """
     import quimb.tensor as qtn

@@ -1,0 +1,186 @@
+"""The one truncation rule of the package, and truncated two-site splits.
+
+Meaning of ``cutoff`` (everywhere in mpsobs: TEBD, the Gibbs purification, DMRG): at a
+truncation with singular values s_1 >= s_2 >= ..., keep at most ``max_bond`` of them and
+drop the smallest ones as long as their squared sum stays within ``cutoff`` times the
+total sum_j s_j^2 (the discarded weight relative to the norm; quimb's cutoff_mode
+"rsum2"). ``cutoff = 0`` drops only exact zeros. The discarded fraction is reported.
+
+A split ``theta = left @ right`` of a two-site matrix is done either by the SVD or, where
+it is faster and resolves the cutoff, through the eigen-decomposition of the Gram matrix
+theta theta^dagger (or theta^dagger theta): its eigenvectors are the left (right) singular
+vectors, exactly orthonormal, and the other factor is the projection U^dagger theta
+(theta V), so no division by small singular values occurs. The eigenvalues s^2 carry an
+absolute error of about machine epsilon times s_1^2, so relative weights s_k^2 / s_1^2
+below ``GRAM_FLOOR`` are rounding noise: the route is tried only for cutoff >= GRAM_FLOOR,
+and when the rule would keep a smaller value the split is redone by the SVD (a fact of
+the trade: forming the Gram matrix squares the condition number; e.g. Golub and Van
+Loan, Matrix Computations, 4th ed., sec. 8.6, from memory).
+Cost for an (m, n) matrix, m <= n: Gram route m^2 n (product) + ~10 m^3 (eigh) + k m n
+(projection); SVD ~ 20 m^2 n. Measured on one core the eigh of a square Gram matrix is
+1.3 to 1.8 times faster than LAPACK's gesdd at m = 64..256.
+"""
+
+from __future__ import annotations
+
+import functools
+import logging
+from typing import Literal
+
+import numpy as np
+from scipy.linalg import lapack
+
+from mpsobs.mps.tensors import robust_svd
+
+__all__ = ["keep_count", "svd", "gram_svd", "qr", "split", "decompose", "resolved", "finish",
+           "use_gram", "Side", "Route", "GRAM_FLOOR"]
+
+logger = logging.getLogger(__name__)
+
+Side = Literal["left", "right"]
+Route = Literal["auto", "svd"]
+#: Smallest relative weight s_k^2 / s_1^2 the Gram route keeps; a split whose rule would
+#: keep a smaller one is done by the SVD (about 100 machine epsilons times the size).
+GRAM_FLOOR = 1e-12
+#: The Gram route reduces a matrix by a QR first when the dimension of the other side is
+#: below this fraction of the side's (eigh ~ 10 n^3 against QR ~ 8 n m^2 + eigh of m).
+QR_REDUCTION = 0.75
+_GESDD, _GESDD_LWORK = lapack.zgesdd, lapack.zgesdd_lwork
+_GEQRF, _UNGQR = lapack.zgeqrf, lapack.zungqr
+
+
+def keep_count(s: np.ndarray, max_bond: int, cutoff: float) -> tuple[int, float]:
+    """How many of the descending values ``s`` the rule keeps (at least one), and the
+    discarded fraction of sum s^2 (see the module docstring for the rule).
+
+    The discarded sums are accumulated from the smallest value up, so cutoffs far below
+    machine epsilon (e.g. 1e-20) are applied as given and not rounded away."""
+    w = s * s
+    tail = np.cumsum(w[::-1])          # tail[j]: sum of the j + 1 smallest weights
+    total = float(tail[-1]) if tail.size else 0.0
+    if total <= 0.0:
+        return 1, 0.0
+    droppable = int(np.count_nonzero(tail <= cutoff * total))
+    k = min(max(s.size - droppable, 1), max_bond)
+    dropped = s.size - k
+    return k, float(tail[dropped - 1]) / total if dropped else 0.0
+
+
+def svd(m: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Thin SVD: LAPACK gesdd called directly (on m^T, which is Fortran-ordered, so
+    nothing is copied and the factors come out C-ordered); if it does not converge,
+    :func:`mpsobs.mps.tensors.robust_svd` (gesdd, then gesvd); if that fails too,
+    :func:`gram_svd`."""
+    lwork, _ = _GESDD_LWORK(m.shape[1], m.shape[0], compute_uv=1, full_matrices=0)
+    ut, s, vht, info = _GESDD(m.T, compute_uv=1, full_matrices=0, lwork=int(lwork.real))
+    if info == 0:   # m^T = ut s vht  =>  m = vht^T s ut^T
+        return vht.T, s, ut.T
+    logger.debug("gesdd failed (info %d) on a %s matrix; falling back", info, m.shape)
+    try:
+        return robust_svd(m)
+    except np.linalg.LinAlgError:
+        logger.warning("gesdd and gesvd failed on a %s matrix; using the Gram matrix", m.shape)
+        return gram_svd(m)
+
+
+def gram_svd(m: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Thin SVD through eigh of the smaller Gram matrix (m^dagger m or m m^dagger).
+
+    Singular values below about sqrt(machine epsilon) * s_max lose accuracy; they are
+    dropped together with their vectors (last resort when LAPACK's SVDs fail)."""
+    wide = m.shape[0] < m.shape[1]
+    a = m.conj().T if wide else m                     # tall: a = u s vh
+    w, v = np.linalg.eigh(a.conj().T @ a)             # a^dagger a = v s^2 v^dagger
+    w, v = w[::-1], v[:, ::-1]
+    keep = w > max(w[0], 0.0) * 1e-15 if w.size and w[0] > 0 else np.zeros(w.size, bool)
+    keep[:1] = True
+    s = np.sqrt(np.clip(w[keep], 0.0, None))
+    v = v[:, keep]
+    u = (a @ v) / np.where(s > 0, s, 1.0)
+    if wide:   # m = a^dagger = v s u^dagger
+        return v, s, u.conj().T
+    return u, s, v.conj().T
+
+
+def qr(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Economic QR by LAPACK geqrf + ungqr called directly."""
+    packed, tau, _, _ = _GEQRF(m)
+    k = min(m.shape)
+    q, _, _ = _UNGQR(packed[:, :k], tau)
+    return q, packed[:k] * _upper_mask(k, m.shape[1])
+
+
+@functools.lru_cache(maxsize=4096)
+def _upper_mask(k: int, n: int) -> np.ndarray:
+    return np.triu(np.ones((k, n), dtype=bool))
+
+
+def decompose(m: np.ndarray, side: Side, gram: bool):
+    """All singular values (descending) of m, the singular vectors of ``side`` (as columns:
+    u for "left", vh^dagger for "right") and, for the SVD, the other factor (s vh or u s;
+    None for the Gram route, where it is the projection :func:`finish` takes).
+
+    The Gram route takes the Gram matrix of ``side``; when that is much the larger one
+    (the other dimension below QR_REDUCTION times it), m is first reduced by a QR (m =
+    q r, or m^dagger = q r for "right"), whose isometry q carries the vectors back
+    exactly. Without the reduction the Gram matrix has rank below its size; its zero
+    eigenvalues are dropped by the rule or send the split to the SVD."""
+    if gram:
+        rows, cols = m.shape
+        if side == "left" and cols < QR_REDUCTION * rows:
+            q, r = qr(m)
+            s, v, _ = decompose(r, side, True)
+            return s, q @ v, None
+        if side == "right" and rows < QR_REDUCTION * cols:
+            q, r = qr(m.conj().T)
+            s, v, _ = decompose(r.conj().T, side, True)
+            return s, q @ v, None
+        g = m @ m.conj().T if side == "left" else m.conj().T @ m
+        w, v = np.linalg.eigh(g)
+        return np.sqrt(np.clip(w[::-1], 0.0, None)), v[:, ::-1], None
+    u, s, vh = svd(m)
+    if side == "left":
+        return s, u, s[:, None] * vh
+    return s, vh.conj().T, u * s
+
+
+def resolved(s: np.ndarray, k: int) -> bool:
+    """Whether the Gram route resolves the k-th largest of the values s (GRAM_FLOOR)."""
+    return bool(s[0] == 0.0 or s[k - 1] ** 2 >= GRAM_FLOOR * s[0] ** 2)
+
+
+def finish(m: np.ndarray, side: Side, iso: np.ndarray,
+           other: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """(left, right) of the split from the kept singular vectors ``iso`` of ``side`` and,
+    when known, the kept rows (columns) of the other factor."""
+    if side == "left":
+        return iso, (iso.conj().T @ m if other is None else other)
+    return (m @ iso if other is None else other), iso.conj().T
+
+
+def use_gram(route: Route, cutoff: float) -> bool:
+    """Whether the Gram route is tried: with route "auto" and a cutoff of at least
+    GRAM_FLOOR (a smaller one asks for values the route does not resolve)."""
+    return route == "auto" and cutoff >= GRAM_FLOOR
+
+
+def split(m: np.ndarray, side: Side, max_bond: int, cutoff: float,
+          route: Route = "auto") -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """Truncated split m ~ left @ right with the isometry on ``side``.
+
+    Returns (left, right, s, lost): for side "left", left has orthonormal columns (the
+    kept left singular vectors) and right = left^dagger m; for "right", right has
+    orthonormal rows and left = m right^dagger. s are the kept singular values and lost
+    the discarded fraction of the weight (:func:`keep_count`). ``route`` "auto" tries the
+    Gram route (module docstring) and falls back to the SVD below GRAM_FLOOR; "svd" always
+    takes the SVD.
+    """
+    gram = use_gram(route, cutoff)
+    s, iso, other = decompose(m, side, gram)
+    k, lost = keep_count(s, max_bond, cutoff)
+    if gram and not resolved(s, k):
+        s, iso, other = decompose(m, side, False)
+        k, lost = keep_count(s, max_bond, cutoff)
+    left, right = finish(m, side, iso[:, :k], None if other is None else
+                         (other[:k] if side == "left" else other[:, :k]))
+    return left, right, s[:k], lost
