@@ -548,3 +548,6 @@ def test_bad_input_names_the_argument():
         mpsobs.observational_entropy(3.0 * mpsmod.to_dense(state), cg)
     with pytest.raises(InputError, match="state: the MPS is not normalised"):
         mpsobs.observational_entropy(scaled, cg)
+    # A Python list of numbers is a dense vector in the wrong container, not MPS tensors.
+    with pytest.raises(InputError, match="state: got a list of 3 numbers.*numpy array"):
+        mpsobs.observational_entropy([1, 0, 0], coarse.blocks(2, 1))
