@@ -51,8 +51,10 @@ Estimators (``method``):
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import logging
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, replace
 from typing import Literal
 
@@ -69,6 +71,15 @@ from mpsobs.estimators.blocktensors import (
     transfer,
     transfer_flops,
 )
+from mpsobs.estimators.charges import (
+    ChargedBlock,
+    Group,
+    bond_charges,
+    charged_blocks,
+    merge,
+    start_group,
+    work_buffer,
+)
 from mpsobs.estimators.dense import NORM_TOL
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
 from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, bond_entropies, right_canonical_log_norm
@@ -76,7 +87,8 @@ from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, bond_entropies, right_c
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
            "draw_conditional", "ConditionalBatch", "conditional_terms",
            "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
-           "check_seed", "Method", "METHODS"]
+           "check_seed", "Method", "METHODS", "draw_conditional_charged",
+           "baseline_algorithms", "PREVIOUS_METHODS"]
 
 logger = logging.getLogger(__name__)
 
@@ -96,6 +108,26 @@ ENUMERATE_BYTES = 2**29
 BATCH_BYTES = 2**28
 MAX_BATCH = 1024
 COUNT_MAX_REGIONS = 3
+#: Values of ``previous_method``: how the same coarse-graining was estimated at the
+#: previous output time of the same evolution.
+PREVIOUS_METHODS = ("exact", "sampled")
+
+_BASELINE = contextvars.ContextVar("mpsobs_baseline_algorithms", default=False)
+
+
+@contextlib.contextmanager
+def baseline_algorithms() -> Iterator[None]:
+    """Inside this context the estimators run the algorithms used before the charge
+    blocks: dense chi x chi environments also for number-conserving states, and the
+    automatic choice tries enumeration whatever ``previous_method`` says. For benchmarks
+    and cross-checks (``scripts/bench_point.py``); the numbers agree with the default
+    algorithms within round-off (exact values) or draw for draw (samples, same seed).
+    """
+    token = _BASELINE.set(True)
+    try:
+        yield
+    finally:
+        _BASELINE.reset(token)
 
 
 # --------------------------------------------------------------------------- input
@@ -251,6 +283,25 @@ class _TooManyBranches(Exception):
     """Enumeration needs more live prefixes than allowed."""
 
 
+def _level_cap(flops: float, budget: float, limit: float, k: int, blk: ReadoutBlock) -> float:
+    """Live prefixes allowed at block k (``limit`` and the memory cap ENUMERATE_BYTES of
+    dense chi x chi environments); raises _TooManyBranches when the enumeration's flops,
+    counted for dense environments, passed ``budget``."""
+    if flops > budget:
+        raise _TooManyBranches(f"more than {budget:.3g} flops (the cost of sampling) at "
+                               f"block {k} (sites {blk.start}..{blk.stop - 1})")
+    chi = blk.tensor.shape[2]
+    return min(limit, max(1, ENUMERATE_BYTES // (16 * chi * chi)))
+
+
+def _check_live(kept: int, cap: float, limit: float, k: int, blk: ReadoutBlock) -> None:
+    if kept > cap:
+        why = ("max_branches" if cap == limit else
+               f"the memory cap of {ENUMERATE_BYTES / 2**20:.0f} MiB")
+        raise _TooManyBranches(f"more than {cap} live outcome prefixes ({why}) at block "
+                               f"{k} (sites {blk.start}..{blk.stop - 1})")
+
+
 def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progress: bool,
                budget: float = np.inf) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """Leaves (p, ln V, outcome strings) of the pruned outcome tree, and the pruned mass.
@@ -270,12 +321,7 @@ def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progr
     with _bar(progress, len(blocks), "enumerate") as bar:
         for k, blk in enumerate(blocks):
             flops += transfer_flops(env.shape[0], blk.tensor.shape)
-            if flops > budget:
-                raise _TooManyBranches(
-                    f"more than {budget:.3g} flops (the cost of sampling) at block {k} "
-                    f"(sites {blk.start}..{blk.stop - 1})")
-            chi = blk.tensor.shape[2]
-            cap = min(limit, max(1, ENUMERATE_BYTES // (16 * chi * chi)))
+            cap = _level_cap(flops, budget, limit, k, blk)
             p_parent = np.exp(log_p)
             parts = []
             kept = 0
@@ -290,12 +336,7 @@ def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progr
                 pruned += float(np.sum(np.clip(p[~keep], 0.0, None)))
                 sel = np.flatnonzero(keep)
                 kept += sel.size
-                if kept > cap:
-                    why = ("max_branches" if cap == limit else
-                           f"the memory cap of {ENUMERATE_BYTES / 2**20:.0f} MiB")
-                    raise _TooManyBranches(
-                        f"more than {cap} live outcome prefixes ({why}) at block {k} "
-                        f"(sites {blk.start}..{blk.stop - 1})")
+                _check_live(kept, cap, limit, k, blk)
                 if sel.size:
                     parts.append((child[sel] / trace[sel, None, None],
                                   log_p[sel] + np.log(trace[sel]),
@@ -310,6 +351,57 @@ def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progr
             outcomes = np.concatenate([q[3] for q in parts])
             bar.update(1)
     return np.exp(log_p), log_v, outcomes, pruned
+
+
+def _enumerate_charged(blocks: Sequence[ChargedBlock], limit: float, prune: float,
+                       progress: bool, budget: float = np.inf
+                       ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """:func:`_enumerate` on charge blocks (:mod:`mpsobs.estimators.charges`): the same
+    leaves in the same order, the same pruning, and the same limits (flops and memory
+    counted as for dense environments, so that the automatic choice decides as before),
+    with each prefix's environment one or a few charge blocks."""
+    groups = [start_group(np.arange(1))]
+    log_p, log_v = np.zeros(1), np.zeros(1)
+    outcomes = np.zeros((1, 0), dtype=np.int64)
+    pruned = 0.0
+    flops = 0.0
+    work = work_buffer(blocks)
+    with _bar(progress, len(blocks), "enumerate") as bar:
+        for k, cb in enumerate(blocks):
+            blk = cb.block
+            flops += transfer_flops(log_p.size, blk.tensor.shape)
+            cap = _level_cap(flops, budget, limit, k, blk)
+            p_parent = np.exp(log_p)
+            children, parts = [], []
+            kept = 0
+            for j in range(blk.n_outcomes):
+                if blk.offsets[j + 1] == blk.offsets[j]:
+                    continue
+                for g in groups:
+                    child, trace, _ = g.child(cb, j, None, work)
+                    p = p_parent[g.members] * trace
+                    keep = (p > 0) & (p >= prune)
+                    pruned += float(np.sum(np.clip(p[~keep], 0.0, None)))
+                    sel = np.flatnonzero(keep)
+                    kept += sel.size
+                    _check_live(kept, cap, limit, k, blk)
+                    if sel.size:
+                        parent = g.members[sel]
+                        children.append(Group({q: e[sel] for q, e in child.envs.items()},
+                                              np.arange(kept - sel.size, kept)))
+                        parts.append((log_p[parent] + np.log(trace[sel]),
+                                      log_v[parent] + blk.log_volumes[j],
+                                      np.column_stack([outcomes[parent],
+                                                       np.full(sel.size, j, np.int64)])))
+            if not parts:
+                return np.zeros(0), np.zeros(0), np.zeros((0, len(blocks)), np.int64), pruned
+            groups = merge(children)
+            log_p = np.concatenate([q[0] for q in parts])
+            log_v = np.concatenate([q[1] for q in parts])
+            outcomes = np.concatenate([q[2] for q in parts])
+            bar.update(1)
+    order = np.lexsort(outcomes.T)  # the dense order: last block's outcome first
+    return np.exp(log_p[order]), log_v[order], outcomes[order], pruned
 
 
 # --------------------------------------------------------------------------- count
@@ -559,6 +651,45 @@ def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarra
                             flops + envs.flops)
 
 
+def draw_conditional_charged(blocks: Sequence[ChargedBlock],
+                             uniforms: np.ndarray) -> ConditionalBatch:
+    """:func:`draw_conditional` on the charge blocks of a number-conserving state
+    (:mod:`mpsobs.estimators.charges`): the same paths and values up to round-off.
+
+    The samples are kept in groups of equal charges (after number outcomes, one charge
+    per group); per group one matrix product per charge gives the conditionals, and the
+    members that drew the same outcome advance together. Cost per sample and block
+    4 sum_q d_q^2 n_out + sum 8 g d_q d_q' (d_q + d_q') flops over the charges q the
+    sample carries and q' = q + c (rows of count c in the drawn outcome); memory 16 bytes
+    x n x sum_q d_q^2 (twice) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    """
+    n, m = uniforms.shape
+    shannon = np.zeros(n)
+    boltzmann = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    groups = [start_group(np.arange(n))]
+    work = work_buffer(blocks)
+    flops = 0.0
+    for k, cb in enumerate(blocks):
+        children = []
+        for g in groups:
+            p = g.probabilities(cb)
+            flops += 2.0 * g.members.size * sum(cb.weights[q].size for q in g.envs)
+            h, b = conditional_terms(p, cb.block.log_volumes)
+            shannon[g.members] += h
+            boltzmann[g.members] += b
+            drawn = _draw_index(p, uniforms[g.members, k])
+            outcomes[g.members, k] = drawn
+            present = np.unique(drawn)
+            for j in present:
+                select = None if present.size == 1 else drawn == j
+                child, _, cost = g.child(cb, int(j), select, work)
+                children.append(child)
+                flops += cost
+        groups = merge(children)
+    return ConditionalBatch(outcomes, shannon, boltzmann, flops)
+
+
 def conditional_sample_flops(blocks: Sequence[ReadoutBlock]) -> float:
     """Predicted flops of one conditional path: per block the conditionals plus the
     transfer with the mean drawn group size g = sum_i g_i^2 / R (rows drawn uniformly)."""
@@ -588,10 +719,12 @@ class _Sampling:
     sample s always uses row s of its uniforms, whatever the batch size."""
 
     def __init__(self, blocks: Sequence[ReadoutBlock], conditional: bool, seed,
-                 batch: int | None, bar):
+                 batch: int | None, bar, charged: Sequence[ChargedBlock] | None = None):
         self.blocks = blocks
         self.algorithm = "mps-conditional" if conditional else "mps-sample"
-        self._weights = [outcome_weights(b) for b in blocks] if conditional else None
+        self._charged = charged if conditional else None
+        self._weights = ([outcome_weights(b) for b in blocks]
+                         if conditional and charged is None else None)
         self._rng = np.random.default_rng(seed)
         self._batch = batch or default_batch(blocks)
         self._bar = bar
@@ -612,7 +745,10 @@ class _Sampling:
                 return
             size = min(self._batch, goal - self.drawn)
             uniforms = self._rng.random((size, len(self.blocks)))
-            if self._weights is None:
+            if self._charged is not None:
+                batch = draw_conditional_charged(self._charged, uniforms)
+                h, b = batch.shannon, batch.boltzmann
+            elif self._weights is None:
                 batch = draw_samples(self.blocks, uniforms)
                 h, b = -batch.log_p, batch.log_v
             else:
@@ -669,7 +805,8 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
                               max_branches: int | None = None,
                               batch: int | None = None,
                               max_samples: int = DEFAULT_MAX_SAMPLES,
-                              progress: bool = False) -> EntropyResult:
+                              progress: bool = False,
+                              previous_method: str | None = None) -> EntropyResult:
     """Observational entropy (nats) of an MPS under a block coarse-graining.
 
     Parameters
@@ -710,6 +847,13 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     max_samples : upper bound on samples; with ``target_stderr``, where drawing stops
         (default 10**6).
     progress : show a tqdm progress bar.
+    previous_method : None, or how the same coarse-graining of the same evolution came
+        out at the previous output time (the ``method`` of that result: "exact" or
+        "sampled"). With "sampled" the automatic choice goes straight to sampling,
+        without trying enumeration first: in a quench the live prefixes only grow, so
+        an enumeration that exceeded its budget once is not tried again at later times
+        (where it might have succeeded, e.g. when the entanglement falls again, the
+        result is sampled, with its error). Other methods ignore it.
 
     Returns
     -------
@@ -733,7 +877,12 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops; working memory 16 bytes
     x batch x (2 chi^2 + R chi). Both plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     Enumeration: per live prefix and block
-    16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: 32 chi^3 flops per site
+    16 R chi^3 flops; 32 bytes x live prefixes x chi^2.
+    A number-conserving MPS (definite bond charges, :func:`mpsobs.estimators.charges.
+    bond_charges`) with outcomes of definite number (number; energy and any observable
+    commuting with the block number) is sampled and enumerated on charge blocks
+    (:mod:`mpsobs.estimators.charges`): chi^3 above becomes d_q^3 per live charge q,
+    e.g. about (chi / d_q)^3 fewer flops for number blocks. Counting: 32 chi^3 flops per site
     and live counter value (about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_3^2/2) complex
     multiply-adds for three regions); memory 16 bytes x chi^2 x (3 K + b_last + 1), K =
     product of (b + 1) over all regions but the last.
@@ -747,18 +896,22 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     cg = coarse_graining
     _check_options(samples, target_stderr, prune, max_branches, batch, max_samples, progress,
                    seed)
+    if previous_method is not None and previous_method not in PREVIOUS_METHODS:
+        raise InputError(f"previous_method: expected None or one of "
+                         f"{', '.join(map(repr, PREVIOUS_METHODS))}, got {previous_method!r}")
     chosen = _resolve_method(method, cg, samples, target_stderr)
     mps = canonical_state(state, cg.L)
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     if chosen == "count":
         return _count(mps, cg, bonds)
-    blocks = readout_blocks(mps, cg)
+    charged = None if chosen == "sample_strings" else _charge_blocks(mps, cg)
+    blocks = readout_blocks(mps, cg) if charged is None else tuple(c.block for c in charged)
     if chosen in ("exact", "auto") and _block_product(blocks):
         return _product_result(blocks, cg, bonds)
     if chosen in ("enumerate", "exact"):
         try:
-            p, log_v, outcomes, pruned = _enumerate(
-                blocks, max_branches or DEFAULT_MAX_BRANCHES, prune, progress)
+            p, log_v, outcomes, pruned = _enumerate_any(
+                blocks, charged, max_branches or DEFAULT_MAX_BRANCHES, prune, progress)
         except _TooManyBranches as exc:
             raise InputError(f"method: {chosen!r} (exact enumeration) needs {exc}; raise "
                              f"max_branches or prune, or use method 'sample'") from None
@@ -768,18 +921,43 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     else:
         minimum, goal = samples or MIN_TARGET_SAMPLES, max_samples
     with _bar(progress, goal, "sample") as bar:
-        run = _Sampling(blocks, chosen != "sample_strings", seed, batch, bar)
-        if chosen == "auto":
-            exact = _enumerate_if_cheaper(run, blocks, cg, bonds, prune, max_branches,
-                                          progress, minimum, goal, target_stderr, max_samples)
+        run = _Sampling(blocks, chosen != "sample_strings", seed, batch, bar, charged)
+        if chosen == "auto" and (previous_method != "sampled" or _BASELINE.get()):
+            exact = _enumerate_if_cheaper(run, blocks, charged, cg, bonds, prune,
+                                          max_branches, progress, minimum, goal,
+                                          target_stderr, max_samples)
             if exact is not None:
                 return exact
         run.draw(goal, minimum, target_stderr)
     return run.result(cg, bonds, target_stderr, max_samples)
 
 
+def _charge_blocks(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining
+                   ) -> tuple[ChargedBlock, ...] | None:
+    """The charge blocks of a number-conserving MPS whose outcomes have definite numbers,
+    else None (dense environments): a purification, a state without definite bond
+    charges, an observable that mixes numbers, or inside :func:`baseline_algorithms`."""
+    if _BASELINE.get() or isinstance(mps, PurifiedMPS):
+        return None
+    charges = bond_charges(mps)
+    if charges is None:
+        return None
+    blocks = readout_blocks(mps, cg, number_rows=True)
+    return None if blocks is None else charged_blocks(blocks, charges)
+
+
+def _enumerate_any(blocks: Sequence[ReadoutBlock], charged: Sequence[ChargedBlock] | None,
+                   limit: float, prune: float, progress: bool, budget: float = np.inf
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """:func:`_enumerate_charged` where there are charge blocks, else :func:`_enumerate`."""
+    if charged is not None:
+        return _enumerate_charged(charged, limit, prune, progress, budget)
+    return _enumerate(blocks, limit, prune, progress, budget)
+
+
 def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
-                          cg: BlockCoarseGraining, bonds: np.ndarray, prune: float,
+                          charged: Sequence[ChargedBlock] | None, cg: BlockCoarseGraining,
+                          bonds: np.ndarray, prune: float,
                           max_branches: int | None, progress: bool, minimum: int,
                           goal: int, target_stderr: float | None,
                           max_samples: int) -> EntropyResult | None:
@@ -802,8 +980,8 @@ def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
         needed = goal
     budget = max(needed - run.drawn, 0) * per_sample
     try:
-        p, log_v, outcomes, pruned = _enumerate(blocks, max_branches or np.inf, prune,
-                                                progress, budget)
+        p, log_v, outcomes, pruned = _enumerate_any(blocks, charged, max_branches or np.inf,
+                                                    prune, progress, budget)
     except _TooManyBranches as exc:
         logger.info("enumeration stopped: %s; sampling instead", exc)
         return None
