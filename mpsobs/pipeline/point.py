@@ -454,6 +454,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     else:  # same gates, steps and output times at both bonds
         pairs = zip(snapshots(state, evo["chi_max"]), snapshots(check_state, chi_check),
                     strict=True)
+    # how each coarse-graining came out at the previous time (resumed rows included)
+    previous = {row["coarse_graining"]: row["method"] for row in rows}
     for k, (snap, check_snap) in enumerate(pairs, start=done):
         discarded = discarded0 + snap.discarded_weight
         check_discarded = (check_discarded0 + check_snap.discarded_weight
@@ -461,7 +463,9 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         norm = norm0 * snap.norm
         for j, (label, block_size, cg) in enumerate(cgs):
             seed = _estimator_seed(point.seed, k, j)
-            res = observational_entropy(snap.state, cg, seed=seed, **options[j])
+            res = observational_entropy(snap.state, cg, seed=seed, **options[j],
+                                        previous_method=previous.get(label))
+            previous[label] = res.method
             check = (None if check_snap is None else
                      _check_estimate(check_snap.state, cg, res, seed, est, options[j]))
             rows.append({
