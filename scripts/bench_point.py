@@ -31,8 +31,14 @@ here), so its ratio shows the noise of the machine. The rows of both runs are co
 exact values must agree to 1e-9, sampled ones within 4 combined standard errors (the
 largest |difference| / error is printed).
 
+``--final`` times only the estimators, on the state of the last output time (evolved
+once, at chi_max, by the point's own builders): for each coarse-graining the point's
+estimator settings (automatic, without a previous method) and the conditional sampler
+(1000 samples), current against baseline algorithms, same seed. A cheap proxy of the
+estimator part of a research point where the whole point takes too long.
+
 Usage: OPENBLAS_NUM_THREADS=1 python scripts/bench_point.py [--quick] [--repeat 1]
-       [--specs ising,xxz] [--L 64,128]
+       [--specs ising,xxz] [--L 64,128] [--final]
 """
 
 from __future__ import annotations
@@ -47,6 +53,7 @@ from contextlib import nullcontext
 import numpy as np
 
 from mpsobs.estimators import estimate
+from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.pipeline import point, spec
 
 PARTS = ("evolution", "sampling", "enumeration", "counting", "references", "other")
@@ -175,6 +182,41 @@ def bench(name: str, L: int, bond: int, n_times: int, repeat: int) -> None:
     print("  estimates: " + "; ".join(f"{k} {v}" for k, v in methods.items()))
 
 
+def best_of(repeat: int, func, *args, **kwargs) -> tuple[float, object]:
+    best, out = np.inf, None
+    for _ in range(repeat):
+        start = time.perf_counter()
+        out = func(*args, **kwargs)
+        best = min(best, time.perf_counter() - start)
+    return best, out
+
+
+def bench_final(name: str, L: int, bond: int, n_times: int, repeat: int) -> None:
+    p = spec.parse(research_spec(name, L, bond, n_times)).points[0]
+    model, cgs, options = point._prepare(p)
+    evo, times = p.params["evolution"], p.params["times"]["values"]
+    state = point.initial_state(p.params["state"], model, evo)
+    start = time.perf_counter()
+    *_, last = point.tebd.evolve(state, model, times, max_bond=evo["chi_max"],
+                                 cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"])
+    print(f"\n{name}: L = {L}, t = {times[-1]:g}, bond {last.max_bond} (evolved in "
+          f"{time.perf_counter() - start:.0f} s); seconds per estimate, best of {repeat}")
+    print(f"  {'coarse-graining':<16} {'estimator':<22} {'baseline s':>11} {'new s':>8} "
+          f"{'ratio':>7}  agreement")
+    for (label, _, cg), opts in zip(cgs, options, strict=True):
+        runs = {"point's estimator": opts, "sample": {"method": "sample", "samples": 1000}}
+        for kind, kwargs in runs.items():
+            with estimate.baseline_algorithms():
+                t_old, old = best_of(repeat, observational_entropy, last.state, cg, seed=3,
+                                     **kwargs)
+            t_new, new = best_of(repeat, observational_entropy, last.state, cg, seed=3,
+                                 **kwargs)
+            z = abs(new.entropy - old.entropy) / max(np.hypot(new.stderr, old.stderr), 1e-300)
+            print(f"  {label:<16} {kind:<22} {t_old:11.2f} {t_new:8.2f} "
+                  f"{t_old / t_new:7.2f}  |diff| {abs(new.entropy - old.entropy):.1e} nats "
+                  f"= {z:.2f} errors")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true",
@@ -182,6 +224,8 @@ def main() -> None:
     parser.add_argument("--repeat", type=int, default=1, help="runs of each kind (1)")
     parser.add_argument("--specs", default="ising,xxz", help="ising,xxz")
     parser.add_argument("--L", default=None, help="chain lengths (64,128; quick: 32)")
+    parser.add_argument("--final", action="store_true",
+                        help="time the estimators on the last snapshot only")
     args = parser.parse_args()
     lengths = [int(x) for x in (args.L or ("32" if args.quick else "64,128")).split(",")]
     bond, n_times = (64, 7) if args.quick else (128, 13)
@@ -190,7 +234,7 @@ def main() -> None:
           f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}")
     for name in args.specs.split(","):
         for L in lengths:
-            bench(name, L, bond, n_times, args.repeat)
+            (bench_final if args.final else bench)(name, L, bond, n_times, args.repeat)
     print(f"\nload average at the end {os.getloadavg()[0]:.2f}")
 
 
