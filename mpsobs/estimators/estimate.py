@@ -54,7 +54,7 @@ from __future__ import annotations
 import contextlib
 import contextvars
 import logging
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, replace
 from typing import Literal
 
@@ -88,7 +88,7 @@ __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "Samp
            "draw_conditional", "ConditionalBatch", "conditional_terms",
            "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
            "check_seed", "Method", "METHODS", "draw_conditional_charged",
-           "baseline_algorithms", "PREVIOUS_METHODS"]
+           "baseline_algorithms", "PREVIOUS_METHODS", "Evaluator", "EVALUATORS"]
 
 logger = logging.getLogger(__name__)
 
@@ -212,25 +212,25 @@ def countable(cg: BlockCoarseGraining) -> bool:
 
 
 def _resolve_method(method, cg: BlockCoarseGraining, samples, target_stderr) -> str:
-    """The estimator to run: "count", "enumerate", "exact" (not countable: a product
-    over blocks or enumeration), "sample", "sample_strings" or "auto"."""
+    """The estimator to run: a name of :data:`EVALUATORS` ("count"), "enumerate", "exact"
+    (no evaluator applies: a product over blocks or enumeration), "sample",
+    "sample_strings" or "auto"."""
     if method is not None and (not isinstance(method, str) or method not in METHODS):
         raise InputError(f"method: unknown {method!r}; allowed: None (automatic), "
                          f"{', '.join(map(repr, METHODS))}")
     wide = any(b.readout is None for b in cg.blocks)
-    if method in ("count", "enumerate", "exact") and (samples is not None
-                                                      or target_stderr is not None):
+    if method in (*EVALUATORS, "enumerate", "exact") and (samples is not None
+                                                          or target_stderr is not None):
         name = "samples" if samples is not None else "target_stderr"
         raise InputError(f"{name}: method {method!r} is exact and draws no samples; drop "
                          f"{name} or use method 'sample' or None (automatic)")
     chosen = method or "auto"
-    if chosen in ("auto", "exact") and countable(cg):
-        chosen = "count"
-    if chosen == "count" and not countable(cg):
-        raise InputError(f"method: 'count' evaluates the number coarse-graining in at most "
-                         f"{COUNT_MAX_REGIONS} regions; got {cg.label!r} with "
-                         f"{len(cg.blocks)} blocks")
-    if wide and chosen != "count":
+    if chosen in ("auto", "exact"):
+        chosen = next((name for name, ev in EVALUATORS.items() if ev.applies(cg)), chosen)
+    if chosen in EVALUATORS and not EVALUATORS[chosen].applies(cg):
+        raise InputError(f"method: {chosen!r} evaluates {EVALUATORS[chosen].scope}; got "
+                         f"{cg.label!r} with {len(cg.blocks)} blocks")
+    if wide and chosen not in EVALUATORS:
         raise InputError(f"coarse_graining: blocks wider than {MAX_BLOCK_SITES} sites are "
                          f"evaluated only by method 'count' (number, at most "
                          f"{COUNT_MAX_REGIONS} regions); got {len(cg.blocks)} blocks")
@@ -461,6 +461,26 @@ def _count(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining,
     log_vol = [np.log(blk.volumes) for blk in cg.blocks]
     log_v = sum(lv[outcomes[:, i]] for i, lv in enumerate(log_vol))
     return _exact_result(joint.reshape(-1), log_v, outcomes, cg, "mps-count", 0.0, bonds)
+
+
+@dataclass(frozen=True)
+class Evaluator:
+    """An exact estimator for the coarse-grainings it ``applies`` to (``scope`` says which,
+    for the error when it is asked for another): ``run(state, cg, bond_entropies)`` on the
+    right-canonical state."""
+
+    applies: Callable[[BlockCoarseGraining], bool]
+    run: Callable[[MPS | PurifiedMPS, BlockCoarseGraining, np.ndarray | None], EntropyResult]
+    scope: str
+
+
+#: The exact estimators besides enumeration, by method name. The automatic and "exact"
+#: choices take the first that applies; a new one (a method name in METHODS and Method
+#: too) is one entry here.
+EVALUATORS: dict[str, Evaluator] = {
+    "count": Evaluator(countable, _count, f"the number coarse-graining in at most "
+                                          f"{COUNT_MAX_REGIONS} regions"),
+}
 
 
 # --------------------------------------------------------------------------- sample
@@ -902,8 +922,8 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     chosen = _resolve_method(method, cg, samples, target_stderr)
     mps = canonical_state(state, cg.L)
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
-    if chosen == "count":
-        return _count(mps, cg, bonds)
+    if chosen in EVALUATORS:
+        return EVALUATORS[chosen].run(mps, cg, bonds)
     charged = None if chosen == "sample_strings" else _charge_blocks(mps, cg)
     blocks = readout_blocks(mps, cg) if charged is None else tuple(c.block for c in charged)
     if chosen in ("exact", "auto") and _block_product(blocks):
