@@ -46,7 +46,12 @@ Estimators (``method``):
   or sigma / sqrt(n) from a pilot of MIN_TARGET_SAMPLES samples (drawn only when
   something was pruned). Else ``"sample"`` runs, continuing from the pilot samples. The
   wasted work is at most the sampling cost, so automatic costs at most about twice the
-  cheaper method.
+  cheaper method; with ``previous_method="sampled"`` (the point passes how the previous
+  output time came out) enumeration is not tried at all.
+
+Number-conserving states (definite bond charges) are enumerated and sampled on charge
+blocks (:mod:`mpsobs.estimators.charges`), with the same values up to round-off;
+:func:`baseline_algorithms` switches that, and the ``previous_method`` shortcut, off.
 """
 
 from __future__ import annotations
