@@ -52,7 +52,7 @@ from contextlib import nullcontext
 
 import numpy as np
 
-from mpsobs.estimators import estimate
+from mpsobs.estimators import counting, enumeration, estimate
 from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.pipeline import point, spec
 
@@ -127,10 +127,11 @@ def timed_point(p: spec.Point, baseline: bool) -> tuple[dict, object]:
     patches = [(point.tebd, "evolve", timers.wrap_generator("evolution", point.tebd.evolve)),
                (point, "_reference", timers.wrap("references", point._reference)),
                (estimate._Sampling, "draw", timers.wrap("sampling", estimate._Sampling.draw)),
-               (estimate, "_enumerate", timers.wrap("enumeration", estimate._enumerate)),
-               (estimate, "_enumerate_charged",
-                timers.wrap("enumeration", estimate._enumerate_charged)),
-               (estimate, "_count", timers.wrap("counting", estimate._count))]
+               (enumeration, "enumerate_outcomes",
+                timers.wrap("enumeration", enumeration.enumerate_outcomes)),
+               (enumeration, "enumerate_outcomes_charged",
+                timers.wrap("enumeration", enumeration.enumerate_outcomes_charged)),
+               (counting, "count_numbers", timers.wrap("counting", counting.count_numbers))]
     saved = [(owner, name, getattr(owner, name)) for owner, name, _ in patches]
     for owner, name, new in patches:
         setattr(owner, name, new)

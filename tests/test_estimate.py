@@ -18,7 +18,7 @@ import mpsobs
 from mpsobs.chain import coarse, models, states
 from mpsobs.chain.evolution import evolve
 from mpsobs.core.errors import InputError
-from mpsobs.estimators import dense, estimate
+from mpsobs.estimators import dense, enumeration
 from mpsobs.estimators.blocktensors import (
     conditional_probabilities,
     number_definite_rows,
@@ -616,8 +616,8 @@ def test_charge_blocks_match_dense_engine_and_dense_environments(case, monkeypat
     model, state = xxz_quench_state(L, 1.5, 16)
     cg = CHARGED_CASES[case](L, model)
     used = []
-    original = estimate._enumerate_charged
-    monkeypatch.setattr(estimate, "_enumerate_charged",
+    original = enumeration.enumerate_outcomes_charged
+    monkeypatch.setattr(enumeration, "enumerate_outcomes_charged",
                         lambda *a, **k: used.append(1) or original(*a, **k))
     exact = mps_observational_entropy(state, cg, method="enumerate", prune=0.0)
     assert used, "the charge-block enumeration was not taken"
