@@ -55,6 +55,13 @@ def _check_live(kept: int, cap: float, limit: float, k: int, blk: ReadoutBlock) 
                                f"{k} (sites {blk.start}..{blk.stop - 1})")
 
 
+def _kept(p: np.ndarray, prune: float) -> tuple[np.ndarray, float]:
+    """Indices of the children of probability ``p`` that stay live (p > 0 and p >=
+    ``prune``) and the probability of the others (the mass pruned)."""
+    keep = (p > 0) & (p >= prune)
+    return np.flatnonzero(keep), float(np.sum(np.clip(p[~keep], 0.0, None)))
+
+
 def enumerate_outcomes(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progress: bool,
                budget: float = np.inf) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """Leaves (p, ln V, outcome strings) of the pruned outcome tree, and the pruned mass.
@@ -84,10 +91,8 @@ def enumerate_outcomes(blocks: Sequence[ReadoutBlock], limit: float, prune: floa
                     continue
                 child = transfer(env, rows)
                 trace = np.einsum("nii->n", child).real
-                p = p_parent * trace
-                keep = (p > 0) & (p >= prune)
-                pruned += float(np.sum(np.clip(p[~keep], 0.0, None)))
-                sel = np.flatnonzero(keep)
+                sel, lost = _kept(p_parent * trace, prune)
+                pruned += lost
                 kept += sel.size
                 _check_live(kept, cap, limit, k, blk)
                 if sel.size:
@@ -132,10 +137,8 @@ def enumerate_outcomes_charged(blocks: Sequence[ChargedBlock], limit: float, pru
                     continue
                 for g in groups:
                     child, trace, _ = g.child(cb, j, None, work)
-                    p = p_parent[g.members] * trace
-                    keep = (p > 0) & (p >= prune)
-                    pruned += float(np.sum(np.clip(p[~keep], 0.0, None)))
-                    sel = np.flatnonzero(keep)
+                    sel, lost = _kept(p_parent[g.members] * trace, prune)
+                    pruned += lost
                     kept += sel.size
                     _check_live(kept, cap, limit, k, blk)
                     if sel.size:

@@ -90,6 +90,15 @@ def _draw_index(weights: np.ndarray, uniforms: np.ndarray) -> np.ndarray:
     return np.minimum((cum < threshold[:, None]).sum(axis=1), weights.shape[1] - 1)
 
 
+def _row_amplitudes(vec: np.ndarray, blk: ReadoutBlock
+                    ) -> tuple[np.ndarray, np.ndarray, float]:
+    """Amplitudes v_s A_r (n, R, chi_r) of the vector environments ``vec`` (n, chi_l),
+    their squared norms (n, R) and the flops: one GEMM, 8 n chi_l R chi_r."""
+    cl, n_rows, cr = blk.tensor.shape
+    amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(-1, n_rows, cr)
+    return amp, (amp.real**2 + amp.imag**2).sum(axis=2), 8.0 * amp.size * cl
+
+
 @dataclass(frozen=True, eq=False)
 class SampleBatch:
     """Samples of coarse outcome strings with their exact probabilities.
@@ -134,10 +143,8 @@ def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> Sample
     every = np.arange(n)
     flops = 0.0
     for k, blk in enumerate(blocks):
-        cl, n_rows, cr = blk.tensor.shape
-        amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(n, n_rows, cr)
-        flops += 8.0 * n * cl * n_rows * cr
-        weight = (amp.real**2 + amp.imag**2).sum(axis=2)
+        amp, weight, cost = _row_amplitudes(vec, blk)
+        flops += cost
         row = _draw_index(weight, uniforms[envs.held, k])
         vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
         outcome = blk.row_outcome[row]
@@ -248,10 +255,8 @@ def draw_conditional_vectors(blocks: Sequence[ReadoutBlock],
     every = np.arange(n)
     flops = 0.0
     for k, blk in enumerate(blocks):
-        cl, n_rows, cr = blk.tensor.shape
-        amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(n, n_rows, cr)
-        flops += 8.0 * n * cl * n_rows * cr
-        weight = (amp.real**2 + amp.imag**2).sum(axis=2)
+        amp, weight, cost = _row_amplitudes(vec, blk)
+        flops += cost
         p = np.zeros((n, blk.n_outcomes))
         p[:, blk.row_outcome] = weight
         p /= p.sum(axis=1, keepdims=True)
