@@ -31,10 +31,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from mpsobs.core.printing import short
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock, transfer, transfer_flops
 from mpsobs.mps.tensors import MPS
 
-__all__ = ["bond_charges", "ChargedBlock", "charged_blocks", "CHARGE_TOL"]
+__all__ = ["bond_charges", "ChargedBlock", "charged_blocks", "Group", "start_group", "merge",
+           "work_buffer", "CHARGE_TOL"]
 
 #: Entries of a site tensor below this, relative to its largest, may break the charge
 #: rule (round-off of the canonical form); larger ones make the state not charge-definite.
@@ -118,6 +120,10 @@ class Group:
     def __init__(self, envs: dict, members: np.ndarray):
         self.envs = envs
         self.members = members
+
+    def __repr__(self) -> str:
+        sizes = ", ".join(f"{q}: {e.shape[1]}" for q, e in sorted(self.envs.items()))
+        return f"Group({self.members.size} members, charge: block size {{{short(sizes, 200)}}})"
 
     @property
     def key(self) -> tuple[int, ...]:
