@@ -17,6 +17,10 @@ With the right environment the identity, the probability that the block's outcom
 given a prefix of environment E is Tr[E R_i] / Tr E with R_i = sum_{r in i} A_r A_r^dagger
 (:func:`outcome_weights`, :func:`conditional_probabilities`).
 
+For number-conserving states the rows can be re-chosen with a definite number each
+(``readout_blocks(..., number_rows=True)``, :func:`number_definite_rows`), which
+:mod:`mpsobs.estimators.charges` cuts into charge blocks.
+
 Only the fields of :class:`ReadoutBlock` are used here: any number R of rows per block
 (ancilla rows of a purification included) works the same way.
 
