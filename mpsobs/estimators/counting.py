@@ -60,7 +60,9 @@ def _count_right(tensors: Sequence[np.ndarray]) -> np.ndarray:
 
 def count_numbers(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining
                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Exact joint distribution of the numbers n_1 .. n_k (k <= 3 regions).
+    """Exact joint distribution of the numbers n_1 .. n_k (k <= 3 regions): the
+    probabilities, ln V of every outcome and the outcomes (numbers per region), with the
+    last region's number varying fastest.
 
     Left environments carry the counters of regions 1 .. k-1 (K = prod (b_i + 1) of them
     at the last cut); right environments R[n_k] come from the chain's end; then

@@ -310,8 +310,11 @@ def draw_conditional_charged(blocks: Sequence[ChargedBlock],
 
 
 def conditional_sample_flops(blocks: Sequence[ReadoutBlock]) -> float:
-    """Predicted flops of one conditional path: per block the conditionals plus the
-    transfer with the mean drawn group size g = sum_i g_i^2 / R (rows drawn uniformly)."""
+    """Predicted flops of one conditional path with dense environments (:func:`draw_conditional`):
+    per block the conditionals plus the transfer with the mean drawn group size
+    g = sum_i g_i^2 / R (rows drawn uniformly). The automatic choice measures its
+    enumeration budget in these units whichever sampler then runs, so that it decides
+    as with dense environments."""
     total = 0.0
     for blk in blocks:
         cl, n_rows, cr = blk.tensor.shape
