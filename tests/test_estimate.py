@@ -16,21 +16,28 @@ from scipy.stats import binom
 
 import mpsobs
 from mpsobs.chain import coarse, models, states
+from mpsobs.chain.evolution import evolve
 from mpsobs.core.errors import InputError
-from mpsobs.estimators import dense
+from mpsobs.estimators import dense, enumeration
 from mpsobs.estimators.blocktensors import (
     conditional_probabilities,
+    number_definite_rows,
     outcome_weights,
     readout_blocks,
     transfer,
 )
+from mpsobs.estimators.charges import bond_charges, charged_blocks
 from mpsobs.estimators.estimate import (
+    baseline_algorithms,
     canonical_state,
     conditional_terms,
     draw_conditional,
+    draw_conditional_charged,
+    draw_conditional_vectors,
     draw_samples,
     mps_observational_entropy,
     pruned_entropy_bound,
+    single_rows,
 )
 from mpsobs.mps import tensors as mpsmod
 
@@ -548,3 +555,142 @@ def test_bad_input_names_the_argument():
         mpsobs.observational_entropy(3.0 * mpsmod.to_dense(state), cg)
     with pytest.raises(InputError, match="state: the MPS is not normalised"):
         mpsobs.observational_entropy(scaled, cg)
+    # A Python list of numbers is a dense vector in the wrong container, not MPS tensors.
+    with pytest.raises(InputError, match="state: got a list of 3 numbers.*numpy array"):
+        mpsobs.observational_entropy([1, 0, 0], coarse.blocks(2, 1))
+
+
+# --------------------------------------------------------------------------- charge blocks
+
+
+def xxz_quench_state(L, t, bond):
+    """Neel state evolved under the XXZ chain with a staggered field: every bond basis
+    state keeps a definite number (number-block TEBD)."""
+    model = models.xxz(L, delta=0.5, h=0.3, field="staggered")
+    snap = next(evolve(states.neel(L), model, [t], max_bond=bond, cutoff=1e-12, dt=0.05,
+                       order=2, symmetry="number"))
+    return model, canonical_state(snap.state, L)
+
+
+def test_bond_charges_read_off_the_tensors():
+    L = 8
+    charges = bond_charges(canonical_state(states.neel(L), L))
+    # Neel 0101...: the bond after site i carries the number of 1s among sites 0..i.
+    assert [int(q[0]) for q in charges] == [0, 0, 1, 1, 2, 2, 3, 3, 4]
+    assert bond_charges(canonical_state(mpsmod.random_mps(L, 4, seed=1), L)) is None
+    _, state = xxz_quench_state(10, 1.0, 16)
+    charges = bond_charges(state)
+    assert charges is not None and max(q.size for q in charges) > 1
+    for t, left, right in zip(state.tensors, charges, charges[1:], strict=False):
+        allowed = (left[:, None, None] + np.arange(2)[None, :, None]) == right[None, None, :]
+        assert np.abs(t[~allowed]).max(initial=0.0) <= 1e-10 * np.abs(t).max()
+
+
+def test_number_definite_rows_keep_the_povm():
+    L = 6
+    xxz = coarse.blocks(L, 3, "energy", model=models.xxz(L, delta=0.5))
+    for block in xxz.blocks:
+        rows, group, numbers = number_definite_rows(block.readout, block.group)
+        dim = rows.shape[1]
+        popcount = np.array([bin(s).count("1") for s in range(dim)])
+        assert np.all(np.abs(rows[popcount[None, :] != numbers[:, None]]) < 1e-12)
+        for j, macro in enumerate(block.macrostates):
+            b = rows[group == j]
+            # the POVM element of outcome j is the macrostate's projector K^dagger K
+            np.testing.assert_allclose(b.conj().T @ b, macro.kraus.conj().T @ macro.kraus,
+                                       atol=1e-10)
+    ising = coarse.blocks(L, 3, "energy", model=models.ising(L, g=0.7))
+    assert number_definite_rows(ising.blocks[0].readout, ising.blocks[0].group) is None
+
+
+CHARGED_CASES = [
+    lambda L, m: coarse.blocks(L, 3),
+    lambda L, m: coarse.blocks(L, 3, "energy", model=m),
+    lambda L, m: coarse.sequence(coarse.blocks(L, 3), coarse.blocks(L, 3, "energy", model=m)),
+]
+
+
+@pytest.mark.parametrize("case", range(len(CHARGED_CASES)))
+def test_charge_blocks_match_dense_engine_and_dense_environments(case, monkeypatch):
+    L = 12
+    model, state = xxz_quench_state(L, 1.5, 16)
+    cg = CHARGED_CASES[case](L, model)
+    used = []
+    original = enumeration.enumerate_outcomes_charged
+    monkeypatch.setattr(enumeration, "enumerate_outcomes_charged",
+                        lambda *a, **k: used.append(1) or original(*a, **k))
+    exact = mps_observational_entropy(state, cg, method="enumerate", prune=0.0)
+    assert used, "the charge-block enumeration was not taken"
+    # Reference: the dense engine on the state vector.
+    assert_parts_close(exact, dense.observational_entropy(mpsmod.to_dense(state), cg), 1e-10)
+    with baseline_algorithms():
+        old = mps_observational_entropy(state, cg, method="enumerate", prune=0.0)
+    # The same outcomes in the same order; dense environments also keep strings that
+    # break number conservation, with round-off probabilities.
+    old_p = dict(zip(map(tuple, old.distribution.outcomes), old.distribution.probabilities,
+                     strict=True))
+    new_keys = list(map(tuple, exact.distribution.outcomes))
+    assert new_keys == [key for key in old_p if key in set(new_keys)]
+    np.testing.assert_allclose(exact.distribution.probabilities,
+                               [old_p[key] for key in new_keys], atol=1e-12)
+    assert sum(v for key, v in old_p.items() if key not in set(new_keys)) < 1e-12
+    # Sampling: the same uniforms give the same paths and values as dense environments.
+    new = mps_observational_entropy(state, cg, method="sample", samples=200, seed=4,
+                                    batch=64)
+    with baseline_algorithms():
+        ref = mps_observational_entropy(state, cg, method="sample", samples=200, seed=4,
+                                        batch=64)
+    assert new.entropy == pytest.approx(ref.entropy, abs=1e-10)
+    assert new.stderr == pytest.approx(ref.stderr, abs=1e-10)
+    blocks = readout_blocks(state, cg, number_rows=True)
+    charged = charged_blocks(blocks, bond_charges(state))
+    uniforms = np.random.default_rng(6).random((50, len(blocks)))
+    fast = draw_conditional_charged(charged, uniforms)
+    slow = draw_conditional(blocks, [outcome_weights(b) for b in blocks], uniforms)
+    np.testing.assert_array_equal(fast.outcomes, slow.outcomes)
+    np.testing.assert_allclose(fast.shannon + fast.boltzmann, slow.shannon + slow.boltzmann,
+                               atol=1e-10)
+    assert fast.flops < slow.flops
+
+
+def test_previous_method_skips_the_enumeration_attempt():
+    L = 8
+    state = mpsmod.random_mps(L, 4, seed=3)
+    cg = coarse.blocks(L, 2)
+    assert mps_observational_entropy(state, cg, seed=5).algorithm == "mps-enumerate"
+    hinted = mps_observational_entropy(state, cg, seed=5, previous_method="sampled")
+    sampled = mps_observational_entropy(state, cg, seed=5, method="sample")
+    assert hinted.method == "sampled" and hinted.entropy == sampled.entropy
+    assert mps_observational_entropy(state, cg, seed=5,
+                                     previous_method="exact").method == "exact"
+    with baseline_algorithms():  # the algorithms before the hint ignore it
+        assert mps_observational_entropy(state, cg, seed=5,
+                                         previous_method="sampled").method == "exact"
+    with pytest.raises(InputError, match="previous_method.*'sampled'"):
+        mps_observational_entropy(state, cg, previous_method="sample")
+
+
+def test_single_row_outcomes_sample_with_vectors():
+    # Ising block energies of 4 sites are non-degenerate: every outcome is one readout
+    # row, so the conditional sampler's environments stay of rank one.
+    L = 12
+    state = canonical_state(mpsmod.random_mps(L, 16, seed=12), L)
+    cg = coarse.blocks(L, 4, "energy", model=models.ising(L, g=1.05, h=0.25))
+    blocks = readout_blocks(state, cg)
+    assert single_rows(blocks) and not single_rows(readout_blocks(state, coarse.blocks(L, 4)))
+    uniforms = np.random.default_rng(3).random((80, len(blocks)))
+    fast = draw_conditional_vectors(blocks, uniforms)
+    slow = draw_conditional(blocks, [outcome_weights(b) for b in blocks], uniforms)
+    np.testing.assert_array_equal(fast.outcomes, slow.outcomes)
+    np.testing.assert_allclose(fast.shannon, slow.shannon, atol=1e-10)
+    np.testing.assert_allclose(fast.boltzmann, slow.boltzmann, atol=1e-10)
+    assert fast.flops < slow.flops
+    new = mps_observational_entropy(state, cg, method="sample", samples=300, seed=2)
+    with baseline_algorithms():
+        old = mps_observational_entropy(state, cg, method="sample", samples=300, seed=2)
+    assert new.entropy == pytest.approx(old.entropy, abs=1e-10)
+    assert new.stderr == pytest.approx(old.stderr, abs=1e-10)
+    # and both agree with the exact value within 4 standard errors (reference: the
+    # dense engine)
+    exact = dense.observational_entropy(mpsmod.to_dense(state), cg).entropy
+    assert abs(new.entropy - exact) <= 4 * new.stderr

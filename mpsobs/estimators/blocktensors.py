@@ -17,6 +17,10 @@ With the right environment the identity, the probability that the block's outcom
 given a prefix of environment E is Tr[E R_i] / Tr E with R_i = sum_{r in i} A_r A_r^dagger
 (:func:`outcome_weights`, :func:`conditional_probabilities`).
 
+For number-conserving states the rows can be re-chosen with a definite number each
+(``readout_blocks(..., number_rows=True)``, :func:`number_definite_rows`), which
+:mod:`mpsobs.estimators.charges` cuts into charge blocks.
+
 Only the fields of :class:`ReadoutBlock` are used here: any number R of rows per block
 (ancilla rows of a purification included) works the same way.
 
@@ -37,11 +41,15 @@ import numpy as np
 from mpsobs.chain.coarse import BlockCoarseGraining
 from mpsobs.mps.tensors import MPS, PurifiedMPS
 
-__all__ = ["ReadoutBlock", "block_tensor", "readout_blocks", "transfer", "transfer_flops",
-           "outcome_weights", "conditional_probabilities", "WORK_BYTES"]
+__all__ = ["ReadoutBlock", "block_tensor", "readout_blocks", "number_definite_rows",
+           "transfer", "transfer_flops", "outcome_weights", "conditional_probabilities",
+           "WORK_BYTES"]
 
 #: Working memory of one :func:`transfer` chunk (bytes of the intermediate product).
 WORK_BYTES = 2**26
+#: Relative size of the entries of a POVM element that may break number conservation
+#: (round-off of the block diagonalisation), and of the eigenvalues dropped as empty.
+NUMBER_TOL = 1e-10
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,7 +58,9 @@ class ReadoutBlock:
 
     ``tensor`` is (chi_left, R, chi_right), rows sorted by outcome; the rows of outcome j
     are ``offsets[j]:offsets[j + 1]``; ``row_outcome[r]`` is the outcome of row r;
-    ``log_volumes[j]`` is ln V_j of the block's macrostate j.
+    ``log_volumes[j]`` is ln V_j of the block's macrostate j; ``row_numbers[r]``, when
+    not None, the definite number of sites in |1> of row r (see
+    :func:`number_definite_rows`).
     """
 
     start: int
@@ -59,6 +69,7 @@ class ReadoutBlock:
     offsets: np.ndarray
     row_outcome: np.ndarray
     log_volumes: np.ndarray
+    row_numbers: np.ndarray | None = None
 
     @property
     def n_outcomes(self) -> int:
@@ -85,11 +96,53 @@ def block_tensor(mps: MPS | PurifiedMPS, start: int, stop: int) -> np.ndarray:
     return out
 
 
-def readout_blocks(mps: MPS | PurifiedMPS, coarse_graining: BlockCoarseGraining
-                   ) -> tuple[ReadoutBlock, ...]:
+def number_definite_rows(readout: np.ndarray, group: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """Readout rows of the same POVM elements, each row of a definite block number.
+
+    Outcome j's POVM element M_j = sum_{r in j} B_r^dagger B_r is all the estimators use
+    (the environment update sum_{r in j} A_r^dagger E A_r depends on the rows only
+    through M_j). Where every M_j commutes with the block's number operator (off-sector
+    entries below NUMBER_TOL relative), M_j is diagonalised inside each number sector and
+    its rows become sqrt(w) v^dagger there (the rows of a basis state already are), so
+    sum_{r in j} B_r^dagger B_r = M_j is kept to round-off. Returns (rows, outcome of
+    each row, number of each row), or None if some M_j mixes numbers. Cost per outcome
+    one eigendecomposition per number sector, at most D^3 (D = 2**b).
+    """
+    dim = readout.shape[1]
+    numbers = np.array([bin(s).count("1") for s in range(dim)])
+    big = np.abs(readout) > NUMBER_TOL * np.abs(readout).max(axis=1, keepdims=True)
+    low = np.where(big, numbers, dim).min(axis=1)
+    if np.all(np.where(big, numbers, -1).max(axis=1) == low):  # already definite
+        return readout, group, low
+    rows, groups, counts = [], [], []
+    for j in np.unique(group):
+        b = readout[group == j]
+        povm = b.conj().T @ b
+        scale = max(float(np.abs(povm).max()), 1e-300)
+        if np.any(np.abs(povm[numbers[:, None] != numbers[None, :]]) > NUMBER_TOL * scale):
+            return None
+        for n in np.unique(numbers):
+            sector = np.flatnonzero(numbers == n)
+            w, v = np.linalg.eigh(povm[np.ix_(sector, sector)])
+            keep = w > NUMBER_TOL * max(1.0, float(w.max()))
+            block_rows = np.zeros((int(keep.sum()), dim), dtype=complex)
+            block_rows[:, sector] = np.sqrt(w[keep])[:, None] * v[:, keep].conj().T
+            rows.append(block_rows)
+            groups.append(np.full(block_rows.shape[0], j))
+            counts.append(np.full(block_rows.shape[0], n))
+    return np.concatenate(rows), np.concatenate(groups), np.concatenate(counts)
+
+
+def readout_blocks(mps: MPS | PurifiedMPS, coarse_graining: BlockCoarseGraining, *,
+                   number_rows: bool = False) -> tuple[ReadoutBlock, ...] | None:
     """Every block of ``mps`` rotated by its readout (all blocks need one, i.e. blocks of
     at most :data:`mpsobs.coarse.MAX_BLOCK_SITES` sites); for a purification the ancilla
     strings are folded into the rows (module docstring).
+
+    With ``number_rows`` the rows are first re-chosen with a definite number
+    (:func:`number_definite_rows`, ``row_numbers`` set; an MPS only): None if some
+    block's outcomes mix numbers.
 
     Cost per block chi^3 2**(b+1) + chi^2 R 2**b; memory 16 bytes x sum over blocks of
     chi_left R chi_right (R = 2**b for a single observable). A purification has 2**b
@@ -97,9 +150,15 @@ def readout_blocks(mps: MPS | PurifiedMPS, coarse_graining: BlockCoarseGraining
     """
     out = []
     for block in coarse_graining.blocks:
-        order = np.argsort(block.group, kind="stable")
-        readout = block.readout[order]
-        row_outcome = block.group[order]
+        readout, group, numbers = block.readout, block.group, None
+        if number_rows:
+            definite = number_definite_rows(readout, group)
+            if definite is None:
+                return None
+            readout, group, numbers = definite
+        order = np.argsort(group, kind="stable")
+        readout = readout[order]
+        row_outcome = group[order]
         offsets = np.searchsorted(row_outcome, np.arange(block.n_outcomes + 1))
         t = block_tensor(mps, block.start, block.stop)
         cl, cr = t.shape[0], t.shape[2]
@@ -112,7 +171,8 @@ def readout_blocks(mps: MPS | PurifiedMPS, coarse_graining: BlockCoarseGraining
         rotated = np.tensordot(readout, t, axes=(1, 1))  # (R, chi_l, [ancilla x] chi_r)
         rows = rotated.transpose(1, 0, 2).reshape(cl, -1, cr)  # row index r 2**b + a
         out.append(ReadoutBlock(block.start, block.stop, np.ascontiguousarray(rows),
-                                offsets, row_outcome, np.log(block.volumes)))
+                                offsets, row_outcome, np.log(block.volumes),
+                                None if numbers is None else numbers[order]))
     return tuple(out)
 
 

@@ -22,6 +22,16 @@ def _estimator_options() -> tuple[str, ...]:
     return tuple(p.name for p in params if p.kind is inspect.Parameter.KEYWORD_ONLY)
 
 
+def _refuse_plain_numbers(state) -> None:
+    """A list or tuple of plain numbers is a dense vector given as a Python sequence, not
+    the (left, 2, right) tensors of an MPS: say so (InputError naming ``state``)."""
+    if (isinstance(state, list | tuple) and state
+            and all(np.ndim(item) == 0 for item in state)):
+        raise InputError(f"state: got a {type(state).__name__} of {len(state)} numbers; a "
+                         f"dense state vector must be a numpy array of length 2**L "
+                         f"(np.asarray(state)), an MPS a list of (left, 2, right) arrays")
+
+
 @limits_threads(lambda call: state_size(call.arguments["state"]))
 def observational_entropy(state, coarse_graining, *, samples: int | None = None,
                           seed=None, method: str | None = None, **options) -> EntropyResult:
@@ -57,6 +67,7 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
         raise InputError(f"{unknown[0]}: unknown keyword of observational_entropy; allowed: "
                          f"{', '.join(allowed)}")
     estimate.check_seed(seed)
+    _refuse_plain_numbers(state)
     if isinstance(state, np.ndarray):
         given = [name for name, value in (("samples", samples), *options.items())
                  if value is not None]

@@ -40,19 +40,26 @@ Estimators (``method``):
   enumeration is tried with a flop budget equal to the cost of the conditional sampling
   it replaces (n samples x :func:`conditional_sample_flops`; n = ``samples`` or
   DEFAULT_SAMPLES, or with ``target_stderr`` n = (sigma / target)^2 from a pilot of the
-  first ``samples`` or MIN_TARGET_SAMPLES samples), the memory cap ENUMERATE_BYTES and,
+  first ``samples`` or MIN_TARGET_SAMPLES samples), the memory cap enumeration.ENUMERATE_BYTES and,
   if given, ``max_branches``. Its result is kept if it finishes within the budget and
   ``pruned_entropy_bound`` is at most the error sampling would give: ``target_stderr``,
   or sigma / sqrt(n) from a pilot of MIN_TARGET_SAMPLES samples (drawn only when
   something was pruned). Else ``"sample"`` runs, continuing from the pilot samples. The
   wasted work is at most the sampling cost, so automatic costs at most about twice the
-  cheaper method.
+  cheaper method; with ``previous_method="sampled"`` (the point passes how the previous
+  output time came out) enumeration is not tried at all.
+
+Number-conserving states (definite bond charges) are enumerated and sampled on charge
+blocks (:mod:`mpsobs.estimators.charges`), with the same values up to round-off;
+:func:`baseline_algorithms` switches that, and the ``previous_method`` shortcut, off.
 """
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import logging
-from collections.abc import Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, replace
 from typing import Literal
 
@@ -60,23 +67,33 @@ import numpy as np
 
 from mpsobs.chain.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorCoarseGraining
 from mpsobs.core.errors import InputError, check_seed
-from mpsobs.estimators.blocktensors import (
-    WORK_BYTES,
-    ReadoutBlock,
-    conditional_probabilities,
-    outcome_weights,
-    readout_blocks,
-    transfer,
-    transfer_flops,
-)
+from mpsobs.estimators import counting, enumeration
+from mpsobs.estimators.blocktensors import ReadoutBlock, outcome_weights, readout_blocks, transfer
+from mpsobs.estimators.charges import ChargedBlock, bond_charges, charged_blocks
+from mpsobs.estimators.counting import COUNT_MAX_REGIONS, countable
 from mpsobs.estimators.dense import NORM_TOL
+from mpsobs.estimators.enumeration import progress_bar
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
-from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, bond_entropies, right_canonical_log_norm
+from mpsobs.estimators.sampling import (
+    ConditionalBatch,
+    SampleBatch,
+    conditional_sample_flops,
+    conditional_terms,
+    default_batch,
+    draw_conditional,
+    draw_conditional_charged,
+    draw_conditional_vectors,
+    draw_samples,
+    single_rows,
+)
+from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",
            "draw_conditional", "ConditionalBatch", "conditional_terms",
            "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
-           "check_seed", "Method", "METHODS", "SAMPLING_METHODS"]
+           "check_seed", "Method", "METHODS", "SAMPLING_METHODS", "draw_conditional_charged",
+           "baseline_algorithms", "PREVIOUS_METHODS", "Evaluator", "EVALUATORS",
+           "draw_conditional_vectors", "single_rows"]
 
 logger = logging.getLogger(__name__)
 
@@ -93,12 +110,26 @@ MIN_TARGET_SAMPLES = 100
 DEFAULT_MAX_SAMPLES = 1_000_000
 DEFAULT_PRUNE = 1e-12
 DEFAULT_MAX_BRANCHES = 2**14
-#: Memory cap of the live environments of enumeration (bytes).
-ENUMERATE_BYTES = 2**29
-#: Memory target of one sampling batch (bytes), used when ``batch`` is None.
-BATCH_BYTES = 2**28
-MAX_BATCH = 1024
-COUNT_MAX_REGIONS = 3
+#: Values of ``previous_method``: how the same coarse-graining was estimated at the
+#: previous output time of the same evolution.
+PREVIOUS_METHODS = ("exact", "sampled")
+
+_BASELINE = contextvars.ContextVar("mpsobs_baseline_algorithms", default=False)
+
+
+@contextlib.contextmanager
+def baseline_algorithms() -> Iterator[None]:
+    """Inside this context the estimators run the algorithms used before the charge
+    blocks: dense chi x chi environments also for number-conserving states, and the
+    automatic choice tries enumeration whatever ``previous_method`` says. For benchmarks
+    and cross-checks (``scripts/bench_point.py``); the numbers agree with the default
+    algorithms within round-off (exact values) or draw for draw (samples, same seed).
+    """
+    token = _BASELINE.set(True)
+    try:
+        yield
+    finally:
+        _BASELINE.reset(token)
 
 
 # --------------------------------------------------------------------------- input
@@ -133,6 +164,23 @@ def canonical_state(state, L: int | None = None) -> MPS | PurifiedMPS:
     return rc
 
 
+def _bond_entropies(rc: MPS) -> np.ndarray:
+    """Von Neumann entropy (nats) of every bond of a normalised right-canonical MPS (entry
+    i cuts sites i | i + 1), as :func:`mpsobs.mps.bond_entropies`: with the right
+    environments the identity, the left environment E_i = sum_s A_s^dagger E_(i-1) A_s
+    at bond i has the squared Schmidt values as its eigenvalues. Cost per bond one
+    :func:`transfer` (32 chi^3 flops) and one Hermitian eigenvalue problem, a fraction
+    of the SVD sweep; the values agree to round-off (1e-15 absolute)."""
+    env = np.ones((1, 1, 1), dtype=complex)
+    out = np.zeros(rc.L - 1)
+    for i, t in enumerate(rc.tensors[:-1]):
+        env = transfer(env, t)
+        p = np.linalg.eigvalsh(env[0])
+        p = p[p > 1e-300]
+        out[i] = float(-np.sum(p * np.log(p)))
+    return out
+
+
 def _positive_int(value, name: str, minimum: int = 1) -> int:
     if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
         raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
@@ -162,33 +210,26 @@ def _check_options(samples, target_stderr, prune, max_branches, batch, max_sampl
     check_seed(seed)
 
 
-def countable(cg: BlockCoarseGraining) -> bool:
-    """Whether the automatic and "exact" choices count ``cg`` exactly: the number
-    observable alone on at most COUNT_MAX_REGIONS blocks."""
-    return (len(cg.stages) == 1 and cg.stages[0].name == "number"
-            and len(cg.blocks) <= COUNT_MAX_REGIONS)
-
-
 def _resolve_method(method, cg: BlockCoarseGraining, samples, target_stderr) -> str:
-    """The estimator to run: "count", "enumerate", "exact" (not countable: a product
-    over blocks or enumeration), "sample", "sample_strings" or "auto"."""
+    """The estimator to run: a name of :data:`EVALUATORS` ("count"), "enumerate", "exact"
+    (no evaluator applies: a product over blocks or enumeration), "sample",
+    "sample_strings" or "auto"."""
     if method is not None and (not isinstance(method, str) or method not in METHODS):
         raise InputError(f"method: unknown {method!r}; allowed: None (automatic), "
                          f"{', '.join(map(repr, METHODS))}")
     wide = any(b.readout is None for b in cg.blocks)
-    if method in ("count", "enumerate", "exact") and (samples is not None
-                                                      or target_stderr is not None):
+    if method in (*EVALUATORS, "enumerate", "exact") and (samples is not None
+                                                          or target_stderr is not None):
         name = "samples" if samples is not None else "target_stderr"
         raise InputError(f"{name}: method {method!r} is exact and draws no samples; drop "
                          f"{name} or use method 'sample' or None (automatic)")
     chosen = method or "auto"
-    if chosen in ("auto", "exact") and countable(cg):
-        chosen = "count"
-    if chosen == "count" and not countable(cg):
-        raise InputError(f"method: 'count' evaluates the number coarse-graining in at most "
-                         f"{COUNT_MAX_REGIONS} regions; got {cg.label!r} with "
-                         f"{len(cg.blocks)} blocks")
-    if wide and chosen != "count":
+    if chosen in ("auto", "exact"):
+        chosen = next((name for name, ev in EVALUATORS.items() if ev.applies(cg)), chosen)
+    if chosen in EVALUATORS and not EVALUATORS[chosen].applies(cg):
+        raise InputError(f"method: {chosen!r} evaluates {EVALUATORS[chosen].scope}; got "
+                         f"{cg.label!r} with {len(cg.blocks)} blocks")
+    if wide and chosen not in EVALUATORS:
         raise InputError(f"coarse_graining: blocks wider than {MAX_BLOCK_SITES} sites are "
                          f"evaluated only by method 'count' (number, at most "
                          f"{COUNT_MAX_REGIONS} regions); got {len(cg.blocks)} blocks")
@@ -228,345 +269,32 @@ def _exact_result(p: np.ndarray, log_v: np.ndarray, outcomes: np.ndarray,
                          bond_entropies=bonds, algorithm=algorithm)
 
 
-def _bar(progress: bool, total: int, desc: str):
-    from tqdm.auto import tqdm
-
-    return tqdm(total=total, desc=desc, disable=not progress, leave=False)
-
-
-# --------------------------------------------------------------------------- enumerate
-
-
-class _TooManyBranches(Exception):
-    """Enumeration needs more live prefixes than allowed."""
-
-
-def _enumerate(blocks: Sequence[ReadoutBlock], limit: float, prune: float, progress: bool,
-               budget: float = np.inf) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-    """Leaves (p, ln V, outcome strings) of the pruned outcome tree, and the pruned mass.
-
-    Level k holds the live prefixes i_1 .. i_k, each with its environment normalised to
-    unit trace and its ln p; every outcome j of block k + 1 extends all of them in one
-    :func:`transfer` call. Cost sum_k n_k 8 R_k chi_l chi_r (chi_l + chi_r) flops (n_k
-    live prefixes); memory 16 bytes x n_k chi^2 (twice, current and next level), capped
-    at ENUMERATE_BYTES. Raises _TooManyBranches before a level that would take the live
-    prefixes beyond ``limit`` or the flops beyond ``budget``.
-    """
-    env = np.ones((1, 1, 1), dtype=complex)
-    log_p, log_v = np.zeros(1), np.zeros(1)
-    outcomes = np.zeros((1, 0), dtype=np.int64)
-    pruned = 0.0
-    flops = 0.0
-    with _bar(progress, len(blocks), "enumerate") as bar:
-        for k, blk in enumerate(blocks):
-            flops += transfer_flops(env.shape[0], blk.tensor.shape)
-            if flops > budget:
-                raise _TooManyBranches(
-                    f"more than {budget:.3g} flops (the cost of sampling) at block {k} "
-                    f"(sites {blk.start}..{blk.stop - 1})")
-            chi = blk.tensor.shape[2]
-            cap = min(limit, max(1, ENUMERATE_BYTES // (16 * chi * chi)))
-            p_parent = np.exp(log_p)
-            parts = []
-            kept = 0
-            for j in range(blk.n_outcomes):
-                rows = blk.rows(j)
-                if rows.shape[1] == 0:
-                    continue
-                child = transfer(env, rows)
-                trace = np.einsum("nii->n", child).real
-                p = p_parent * trace
-                keep = (p > 0) & (p >= prune)
-                pruned += float(np.sum(np.clip(p[~keep], 0.0, None)))
-                sel = np.flatnonzero(keep)
-                kept += sel.size
-                if kept > cap:
-                    why = ("max_branches" if cap == limit else
-                           f"the memory cap of {ENUMERATE_BYTES / 2**20:.0f} MiB")
-                    raise _TooManyBranches(
-                        f"more than {cap} live outcome prefixes ({why}) at block {k} "
-                        f"(sites {blk.start}..{blk.stop - 1})")
-                if sel.size:
-                    parts.append((child[sel] / trace[sel, None, None],
-                                  log_p[sel] + np.log(trace[sel]),
-                                  log_v[sel] + blk.log_volumes[j],
-                                  np.column_stack([outcomes[sel],
-                                                   np.full(sel.size, j, dtype=np.int64)])))
-            if not parts:
-                return np.zeros(0), np.zeros(0), np.zeros((0, len(blocks)), np.int64), pruned
-            env = np.concatenate([q[0] for q in parts])
-            log_p = np.concatenate([q[1] for q in parts])
-            log_v = np.concatenate([q[2] for q in parts])
-            outcomes = np.concatenate([q[3] for q in parts])
-            bar.update(1)
-    return np.exp(log_p), log_v, outcomes, pruned
-
-
-# --------------------------------------------------------------------------- count
-
-
-def _count_left(env: np.ndarray, tensors: Sequence[np.ndarray]) -> np.ndarray:
-    """Append a counted region to a stack of left environments: (K, l, l) ->
-    (K (b + 1), c, c), the new counter (sites in |1> of the region) varying fastest.
-    The site's rows of |0> and of |1> are the first and second half of its index (one
-    row, or two ancilla rows for a purification)."""
-    cur = env[:, None]
-    for t in tensors:
-        n_prev, n_cnt, cl, _ = cur.shape
-        cr, half = t.shape[2], t.shape[1] // 2
-        flat = cur.reshape(n_prev * n_cnt, cl, cl)
-        new = np.zeros((n_prev, n_cnt + 1, cr, cr), dtype=complex)
-        new[:, :-1] += transfer(flat, t[:, :half, :]).reshape(n_prev, n_cnt, cr, cr)
-        new[:, 1:] += transfer(flat, t[:, half:, :]).reshape(n_prev, n_cnt, cr, cr)
-        cur = new
-    return cur.reshape(-1, *cur.shape[2:])
-
-
-def _count_right(tensors: Sequence[np.ndarray]) -> np.ndarray:
-    """Right environments R[n] = sum over the region's strings with n sites in |1> of
-    A R A^dagger, from the chain's right end: (b + 1, l, l)."""
-    right = np.ones((1, 1, 1), dtype=complex)
-    for t in reversed(tensors):
-        adj = t.conj().transpose(2, 1, 0)
-        n = right.shape[0]
-        cl, half = t.shape[0], t.shape[1] // 2
-        new = np.zeros((n + 1, cl, cl), dtype=complex)
-        new[:-1] += transfer(right, adj[:, :half, :])
-        new[1:] += transfer(right, adj[:, half:, :])
-        right = new
-    return right
-
-
 def _count(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining,
            bonds: np.ndarray | None) -> EntropyResult:
-    """Exact joint distribution of the numbers n_1 .. n_k (k <= 3 regions).
-
-    Left environments carry the counters of regions 1 .. k-1 (K = prod (b_i + 1) of them
-    at the last cut); right environments R[n_k] come from the chain's end; then
-    p(n_1 .. n_k) = Tr E[n_1 .. n_{k-1}] R[n_k]. Cost ~ 4 chi^3 per site and live
-    counter value (8 flops each): about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_k^2/2)
-    complex multiply-adds for three regions; memory 16 bytes x chi^2 (3 K + b_k + 1).
-    """
-    *head, (a_last, b_last) = cg.regions
-    env = np.ones((1, 1, 1), dtype=complex)
-    for a, b in head:
-        env = _count_left(env, mps.tensors[a:b])
-    right = _count_right(mps.tensors[a_last:b_last])
-    joint = (env.reshape(env.shape[0], -1)
-             @ right.transpose(0, 2, 1).reshape(right.shape[0], -1).T).real
-    sizes = [b - a + 1 for a, b in cg.regions]
-    outcomes = np.array(list(np.ndindex(*sizes)), dtype=np.int64).reshape(-1, len(sizes))
-    log_vol = [np.log(blk.volumes) for blk in cg.blocks]
-    log_v = sum(lv[outcomes[:, i]] for i, lv in enumerate(log_vol))
-    return _exact_result(joint.reshape(-1), log_v, outcomes, cg, "mps-count", 0.0, bonds)
+    """The counting estimator (:func:`mpsobs.estimators.counting.count_numbers`) as a
+    result."""
+    p, log_v, outcomes = counting.count_numbers(mps, cg)
+    return _exact_result(p, log_v, outcomes, cg, "mps-count", 0.0, bonds)
 
 
-# --------------------------------------------------------------------------- sample
+@dataclass(frozen=True)
+class Evaluator:
+    """An exact estimator for the coarse-grainings it ``applies`` to (``scope`` says which,
+    for the error when it is asked for another): ``run(state, cg, bond_entropies)`` on the
+    right-canonical state."""
+
+    applies: Callable[[BlockCoarseGraining], bool]
+    run: Callable[[MPS | PurifiedMPS, BlockCoarseGraining, np.ndarray | None], EntropyResult]
+    scope: str
 
 
-class _Environments:
-    """Unit-trace matrix environments of n samples, in reused buffers.
-
-    At every block the samples are reordered by their outcome (environments copied into
-    a scratch buffer) so that each outcome's environments are one contiguous slice,
-    advanced together by :func:`mpsobs.blocktensors.transfer` back into the stack.
-    ``held[s]`` is the sample at position s; ``env`` is the (n, chi, chi) stack.
-    """
-
-    def __init__(self, blocks: Sequence[ReadoutBlock], n: int):
-        chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
-        self._stack, self._scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
-        self._work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)),
-                              dtype=complex)
-        self.env = self._stack[:n].reshape(n, 1, 1)
-        self.env[...] = 1.0
-        self.held = np.arange(n)
-        self.flops = 0.0
-
-    def advance(self, blk: ReadoutBlock, outcome: np.ndarray,
-                carried: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray, tuple]:
-        """Advance every environment with the rows of its sample's outcome at ``blk``.
-
-        Returns the traces before renormalisation (the conditional probabilities of the
-        outcomes), the outcomes and the ``carried`` per-sample arrays, all in the new
-        order of the samples.
-        """
-        n = outcome.size
-        cl, _, cr = blk.tensor.shape
-        order = np.argsort(outcome, kind="stable")
-        outcome = outcome[order]
-        self.held = self.held[order]
-        sorted_env = self._scratch[:n * cl * cl].reshape(n, cl, cl)
-        np.take(self.env, order, axis=0, out=sorted_env, mode="clip")
-        self.env = self._stack[:n * cr * cr].reshape(n, cr, cr)
-        present = np.flatnonzero(np.bincount(outcome, minlength=blk.n_outcomes))
-        bounds = np.searchsorted(outcome, present)
-        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [n], strict=True):
-            rows = blk.rows(j)
-            transfer(sorted_env[lo:hi], rows, out=self.env[lo:hi], work=self._work)
-            self.flops += transfer_flops(hi - lo, rows.shape)
-        trace = np.einsum("nii->n", self.env).real
-        self.env /= trace[:, None, None]
-        return trace, outcome, tuple(c[order] for c in carried)
-
-
-def _draw_index(weights: np.ndarray, uniforms: np.ndarray) -> np.ndarray:
-    """Per row of non-negative ``weights`` (n, K), the index drawn with probability
-    proportional to its weight by the uniform in [0, 1) of that row (inverse CDF; 1 - u
-    lies in (0, 1], so the drawn index always has positive weight)."""
-    cum = np.cumsum(weights, axis=1)
-    threshold = (1.0 - uniforms) * cum[:, -1]
-    return np.minimum((cum < threshold[:, None]).sum(axis=1), weights.shape[1] - 1)
-
-
-@dataclass(frozen=True, eq=False)
-class SampleBatch:
-    """Samples of coarse outcome strings with their exact probabilities.
-
-    ``outcomes`` (n, blocks): macrostate index per block; ``log_p``, ``log_v``: ln p_i
-    and ln V_i of each sample; ``flops``: real floating-point operations of the
-    contractions done.
-    """
-
-    outcomes: np.ndarray
-    log_p: np.ndarray
-    log_v: np.ndarray
-    flops: float
-
-
-def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> SampleBatch:
-    """Sample outcome strings of a right-canonical MPS and their exact probabilities
-    (the per-string estimator, method "sample_strings").
-
-    Parameters
-    ----------
-    blocks : the state's blocks from :func:`mpsobs.blocktensors.readout_blocks`.
-    uniforms : (n, blocks) numbers in [0, 1); row s, column k decides sample s at block k
-        (so a sample does not depend on which other samples share its batch).
-
-    Per block: the vector environments v_s (normalised) give the row probabilities
-    |v_s A_r|^2 (perfect sampling, Phys. Rev. B 85, 165146 (2012); one GEMM (n, l) x
-    (l, R c)); the drawn row fixes the outcome j; the matrix environments of the samples
-    with outcome j are advanced together by :func:`mpsobs.blocktensors.transfer`, and
-    renormalised to unit trace, the log of the trace (the conditional probability of j)
-    being accumulated, so nothing underflows at any L. Cost per sample and block
-    8 chi^2 R + 8 g chi^3 (2 of them for chi_l = chi_r) flops, g = rows of the drawn
-    outcome; memory 16 bytes x n (2 chi^2 + R chi) (two environment stacks and the
-    vectors' row amplitudes) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
-    """
-    n, m = uniforms.shape
-    envs = _Environments(blocks, n)
-    vec = np.ones((n, 1), dtype=complex)
-    log_p = np.zeros(n)
-    log_v = np.zeros(n)
-    outcomes = np.empty((n, m), dtype=np.int64)
-    every = np.arange(n)
-    flops = 0.0
-    for k, blk in enumerate(blocks):
-        cl, n_rows, cr = blk.tensor.shape
-        amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(n, n_rows, cr)
-        flops += 8.0 * n * cl * n_rows * cr
-        weight = (amp.real**2 + amp.imag**2).sum(axis=2)
-        row = _draw_index(weight, uniforms[envs.held, k])
-        vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
-        outcome = blk.row_outcome[row]
-        log_v += blk.log_volumes[outcome]
-        trace, outcome, (vec, log_p, log_v) = envs.advance(blk, outcome, (vec, log_p, log_v))
-        outcomes[envs.held, k] = outcome
-        log_p += np.log(trace)
-    restore = np.argsort(envs.held)
-    return SampleBatch(outcomes, log_p[restore], log_v[restore], flops + envs.flops)
-
-
-def conditional_terms(p: np.ndarray, log_volumes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Shannon and Boltzmann parts of f_k for rows of conditional distributions.
-
-    ``p`` (n, outcomes), ``log_volumes`` (outcomes,): returns -sum_i p_i ln p_i and
-    sum_i p_i ln V_i per row; outcomes with p_i = 0 contribute 0 (also when V_i = 0).
-    """
-    live = p > 0
-    log_p = np.log(p, where=live, out=np.zeros_like(p))
-    log_v = np.where(np.isfinite(log_volumes), log_volumes, 0.0)
-    return -np.sum(p * log_p, axis=1), p @ log_v
-
-
-@dataclass(frozen=True, eq=False)
-class ConditionalBatch:
-    """Coarse outcome paths drawn from their exact conditionals, with their chain-rule
-    values (the conditional estimator, method "sample").
-
-    ``outcomes`` (n, blocks): macrostate index per block; ``shannon`` and ``boltzmann``
-    (n,): sum over blocks k of -sum_i p(i | i_<k) ln p(i | i_<k) and of
-    sum_i p(i | i_<k) ln V_{k,i} along each path (their sum is the path's estimate of
-    S_obs); ``flops``: real floating-point operations of the contractions done.
-    """
-
-    outcomes: np.ndarray
-    shannon: np.ndarray
-    boltzmann: np.ndarray
-    flops: float
-
-
-def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarray],
-                     uniforms: np.ndarray) -> ConditionalBatch:
-    """Draw coarse outcome paths block by block from their exact conditional
-    distributions and add up the exact conditional entropies along each path.
-
-    Parameters
-    ----------
-    blocks : the state's blocks from :func:`mpsobs.blocktensors.readout_blocks`.
-    weights : :func:`mpsobs.blocktensors.outcome_weights` of every block (once per state).
-    uniforms : (n, blocks) numbers in [0, 1); row s, column k draws sample s at block k
-        (so a sample does not depend on which other samples share its batch).
-
-    With the unit-trace environments E of the n paths stacked, all conditionals
-    p(i | i_<k) = Tr[E R_{k,i}] come from one matrix product
-    (:func:`mpsobs.blocktensors.conditional_probabilities`); f_k = sum_i p_i (-ln p_i +
-    ln V_{k,i}) is added to the path's value; i_k is drawn from the same p; E is advanced
-    with the rows of i_k only and renormalised. By the chain rule sum_k E[f_k] = S_obs,
-    so the path value is unbiased; it is exact for a product of blocks. Cost per sample
-    and block 4 chi_l^2 n_out + 8 g chi_l chi_r (chi_l + chi_r) flops (n_out outcomes, g
-    rows of the drawn outcome); memory 16 bytes x n x 2 chi^2 plus
-    :data:`mpsobs.blocktensors.WORK_BYTES`.
-    """
-    n, m = uniforms.shape
-    envs = _Environments(blocks, n)
-    shannon = np.zeros(n)
-    boltzmann = np.zeros(n)
-    outcomes = np.empty((n, m), dtype=np.int64)
-    flops = 0.0
-    for k, (blk, w) in enumerate(zip(blocks, weights, strict=True)):
-        p = conditional_probabilities(envs.env, w)
-        flops += 2.0 * n * w.size
-        h, b = conditional_terms(p, blk.log_volumes)
-        shannon += h
-        boltzmann += b
-        outcome = _draw_index(p, uniforms[envs.held, k])
-        _, outcome, (shannon, boltzmann) = envs.advance(blk, outcome, (shannon, boltzmann))
-        outcomes[envs.held, k] = outcome
-    restore = np.argsort(envs.held)
-    return ConditionalBatch(outcomes, shannon[restore], boltzmann[restore],
-                            flops + envs.flops)
-
-
-def conditional_sample_flops(blocks: Sequence[ReadoutBlock]) -> float:
-    """Predicted flops of one conditional path: per block the conditionals plus the
-    transfer with the mean drawn group size g = sum_i g_i^2 / R (rows drawn uniformly)."""
-    total = 0.0
-    for blk in blocks:
-        cl, n_rows, cr = blk.tensor.shape
-        sizes = np.diff(blk.offsets)
-        mean_group = float(np.sum(sizes**2)) / n_rows
-        total += 4.0 * cl * cl * blk.n_outcomes + 8.0 * mean_group * cl * cr * (cl + cr)
-    return total
-
-
-def default_batch(blocks: Sequence[ReadoutBlock]) -> int:
-    """Samples per batch when ``batch`` is None: as many as fit in BATCH_BYTES, 16 to
-    MAX_BATCH (about 250 at bond 128 and blocks of 4)."""
-    per_sample = max(16 * (2 * b.tensor.shape[0] ** 2 + 2 * b.tensor.shape[2] ** 2
-                           + b.tensor.shape[1] * b.tensor.shape[2]) for b in blocks)
-    return int(np.clip(BATCH_BYTES // per_sample, 16, MAX_BATCH))
+#: The exact estimators besides enumeration, by method name. The automatic and "exact"
+#: choices take the first that applies; a new one (a method name in METHODS and Method
+#: too) is one entry here.
+EVALUATORS: dict[str, Evaluator] = {
+    "count": Evaluator(countable, _count, f"the number coarse-graining in at most "
+                                          f"{COUNT_MAX_REGIONS} regions"),
+}
 
 
 def _mean_err(x: np.ndarray) -> tuple[float, float]:
@@ -578,10 +306,13 @@ class _Sampling:
     sample s always uses row s of its uniforms, whatever the batch size."""
 
     def __init__(self, blocks: Sequence[ReadoutBlock], conditional: bool, seed,
-                 batch: int | None, bar):
+                 batch: int | None, bar, charged: Sequence[ChargedBlock] | None = None):
         self.blocks = blocks
         self.algorithm = "mps-conditional" if conditional else "mps-sample"
-        self._weights = [outcome_weights(b) for b in blocks] if conditional else None
+        self._vectors = conditional and not _BASELINE.get() and single_rows(blocks)
+        self._charged = charged if conditional and not self._vectors else None
+        self._weights = ([outcome_weights(b) for b in blocks] if conditional
+                         and charged is None and not self._vectors else None)
         self._rng = np.random.default_rng(seed)
         self._batch = batch or default_batch(blocks)
         self._bar = bar
@@ -602,7 +333,13 @@ class _Sampling:
                 return
             size = min(self._batch, goal - self.drawn)
             uniforms = self._rng.random((size, len(self.blocks)))
-            if self._weights is None:
+            if self._vectors:
+                batch = draw_conditional_vectors(self.blocks, uniforms)
+                h, b = batch.shannon, batch.boltzmann
+            elif self._charged is not None:
+                batch = draw_conditional_charged(self._charged, uniforms)
+                h, b = batch.shannon, batch.boltzmann
+            elif self._weights is None:
                 batch = draw_samples(self.blocks, uniforms)
                 h, b = -batch.log_p, batch.log_v
             else:
@@ -659,7 +396,8 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
                               max_branches: int | None = None,
                               batch: int | None = None,
                               max_samples: int = DEFAULT_MAX_SAMPLES,
-                              progress: bool = False) -> EntropyResult:
+                              progress: bool = False,
+                              previous_method: str | None = None) -> EntropyResult:
     """Observational entropy (nats) of an MPS under a block coarse-graining.
 
     Parameters
@@ -694,12 +432,19 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     max_branches : ``"enumerate"`` and ``"exact"`` give up (InputError naming ``method``)
         beyond this many live prefixes at one block (default DEFAULT_MAX_BRANCHES =
         2**14); the automatic choice stops enumerating there only if it is given, and
-        otherwise at its flop budget. Always capped by ENUMERATE_BYTES.
-    batch : samples contracted together (default: as many as fit in BATCH_BYTES = 256 MiB,
+        otherwise at its flop budget. Always capped by enumeration.ENUMERATE_BYTES.
+    batch : samples contracted together (default: as many as fit in sampling.BATCH_BYTES = 256 MiB,
         16 .. MAX_BATCH).
     max_samples : upper bound on samples; with ``target_stderr``, where drawing stops
         (default 10**6).
     progress : show a tqdm progress bar.
+    previous_method : None, or how the same coarse-graining of the same evolution came
+        out at the previous output time (the ``method`` of that result: "exact" or
+        "sampled"). With "sampled" the automatic choice goes straight to sampling,
+        without trying enumeration first: in a quench the live prefixes only grow, so
+        an enumeration that exceeded its budget once is not tried again at later times
+        (where it might have succeeded, e.g. when the entanglement falls again, the
+        result is sampled, with its error). Other methods ignore it.
 
     Returns
     -------
@@ -723,7 +468,12 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops; working memory 16 bytes
     x batch x (2 chi^2 + R chi). Both plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     Enumeration: per live prefix and block
-    16 R chi^3 flops; 32 bytes x live prefixes x chi^2. Counting: 32 chi^3 flops per site
+    16 R chi^3 flops; 32 bytes x live prefixes x chi^2.
+    A number-conserving MPS (definite bond charges, :func:`mpsobs.estimators.charges.
+    bond_charges`) with outcomes of definite number (number; energy and any observable
+    commuting with the block number) is sampled and enumerated on charge blocks
+    (:mod:`mpsobs.estimators.charges`): chi^3 above becomes d_q^3 per live charge q,
+    e.g. about (chi / d_q)^3 fewer flops for number blocks. Counting: 32 chi^3 flops per site
     and live counter value (about 4 chi^3 (b_1^2/2 + (b_1 + 1) b_2^2/2 + b_3^2/2) complex
     multiply-adds for three regions); memory 16 bytes x chi^2 x (3 K + b_last + 1), K =
     product of (b + 1) over all regions but the last.
@@ -737,19 +487,23 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     cg = coarse_graining
     _check_options(samples, target_stderr, prune, max_branches, batch, max_samples, progress,
                    seed)
+    if previous_method is not None and previous_method not in PREVIOUS_METHODS:
+        raise InputError(f"previous_method: expected None or one of "
+                         f"{', '.join(map(repr, PREVIOUS_METHODS))}, got {previous_method!r}")
     chosen = _resolve_method(method, cg, samples, target_stderr)
     mps = canonical_state(state, cg.L)
-    bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
-    if chosen == "count":
-        return _count(mps, cg, bonds)
-    blocks = readout_blocks(mps, cg)
+    bonds = None if isinstance(mps, PurifiedMPS) else _bond_entropies(mps)
+    if chosen in EVALUATORS:
+        return EVALUATORS[chosen].run(mps, cg, bonds)
+    charged = None if chosen == "sample_strings" else _charge_blocks(mps, cg)
+    blocks = readout_blocks(mps, cg) if charged is None else tuple(c.block for c in charged)
     if chosen in ("exact", "auto") and _block_product(blocks):
         return _product_result(blocks, cg, bonds)
     if chosen in ("enumerate", "exact"):
         try:
-            p, log_v, outcomes, pruned = _enumerate(
-                blocks, max_branches or DEFAULT_MAX_BRANCHES, prune, progress)
-        except _TooManyBranches as exc:
+            p, log_v, outcomes, pruned = _enumerate_any(
+                blocks, charged, max_branches or DEFAULT_MAX_BRANCHES, prune, progress)
+        except enumeration.TooManyBranches as exc:
             raise InputError(f"method: {chosen!r} (exact enumeration) needs {exc}; raise "
                              f"max_branches or prune, or use method 'sample'") from None
         return _exact_result(p, log_v, outcomes, cg, "mps-enumerate", pruned, bonds)
@@ -757,19 +511,45 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
         minimum = goal = samples or DEFAULT_SAMPLES
     else:
         minimum, goal = samples or MIN_TARGET_SAMPLES, max_samples
-    with _bar(progress, goal, "sample") as bar:
-        run = _Sampling(blocks, chosen != "sample_strings", seed, batch, bar)
-        if chosen == "auto":
-            exact = _enumerate_if_cheaper(run, blocks, cg, bonds, prune, max_branches,
-                                          progress, minimum, goal, target_stderr, max_samples)
+    with progress_bar(progress, goal, "sample") as bar:
+        run = _Sampling(blocks, chosen != "sample_strings", seed, batch, bar, charged)
+        if chosen == "auto" and (previous_method != "sampled" or _BASELINE.get()):
+            exact = _enumerate_if_cheaper(run, blocks, charged, cg, bonds, prune,
+                                          max_branches, progress, minimum, goal,
+                                          target_stderr, max_samples)
             if exact is not None:
                 return exact
         run.draw(goal, minimum, target_stderr)
     return run.result(cg, bonds, target_stderr, max_samples)
 
 
+def _charge_blocks(mps: MPS | PurifiedMPS, cg: BlockCoarseGraining
+                   ) -> tuple[ChargedBlock, ...] | None:
+    """The charge blocks of a number-conserving MPS whose outcomes have definite numbers,
+    else None (dense environments): a purification, a state without definite bond
+    charges, an observable that mixes numbers, or inside :func:`baseline_algorithms`."""
+    if _BASELINE.get() or isinstance(mps, PurifiedMPS):
+        return None
+    charges = bond_charges(mps)
+    if charges is None:
+        return None
+    blocks = readout_blocks(mps, cg, number_rows=True)
+    return None if blocks is None else charged_blocks(blocks, charges)
+
+
+def _enumerate_any(blocks: Sequence[ReadoutBlock], charged: Sequence[ChargedBlock] | None,
+                   limit: float, prune: float, progress: bool, budget: float = np.inf
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    """Enumeration on the charge blocks where there are some, else with dense
+    environments (:mod:`mpsobs.estimators.enumeration`)."""
+    if charged is not None:
+        return enumeration.enumerate_outcomes_charged(charged, limit, prune, progress, budget)
+    return enumeration.enumerate_outcomes(blocks, limit, prune, progress, budget)
+
+
 def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
-                          cg: BlockCoarseGraining, bonds: np.ndarray, prune: float,
+                          charged: Sequence[ChargedBlock] | None, cg: BlockCoarseGraining,
+                          bonds: np.ndarray, prune: float,
                           max_branches: int | None, progress: bool, minimum: int,
                           goal: int, target_stderr: float | None,
                           max_samples: int) -> EntropyResult | None:
@@ -792,9 +572,9 @@ def _enumerate_if_cheaper(run: _Sampling, blocks: Sequence[ReadoutBlock],
         needed = goal
     budget = max(needed - run.drawn, 0) * per_sample
     try:
-        p, log_v, outcomes, pruned = _enumerate(blocks, max_branches or np.inf, prune,
-                                                progress, budget)
-    except _TooManyBranches as exc:
+        p, log_v, outcomes, pruned = _enumerate_any(blocks, charged, max_branches or np.inf,
+                                                    prune, progress, budget)
+    except enumeration.TooManyBranches as exc:
         logger.info("enumeration stopped: %s; sampling instead", exc)
         return None
     bound = pruned_entropy_bound(pruned, cg.max_entropy)

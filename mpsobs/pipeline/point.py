@@ -321,6 +321,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     else:  # same gates, steps and output times at both bonds
         pairs = zip(snapshots(state, evo["chi_max"]), snapshots(check_state, chi_check),
                     strict=True)
+    # how each coarse-graining came out at the previous time (resumed rows included)
+    previous = {row[col.COARSE_GRAINING]: row[col.METHOD] for row in rows}
     for k, (snap, check_snap) in enumerate(pairs, start=done):
         discarded = discarded0 + snap.discarded_weight
         check_discarded = (check_discarded0 + check_snap.discarded_weight
@@ -328,7 +330,9 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         norm = norm0 * snap.norm
         for j, c in enumerate(cgs):
             seed = estimator_seed(point.seed, k, j)
-            res = observational_entropy(snap.state, c.coarse_graining, seed=seed, **c.options)
+            res = observational_entropy(snap.state, c.coarse_graining, seed=seed, **c.options,
+                                        previous_method=previous.get(c.label))
+            previous[c.label] = res.method
             check = (None if check_snap is None else
                      _check_estimate(check_snap.state, c.coarse_graining, res, seed, est,
                                      c.options))

@@ -1,0 +1,332 @@
+"""Sampling estimators of observational entropy on the block tensors of an MPS.
+
+Conventions as :mod:`mpsobs.estimators.blocktensors`. Every sampler takes a (n, blocks)
+array of uniforms, row s deciding sample s, so a sample does not depend on the batch it
+is drawn in. :func:`draw_samples` is the per-string estimator; :func:`draw_conditional`
+the conditional (chain-rule) estimator with dense environments, and
+:func:`draw_conditional_vectors` (outcomes of one row each) and
+:func:`draw_conditional_charged` (number-conserving states) the same estimator on
+smaller environments, with the same draws and values up to round-off.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from mpsobs.estimators.blocktensors import (
+    WORK_BYTES,
+    ReadoutBlock,
+    conditional_probabilities,
+    transfer,
+    transfer_flops,
+)
+from mpsobs.estimators.charges import ChargedBlock, merge, start_group, work_buffer
+
+__all__ = ["draw_samples", "SampleBatch", "draw_conditional", "draw_conditional_vectors",
+           "draw_conditional_charged", "ConditionalBatch", "conditional_terms",
+           "conditional_sample_flops", "default_batch", "single_rows", "BATCH_BYTES",
+           "MAX_BATCH"]
+
+#: Memory target of one sampling batch (bytes), used when ``batch`` is None.
+BATCH_BYTES = 2**28
+MAX_BATCH = 1024
+
+
+class _Environments:
+    """Unit-trace matrix environments of n samples, in reused buffers.
+
+    At every block the samples are reordered by their outcome (environments copied into
+    a scratch buffer) so that each outcome's environments are one contiguous slice,
+    advanced together by :func:`mpsobs.blocktensors.transfer` back into the stack.
+    ``held[s]`` is the sample at position s; ``env`` is the (n, chi, chi) stack.
+    """
+
+    def __init__(self, blocks: Sequence[ReadoutBlock], n: int):
+        chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
+        self._stack, self._scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
+        self._work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)),
+                              dtype=complex)
+        self.env = self._stack[:n].reshape(n, 1, 1)
+        self.env[...] = 1.0
+        self.held = np.arange(n)
+        self.flops = 0.0
+
+    def advance(self, blk: ReadoutBlock, outcome: np.ndarray,
+                carried: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray, tuple]:
+        """Advance every environment with the rows of its sample's outcome at ``blk``.
+
+        Returns the traces before renormalisation (the conditional probabilities of the
+        outcomes), the outcomes and the ``carried`` per-sample arrays, all in the new
+        order of the samples.
+        """
+        n = outcome.size
+        cl, _, cr = blk.tensor.shape
+        order = np.argsort(outcome, kind="stable")
+        outcome = outcome[order]
+        self.held = self.held[order]
+        sorted_env = self._scratch[:n * cl * cl].reshape(n, cl, cl)
+        np.take(self.env, order, axis=0, out=sorted_env, mode="clip")
+        self.env = self._stack[:n * cr * cr].reshape(n, cr, cr)
+        present = np.flatnonzero(np.bincount(outcome, minlength=blk.n_outcomes))
+        bounds = np.searchsorted(outcome, present)
+        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [n], strict=True):
+            rows = blk.rows(j)
+            transfer(sorted_env[lo:hi], rows, out=self.env[lo:hi], work=self._work)
+            self.flops += transfer_flops(hi - lo, rows.shape)
+        trace = np.einsum("nii->n", self.env).real
+        self.env /= trace[:, None, None]
+        return trace, outcome, tuple(c[order] for c in carried)
+
+
+def _draw_index(weights: np.ndarray, uniforms: np.ndarray) -> np.ndarray:
+    """Per row of non-negative ``weights`` (n, K), the index drawn with probability
+    proportional to its weight by the uniform in [0, 1) of that row (inverse CDF; 1 - u
+    lies in (0, 1], so the drawn index always has positive weight)."""
+    cum = np.cumsum(weights, axis=1)
+    threshold = (1.0 - uniforms) * cum[:, -1]
+    return np.minimum((cum < threshold[:, None]).sum(axis=1), weights.shape[1] - 1)
+
+
+def _row_amplitudes(vec: np.ndarray, blk: ReadoutBlock
+                    ) -> tuple[np.ndarray, np.ndarray, float]:
+    """Amplitudes v_s A_r (n, R, chi_r) of the vector environments ``vec`` (n, chi_l),
+    their squared norms (n, R) and the flops: one GEMM, 8 n chi_l R chi_r."""
+    cl, n_rows, cr = blk.tensor.shape
+    amp = (vec @ blk.tensor.reshape(cl, n_rows * cr)).reshape(-1, n_rows, cr)
+    return amp, (amp.real**2 + amp.imag**2).sum(axis=2), 8.0 * amp.size * cl
+
+
+@dataclass(frozen=True, eq=False)
+class SampleBatch:
+    """Samples of coarse outcome strings with their exact probabilities.
+
+    ``outcomes`` (n, blocks): macrostate index per block; ``log_p``, ``log_v``: ln p_i
+    and ln V_i of each sample; ``flops``: real floating-point operations of the
+    contractions done.
+    """
+
+    outcomes: np.ndarray
+    log_p: np.ndarray
+    log_v: np.ndarray
+    flops: float
+
+
+def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> SampleBatch:
+    """Sample outcome strings of a right-canonical MPS and their exact probabilities
+    (the per-string estimator, method "sample_strings").
+
+    Parameters
+    ----------
+    blocks : the state's blocks from :func:`mpsobs.blocktensors.readout_blocks`.
+    uniforms : (n, blocks) numbers in [0, 1); row s, column k decides sample s at block k
+        (so a sample does not depend on which other samples share its batch).
+
+    Per block: the vector environments v_s (normalised) give the row probabilities
+    |v_s A_r|^2 (perfect sampling, Phys. Rev. B 85, 165146 (2012); one GEMM (n, l) x
+    (l, R c)); the drawn row fixes the outcome j; the matrix environments of the samples
+    with outcome j are advanced together by :func:`mpsobs.blocktensors.transfer`, and
+    renormalised to unit trace, the log of the trace (the conditional probability of j)
+    being accumulated, so nothing underflows at any L. Cost per sample and block
+    8 chi^2 R + 8 g chi^3 (2 of them for chi_l = chi_r) flops, g = rows of the drawn
+    outcome; memory 16 bytes x n (2 chi^2 + R chi) (two environment stacks and the
+    vectors' row amplitudes) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    """
+    n, m = uniforms.shape
+    envs = _Environments(blocks, n)
+    vec = np.ones((n, 1), dtype=complex)
+    log_p = np.zeros(n)
+    log_v = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    every = np.arange(n)
+    flops = 0.0
+    for k, blk in enumerate(blocks):
+        amp, weight, cost = _row_amplitudes(vec, blk)
+        flops += cost
+        row = _draw_index(weight, uniforms[envs.held, k])
+        vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
+        outcome = blk.row_outcome[row]
+        log_v += blk.log_volumes[outcome]
+        trace, outcome, (vec, log_p, log_v) = envs.advance(blk, outcome, (vec, log_p, log_v))
+        outcomes[envs.held, k] = outcome
+        log_p += np.log(trace)
+    restore = np.argsort(envs.held)
+    return SampleBatch(outcomes, log_p[restore], log_v[restore], flops + envs.flops)
+
+
+def conditional_terms(p: np.ndarray, log_volumes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Shannon and Boltzmann parts of f_k for rows of conditional distributions.
+
+    ``p`` (n, outcomes), ``log_volumes`` (outcomes,): returns -sum_i p_i ln p_i and
+    sum_i p_i ln V_i per row; outcomes with p_i = 0 contribute 0 (also when V_i = 0).
+    """
+    live = p > 0
+    log_p = np.log(p, where=live, out=np.zeros_like(p))
+    log_v = np.where(np.isfinite(log_volumes), log_volumes, 0.0)
+    return -np.sum(p * log_p, axis=1), p @ log_v
+
+
+@dataclass(frozen=True, eq=False)
+class ConditionalBatch:
+    """Coarse outcome paths drawn from their exact conditionals, with their chain-rule
+    values (the conditional estimator, method "sample").
+
+    ``outcomes`` (n, blocks): macrostate index per block; ``shannon`` and ``boltzmann``
+    (n,): sum over blocks k of -sum_i p(i | i_<k) ln p(i | i_<k) and of
+    sum_i p(i | i_<k) ln V_{k,i} along each path (their sum is the path's estimate of
+    S_obs); ``flops``: real floating-point operations of the contractions done.
+    """
+
+    outcomes: np.ndarray
+    shannon: np.ndarray
+    boltzmann: np.ndarray
+    flops: float
+
+
+def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarray],
+                     uniforms: np.ndarray) -> ConditionalBatch:
+    """Draw coarse outcome paths block by block from their exact conditional
+    distributions and add up the exact conditional entropies along each path.
+
+    Parameters
+    ----------
+    blocks : the state's blocks from :func:`mpsobs.blocktensors.readout_blocks`.
+    weights : :func:`mpsobs.blocktensors.outcome_weights` of every block (once per state).
+    uniforms : (n, blocks) numbers in [0, 1); row s, column k draws sample s at block k
+        (so a sample does not depend on which other samples share its batch).
+
+    With the unit-trace environments E of the n paths stacked, all conditionals
+    p(i | i_<k) = Tr[E R_{k,i}] come from one matrix product
+    (:func:`mpsobs.blocktensors.conditional_probabilities`); f_k = sum_i p_i (-ln p_i +
+    ln V_{k,i}) is added to the path's value; i_k is drawn from the same p; E is advanced
+    with the rows of i_k only and renormalised. By the chain rule sum_k E[f_k] = S_obs,
+    so the path value is unbiased; it is exact for a product of blocks. Cost per sample
+    and block 4 chi_l^2 n_out + 8 g chi_l chi_r (chi_l + chi_r) flops (n_out outcomes, g
+    rows of the drawn outcome); memory 16 bytes x n x 2 chi^2 plus
+    :data:`mpsobs.blocktensors.WORK_BYTES`.
+    """
+    n, m = uniforms.shape
+    envs = _Environments(blocks, n)
+    shannon = np.zeros(n)
+    boltzmann = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    flops = 0.0
+    for k, (blk, w) in enumerate(zip(blocks, weights, strict=True)):
+        p = conditional_probabilities(envs.env, w)
+        flops += 2.0 * n * w.size
+        h, b = conditional_terms(p, blk.log_volumes)
+        shannon += h
+        boltzmann += b
+        outcome = _draw_index(p, uniforms[envs.held, k])
+        _, outcome, (shannon, boltzmann) = envs.advance(blk, outcome, (shannon, boltzmann))
+        outcomes[envs.held, k] = outcome
+    restore = np.argsort(envs.held)
+    return ConditionalBatch(outcomes, shannon[restore], boltzmann[restore],
+                            flops + envs.flops)
+
+
+def single_rows(blocks: Sequence[ReadoutBlock]) -> bool:
+    """Whether every outcome of every block is at most one readout row (a non-degenerate
+    observable, e.g. Ising block energies, or fine blocks): then
+    :func:`draw_conditional_vectors` applies."""
+    return all(np.all(np.diff(b.offsets) <= 1) for b in blocks)
+
+
+def draw_conditional_vectors(blocks: Sequence[ReadoutBlock],
+                             uniforms: np.ndarray) -> ConditionalBatch:
+    """:func:`draw_conditional` where every outcome is one readout row
+    (:func:`single_rows`): the same paths and values up to round-off, with vectors.
+
+    A path's environment starts as the 1 x 1 identity and is advanced by one row at a
+    time, E <- A_r^dagger E A_r, so it stays of rank one, E = v^dagger v with v a row
+    vector: the conditionals are p(i | prefix) = |v A_i|^2 (the perfect-sampling
+    amplitudes of Phys. Rev. B 85, 165146 (2012)) and the drawn row's amplitude,
+    normalised, is the next v. Cost per sample and block 8 chi_l R chi_r flops (one GEMM
+    (n, chi_l) x (chi_l, R chi_r) for the batch) instead of about 16 chi^3; memory 16
+    bytes x n R chi_r.
+    """
+    n, m = uniforms.shape
+    vec = np.ones((n, 1), dtype=complex)
+    shannon = np.zeros(n)
+    boltzmann = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    every = np.arange(n)
+    flops = 0.0
+    for k, blk in enumerate(blocks):
+        amp, weight, cost = _row_amplitudes(vec, blk)
+        flops += cost
+        p = np.zeros((n, blk.n_outcomes))
+        p[:, blk.row_outcome] = weight
+        p /= p.sum(axis=1, keepdims=True)
+        h, b = conditional_terms(p, blk.log_volumes)
+        shannon += h
+        boltzmann += b
+        outcome = _draw_index(p, uniforms[:, k])
+        outcomes[:, k] = outcome
+        row = blk.offsets[outcome]
+        vec = amp[every, row] / np.sqrt(weight[every, row])[:, None]
+    return ConditionalBatch(outcomes, shannon, boltzmann, flops)
+
+
+def draw_conditional_charged(blocks: Sequence[ChargedBlock],
+                             uniforms: np.ndarray) -> ConditionalBatch:
+    """:func:`draw_conditional` on the charge blocks of a number-conserving state
+    (:mod:`mpsobs.estimators.charges`): the same paths and values up to round-off.
+
+    The samples are kept in groups of equal charges (after number outcomes, one charge
+    per group); per group one matrix product per charge gives the conditionals, and the
+    members that drew the same outcome advance together. Cost per sample and block
+    4 sum_q d_q^2 n_out + sum 8 g d_q d_q' (d_q + d_q') flops over the charges q the
+    sample carries and q' = q + c (rows of count c in the drawn outcome); memory 16 bytes
+    x n x sum_q d_q^2 (twice) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    """
+    n, m = uniforms.shape
+    shannon = np.zeros(n)
+    boltzmann = np.zeros(n)
+    outcomes = np.empty((n, m), dtype=np.int64)
+    groups = [start_group(np.arange(n))]
+    work = work_buffer(blocks)
+    flops = 0.0
+    for k, cb in enumerate(blocks):
+        children = []
+        for g in groups:
+            p = g.probabilities(cb)
+            flops += 2.0 * g.members.size * sum(cb.weights[q].size for q in g.envs)
+            h, b = conditional_terms(p, cb.block.log_volumes)
+            shannon[g.members] += h
+            boltzmann[g.members] += b
+            drawn = _draw_index(p, uniforms[g.members, k])
+            outcomes[g.members, k] = drawn
+            present = np.unique(drawn)
+            for j in present:
+                select = None if present.size == 1 else drawn == j
+                child, _, cost = g.child(cb, int(j), select, work)
+                children.append(child)
+                flops += cost
+        groups = merge(children)
+    return ConditionalBatch(outcomes, shannon, boltzmann, flops)
+
+
+def conditional_sample_flops(blocks: Sequence[ReadoutBlock]) -> float:
+    """Predicted flops of one conditional path with dense environments (:func:`draw_conditional`):
+    per block the conditionals plus the transfer with the mean drawn group size
+    g = sum_i g_i^2 / R (rows drawn uniformly). The automatic choice measures its
+    enumeration budget in these units whichever sampler then runs, so that it decides
+    as with dense environments."""
+    total = 0.0
+    for blk in blocks:
+        cl, n_rows, cr = blk.tensor.shape
+        sizes = np.diff(blk.offsets)
+        mean_group = float(np.sum(sizes**2)) / n_rows
+        total += 4.0 * cl * cl * blk.n_outcomes + 8.0 * mean_group * cl * cr * (cl + cr)
+    return total
+
+
+def default_batch(blocks: Sequence[ReadoutBlock]) -> int:
+    """Samples per batch when ``batch`` is None: as many as fit in BATCH_BYTES, 16 to
+    MAX_BATCH (about 250 at bond 128 and blocks of 4)."""
+    per_sample = max(16 * (2 * b.tensor.shape[0] ** 2 + 2 * b.tensor.shape[2] ** 2
+                           + b.tensor.shape[1] * b.tensor.shape[2]) for b in blocks)
+    return int(np.clip(BATCH_BYTES // per_sample, 16, MAX_BATCH))
