@@ -5,8 +5,9 @@ the same point gives the same rows whatever worker, order or interruption. Rando
 comes only from seeds in the point: the random field (``model.field.seed``), a random
 product state (``state.seed``) and the sampled estimators, whose generator for time
 index k and coarse-graining j is ``SeedSequence(point.seed, spawn_key=(k, j))``; the
-equilibrium estimate of coarse-graining j (below) uses the key (len(times), j), one past
-the last time index, so it never shares a stream with the time series.
+equilibrium estimate of coarse-graining j (below) uses the one-element key (j,), so it
+never shares a stream with the time series. No key depends on the length of the time
+grid: a grid extended by later times gives the same numbers at the earlier ones.
 
 The thermodynamic reference is computed once per point from the initial state
 (:mod:`mpsobs.thermo`): the Gibbs entropy at its energy and, when the model conserves
@@ -268,6 +269,25 @@ def _estimator_seed(point_seed: int, time_index: int, cg_index: int) -> int:
                .generate_state(1, np.uint64)[0] >> 1)
 
 
+def _equilibrium_seed(point_seed: int, cg_index: int) -> int:
+    return int(np.random.SeedSequence(point_seed, spawn_key=(cg_index,))
+               .generate_state(1, np.uint64)[0] >> 1)
+
+
+def _resumable(resume: tuple[list[list[np.ndarray]], dict] | None, point: Point,
+               n_states: int) -> bool:
+    """Whether a checkpoint belongs to this point (same id, number of states, with the
+    S_obs_eq reference) and to a prefix of its time grid."""
+    if resume is None:
+        return False
+    tensors, meta = resume
+    times = point.params["times"]["values"]
+    done = meta.get("done", 0)
+    return (meta.get("point_id") == point.point_id and len(tensors) == n_states
+            and "S_obs_eq" in meta.get("reference", {})
+            and 0 < done <= len(times) and times[done - 1] == meta.get("t"))
+
+
 def _empty_chain(L: int) -> MPS:
     """Every site in |0>: a bond-1 stand-in state for the checks."""
     return states.product_state("0" * L)
@@ -399,8 +419,10 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     resume : a checkpoint (tensors of each state, meta) offered earlier through
         ``save``; the evolution restarts from its states and time, with their cumulative
         discarded weights, norm, initial energy and reference, and its rows are kept. A
-        checkpoint of another point, with another number of states, or without the
-        S_obs_eq reference, is ignored: the point starts over.
+        checkpoint of another point, with another number of states, without the
+        S_obs_eq reference, or of a time grid that is not a prefix of the point's, is
+        ignored: the point starts over. The checkpoint after the last time of a shorter
+        grid continues the point to the later times of a longer one.
     save : called after each output time with a checkpoint (tensors of the main state
         and, when there is a check evolution, of the check state; meta).
 
@@ -414,11 +436,10 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     evo, est, times = p["evolution"], p["estimator"], p["times"]["values"]
     chi_check = evo["chi_check"]
     model, cgs, options = _prepare(point)
-    eq_seeds = [_estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
+    eq_seeds = [_equilibrium_seed(point.seed, j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
     n_states = 2 if chi_check else 1
-    if (resume is not None and resume[1].get("point_id") == point.point_id
-            and len(resume[0]) == n_states and "S_obs_eq" in resume[1].get("reference", {})):
+    if _resumable(resume, point, n_states):
         tensors, meta = resume
         state, *checked = (MPS(tuple(np.asarray(t, dtype=complex) for t in ts))
                            for ts in tensors)

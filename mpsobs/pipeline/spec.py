@@ -50,8 +50,10 @@ The schema (defaults in brackets; S = sweepable):
 - ``[output]``: ``dir`` (str) [mpsobs-runs/<name>]; ``checkpoint_seconds`` (>= 0) [300].
 
 The resolved point (all defaults filled, axes substituted, gas box and number in sites)
-is hashed (SHA-256 of its canonical JSON) into the point's store key; its seed derives
-from the run seed and that hash through :class:`numpy.random.SeedSequence`.
+without its time grid is hashed (SHA-256 of its canonical JSON) into the point's store
+key; its seed derives from the run seed and that hash through
+:class:`numpy.random.SeedSequence`. A point is its physics; its output times are rows,
+so a longer time grid keeps the point, its seed and its earlier rows.
 """
 
 from __future__ import annotations
@@ -605,6 +607,10 @@ def _point_seed(run_seed: int, digest: str) -> int:
     return int((int(state[0]) << 31) ^ int(state[1]))
 
 
+#: Point parameters that are not part of its identity (store key and seed).
+IDENTITY_EXCLUDES = ("times",)
+
+
 def _resolve_point(body: dict, values: dict[str, Any], index: int,
                    disorder: tuple[str, ...] = ()) -> Point:
     """Substitute one combination of axis values, fill run-seed defaults, check the
@@ -636,7 +642,7 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int,
     params = {k: p[k] for k in ("seed", "model", "state", "evolution", "times", "coarse",
                                 "estimator")}
     columns = _columns(params)
-    digest = _digest(params)
+    digest = _digest({k: v for k, v in params.items() if k not in IDENTITY_EXCLUDES})
     label = " ".join(f"{path}={value}" for path, value in values.items())
     return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
                  params=params, columns=columns, label=label or "single point",
