@@ -29,11 +29,13 @@ import logging
 import os
 import signal
 import socket
+import sys
 import threading
 import time
 import traceback
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Protocol
 
 import numpy as np
@@ -42,7 +44,7 @@ import pandas as pd
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import short
 from mpsobs.pipeline.spec import Point, RunSpec
-from mpsobs.pipeline.store import RunStore, out_of_space
+from mpsobs.pipeline.store import LOG_FILE, RunStore, out_of_space
 
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
            "check_execution", "reach_scheduler", "plural",
@@ -230,24 +232,48 @@ def _workers_ignore_sigint() -> Iterator[None]:
         signal.signal(signal.SIGINT, previous)
 
 
+def _start_resource_tracker(log_path: Path) -> None:
+    """Start this process's multiprocessing resource tracker (if it is not running yet)
+    with its stderr on ``log_path``. The worker processes share it; when they are
+    stopped mid-task (Ctrl-C), it cleans up their semaphores and reports them as
+    leaked, a note that belongs in run.log, not on the console after the run's last
+    line."""
+    from multiprocessing import resource_tracker
+
+    with open(log_path, "a", encoding="utf-8") as log_file:
+        sys.stderr.flush()
+        saved = os.dup(2)
+        try:
+            os.dup2(log_file.fileno(), 2)
+            resource_tracker.ensure_running()
+        finally:
+            os.dup2(saved, 2)
+            os.close(saved)
+
+
 @contextlib.contextmanager
-def local_cluster(workers: int | None = None):
+def local_cluster(workers: int | None = None, *, log_path: Path | None = None):
     """A LocalCluster with ``workers`` single-threaded worker processes (default: one per
     core) and BLAS pinned to one thread per worker; yields a connected Client.
 
-    The workers ignore SIGINT. On KeyboardInterrupt in the client, the cluster is shut
-    down with its warnings about workers stopped mid-task muted.
+    The workers ignore SIGINT and log only critical messages (a point's errors reach the
+    client through its task). On KeyboardInterrupt in the client, the cluster is shut
+    down with its warnings about workers stopped mid-task muted. With ``log_path``, the
+    resource tracker of the worker processes writes to that file
+    (:func:`_start_resource_tracker`).
     """
     from distributed import Client, LocalCluster
 
     n = workers or os.cpu_count() or 1
     dask_log = logging.getLogger("distributed")
     level = dask_log.level
+    if log_path is not None:
+        _start_resource_tracker(log_path)
     try:
         with _workers_ignore_sigint():
             cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                                    dashboard_address=":0", env=dict(WORKER_ENV),
-                                   silence_logs=logging.ERROR)
+                                   silence_logs=logging.CRITICAL)
         with cluster, Client(cluster) as client:
             try:
                 yield client
@@ -259,9 +285,9 @@ def local_cluster(workers: int | None = None):
 
 
 @contextlib.contextmanager
-def _client(workers: int | None, scheduler: str | None) -> Iterator:
+def _client(workers: int | None, scheduler: str | None, log_path: Path) -> Iterator:
     if scheduler is None:
-        with local_cluster(workers) as client:
+        with local_cluster(workers, log_path=log_path) as client:
             yield client
         return
     from distributed import Client
@@ -420,7 +446,7 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
     if todo:
         bars = _Bars(spec.points, skipped, {p.point_id: _steps(p) for p in todo}, progress)
         try:
-            with _client(workers, scheduler) as client:
+            with _client(workers, scheduler, store.root / LOG_FILE) as client:
                 if progress:
                     client.subscribe_topic(PROGRESS_TOPIC, bars.on_event)
                 _submit_and_watch(client, spec, store, kernel, todo, bars, outcome)
