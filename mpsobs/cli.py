@@ -156,11 +156,12 @@ def _cmd_run(args) -> int:
 
 def _cmd_check(args) -> int:
     from mpsobs import workflow
+    from mpsobs.pipeline.sweep import plural
 
     spec = workflow.check(args.spec)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
                      for group in spec.axes) or "none"
-    print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "
+    print(f"{spec.name}: {plural(len(spec.points), 'point')} (axes: {axes}); run directory "
           f"{spec.output_dir}")
     disorder = spec.points[0].disorder if spec.points else ()
     if disorder:

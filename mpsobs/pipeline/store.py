@@ -92,6 +92,9 @@ _META_KEY = b"mpsobs.point"
 #: starts afresh.
 CHECKPOINT_FORMAT = 2
 _FIELDS_KEY = b"mpsobs.site_fields"
+#: How point keys are made (spec.json ``identity``): 2 = the resolved point without its
+#: time grid; records without the key hashed the time grid too.
+IDENTITY = 2
 #: Key of a point frame's ``attrs`` holding its per-site field values (set by the kernel).
 SITE_FIELDS_ATTR = "site_fields"
 
@@ -555,6 +558,16 @@ class RunStore:
         return merged
 
 
+def _warn_rekeyed(root: Path, before: dict, spec: RunSpec) -> None:
+    """Warn when stored points carry keys of the earlier identity (time grid hashed)."""
+    ids = {p.point_id for p in spec.points}
+    old = [p for p in before.get("points", []) if p.get("point_id") not in ids]
+    if old:
+        log.warning("%s: %d stored point(s) were keyed by an earlier mpsobs (the time "
+                    "grid was part of a point's key); they are computed again (their files "
+                    "stay in %s/)", root, len(old), POINTS_DIR)
+
+
 def _reason(exc: BaseException) -> str:
     """A one-line reason from a read error."""
     text = str(exc).strip().splitlines()
@@ -579,7 +592,8 @@ def _spec_record(spec: RunSpec, before: dict | None = None) -> dict:
     now = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     history = [] if before is None else [*before.get("history", []), {
         key: before.get(key) for key in ("run_id", "name", "source", "updated", "created")}]
-    return {"run_id": spec.run_id, "name": spec.name, "source": spec.source,
+    return {"run_id": spec.run_id, "identity": IDENTITY, "name": spec.name,
+            "source": spec.source,
             "mpsobs_version": __version__,
             "created": now if before is None else before.get("created", now),
             "updated": now, "history": history,
@@ -609,8 +623,11 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     try:
         check_target(root, spec)  # another run may have claimed it meanwhile
         before = _read_spec_file(root)
-        if before is None or before.get("run_id") != spec.run_id:
-            if before is not None:
+        if before is not None and before.get("identity") != IDENTITY:
+            _warn_rekeyed(root, before, spec)
+        if (before is None or before.get("run_id") != spec.run_id
+                or before.get("identity") != IDENTITY):
+            if before is not None and before.get("run_id") != spec.run_id:
                 log.info("growing the run in %s (run id %s -> %s)", root,
                          before.get("run_id", "?")[:12], spec.run_id[:12])
             try:
