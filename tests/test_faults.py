@@ -189,7 +189,8 @@ def _last_page_byte(path: Path, column: str) -> int:
     return start + chunk.total_compressed_size - 2
 
 
-def test_damaged_point_files_are_set_aside_and_recomputed(tmp_path, scheduler, clean):
+def test_damaged_point_files_are_set_aside_and_recomputed(tmp_path, scheduler, clean,
+                                                          caplog):
     root = tmp_path / "run"
     shutil.copytree(clean, root)
     run = spec.parse(SPEC)
@@ -199,9 +200,12 @@ def test_damaged_point_files_are_set_aside_and_recomputed(tmp_path, scheduler, c
     data = bytearray(flipped.read_bytes())
     data[_last_page_byte(flipped, "S_obs")] ^= 0x01  # one bit of a value: page checksum
     flipped.write_bytes(bytes(data))
-    report = _sweep(run, root, scheduler)
+    with caplog.at_level("INFO", logger="mpsobs"):
+        report = _sweep(run, root, scheduler)
     assert (report.skipped, report.computed, report.failed) == (2, 2, ())
     assert len(report.notices) == 2
+    shown = [r.getMessage() for r in caplog.records if r.levelno >= 30]
+    assert shown == list(report.notices)  # one warning line each, for the console
     for path, notice in zip((truncated, flipped), report.notices, strict=True):
         assert f"damaged file points/{path.name}" in notice
     assert len(list(st.damaged_dir.iterdir())) == 2

@@ -64,6 +64,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from mpsobs.core.errors import InputError
+from mpsobs.core.printing import short
 from mpsobs.core.version import __version__
 from mpsobs.pipeline.columns import describe
 from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
@@ -399,7 +400,8 @@ class RunStore:
 
     def set_aside(self, path: Path, reason: str) -> None:
         """Move a damaged file to ``damaged/`` (its name, then the UTC time it was found),
-        log a warning naming it and add that line to ``notices``."""
+        log it (INFO) and add that line to ``notices``, which the owner of the console
+        reports (:func:`mpsobs.pipeline.sweep.run_sweep`: a warning each)."""
         stamp = time.strftime("%Y%m%dT%H%M%SZ", time.gmtime())
         target = self.damaged_dir / f"{path.name}.{stamp}.{time.monotonic_ns() % 10**6}"
         try:
@@ -409,7 +411,7 @@ class RunStore:
             return
         notice = (f"damaged file {path.relative_to(self.root)} ({reason}) moved to "
                   f"{target.relative_to(self.root)}")
-        log.warning("%s", notice)
+        log.info("%s", notice)
         self.notices.append(notice)
 
     # points ------------------------------------------------------------------------
@@ -571,7 +573,7 @@ def _warn_rekeyed(root: Path, before: dict, spec: RunSpec) -> None:
 def _reason(exc: BaseException) -> str:
     """A one-line reason from a read error."""
     text = str(exc).strip().splitlines()
-    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
+    return short(f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__, 160)
 
 
 def _write_npz(path: Path, states: Sequence[Sequence[np.ndarray]], meta: dict) -> None:

@@ -442,6 +442,8 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
     if skipped:
         log.info("%d of %s finished before; skipping them", skipped,
                  plural(len(spec.points), "point"))
+    for notice in store.notices:
+        log.warning("%s", notice)
     outcome = _Outcome(notices=list(store.notices))
     if todo:
         bars = _Bars(spec.points, skipped, {p.point_id: _steps(p) for p in todo}, progress)
@@ -462,7 +464,10 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
         log.info("results table not written: %s", exc)
         outcome.stop(store, f"the results table could not be written ({exc.strerror})")
         table = pd.DataFrame()
-    outcome.notices.extend(n for n in store.notices if n not in outcome.notices)
+    for notice in store.notices:
+        if notice not in outcome.notices:
+            log.warning("%s", notice)
+            outcome.notices.append(notice)
     return SweepReport(total=len(spec.points), skipped=skipped, computed=outcome.computed,
                        failed=tuple(outcome.failed), table=table,
                        task_seconds=tuple(outcome.seconds), extended=outcome.extended,
