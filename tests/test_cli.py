@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import shutil
 import signal
 import socket
 import subprocess
@@ -155,6 +156,23 @@ def test_sigkill_then_rerun_gives_the_uninterrupted_table(spec_file, reference, 
     pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
     assert not (out / store.LOCK_FILE).exists()
     assert not list((out / "checkpoints").glob("*.npz"))
+
+
+def test_truncated_point_file_is_named_once_and_recomputed(spec_file, reference, tmp_path):
+    out = tmp_path / "run"
+    shutil.copytree(reference, out)
+    damaged = sorted((out / "points").glob("*.parquet"))[0]
+    damaged.write_bytes(damaged.read_bytes()[:1000])  # a torn copy
+    done = subprocess.run(_mpsobs("run", str(spec_file), "--out", str(out),
+                                  "--workers", "1", "--no-progress", "--no-plots"),
+                          env=_env(), capture_output=True, text=True, timeout=WAIT)
+    assert done.returncode == 0, done.stderr
+    lines = done.stderr.splitlines()
+    assert len(lines) == 1 and f"damaged file points/{damaged.name}" in lines[0], lines
+    assert "mpsobs: 4 points: 1 computed, 3 finished before, 0 failed" in done.stdout
+    assert len(list((out / "damaged").iterdir())) == 1
+    assert "damaged file" in (out / store.LOG_FILE).read_text()
+    pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
 
 
 def _free_port() -> int:
