@@ -58,6 +58,8 @@ WORKER_ENV = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THRE
 PROGRESS_TOPIC = "mpsobs-progress"
 #: Smallest interval (s) between two progress events of one point.
 PROGRESS_INTERVAL = 0.5
+#: Longest wait (s) of the client between two looks at the workers' thread count.
+SUBMIT_POLL = 2.0
 
 #: (tensors of each state: the main one, then the check state if any; progress meta)
 States = list[list[np.ndarray]]
@@ -531,13 +533,13 @@ class _Outcome:
 
 def _submit_and_watch(client, spec: RunSpec, store: RunStore, kernel: Kernel | None,
                       todo: list[Point], bars: _Bars, outcome: _Outcome) -> None:
-    """Keep one task per worker thread in flight (dearest points first) until every
-    point has ended, or, once the disk is full, until the running ones have."""
-    from distributed import as_completed
+    """Keep one task per worker thread in flight (dearest points first; the thread count
+    is read again every SUBMIT_POLL seconds, as workers join or leave) until every point
+    has ended, or, once the disk is full, until the running ones have."""
+    from distributed import wait
 
     queue = sorted(todo, key=_cost, reverse=True)
     in_flight: dict = {}
-    watch = as_completed()
 
     def submit_more() -> None:
         slots = max(1, sum(client.nthreads().values()))
@@ -547,20 +549,22 @@ def _submit_and_watch(client, spec: RunSpec, store: RunStore, kernel: Kernel | N
                                    spec.checkpoint_seconds, pure=False,
                                    key=f"mpsobs-point-{point.point_id}-{spec.run_id[:8]}")
             in_flight[future] = point
-            watch.add(future)
             bars.point_started(point.point_id)
 
-    submit_more()
     log.info("submitting %s to %s", plural(len(todo), "point"), client.scheduler.address)
-    for future in watch:
-        point = in_flight.pop(future)
-        try:
-            summary = future.result()
-        except Exception as exc:  # the task itself was lost (e.g. its workers died)
-            summary = {"failed": type(exc).__name__, "message": str(exc),
-                       "bad_input": False, "no_space": out_of_space(exc),
-                       "traceback": "".join(traceback.format_exception(exc))}
-        bars.point_finished(point.point_id, outcome.record(point, summary, store))
+    submit_more()
+    while in_flight:
+        with contextlib.suppress(TimeoutError):
+            wait(list(in_flight), timeout=SUBMIT_POLL, return_when="FIRST_COMPLETED")
+        for future in [f for f in in_flight if f.done()]:
+            point = in_flight.pop(future)
+            try:
+                summary = future.result()
+            except Exception as exc:  # the task itself was lost (e.g. its workers died)
+                summary = {"failed": type(exc).__name__, "message": str(exc),
+                           "bad_input": False, "no_space": out_of_space(exc),
+                           "traceback": "".join(traceback.format_exception(exc))}
+            bars.point_finished(point.point_id, outcome.record(point, summary, store))
         if outcome.out_of_space is None:
             submit_more()
     if queue:
