@@ -149,38 +149,50 @@ def build_parser() -> argparse.ArgumentParser:
 def _cmd_run(args) -> int:
     from mpsobs import workflow
     from mpsobs.pipeline.store import RESULTS_FILE
+    from mpsobs.pipeline.sweep import plural
 
     outcome = workflow.run(args.spec, args.out, workers=args.workers,
                            scheduler=args.scheduler, progress=not args.no_progress,
                            figures=not args.no_plots)
     report = outcome.report
-    print(f"mpsobs: {report.total} points: {report.computed} computed, {report.skipped} "
-          f"finished before, {len(report.failed)} failed")
+    grown = f" ({report.extended} continued to new times)" if report.extended else ""
+    print(f"mpsobs: {plural(report.total, 'point')}: {report.computed} computed{grown}, "
+          f"{report.skipped} finished before, {len(report.failed)} failed")
     if not report.table.empty:
-        print(f"mpsobs: table {outcome.root / RESULTS_FILE} ({len(report.table)} rows)")
+        print(f"mpsobs: table {outcome.root / RESULTS_FILE} "
+              f"({plural(len(report.table), 'row')})")
     if outcome.figures_skipped:
         print(f"mpsobs: no figures: {outcome.figures_skipped}", file=sys.stderr)
     if outcome.figures:
-        print(f"mpsobs: {len(outcome.figures)} figure files in {outcome.figures[0].parent}")
+        print(f"mpsobs: {plural(len(outcome.figures), 'figure file')} in "
+              f"{outcome.figures[0].parent}")
     for failure in report.failed:
         kind = "error" if failure.bad_input else failure.error
         print(f"mpsobs: {kind}: point {failure.point.point_id} ({failure.point.label}): "
               f"{failure.message}", file=sys.stderr)
+    if report.out_of_space:
+        started = (f"; {plural(report.not_started, 'point')} not started"
+                   if report.not_started else "")
+        print(f"mpsobs: error: {report.out_of_space}{started}; finished points are kept, "
+              f"free space and rerun the same command", file=sys.stderr)
     if any(f.bad_input for f in report.failed):
         return 2
-    if report.failed:
-        print("mpsobs: rerun the same command to retry the failed points", file=sys.stderr)
+    if report.failed or report.out_of_space:
+        if not report.out_of_space:
+            print("mpsobs: rerun the same command to retry the failed points",
+                  file=sys.stderr)
         return 1
     return 0
 
 
 def _cmd_check(args) -> int:
     from mpsobs import workflow
+    from mpsobs.pipeline.sweep import plural
 
     spec = workflow.check(args.spec)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
                      for group in spec.axes) or "none"
-    print(f"{spec.name}: {len(spec.points)} points (axes: {axes}); run directory "
+    print(f"{spec.name}: {plural(len(spec.points), 'point')} (axes: {axes}); run directory "
           f"{spec.output_dir}")
     disorder = spec.points[0].disorder if spec.points else ()
     if disorder:

@@ -61,16 +61,19 @@ def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = Non
     if scheduler is not None:
         sweep.reach_scheduler(scheduler)
     with store.open_run(root, spec) as opened:
-        handler = logging.FileHandler(opened.root / store.LOG_FILE, encoding="utf-8")
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
-                                               "%(message)s"))
-        handler.setLevel(logging.INFO)
+        handler = _RunLog(opened.root / store.LOG_FILE)
         logging.getLogger("mpsobs").addHandler(handler)
         try:
-            log.info("run %s (%s) into %s: %d points", spec.name, spec.source, root,
-                     len(spec.points))
-            report = sweep.run_sweep(spec, opened, workers=workers, scheduler=scheduler,
-                                     kernel=None, progress=progress)
+            log.info("run %s (%s) into %s: %s", spec.name, spec.source, root,
+                     sweep.plural(len(spec.points), "point"))
+            try:
+                report = sweep.run_sweep(spec, opened, workers=workers,
+                                         scheduler=scheduler, kernel=None,
+                                         progress=progress)
+            except KeyboardInterrupt:
+                log.info("interrupted (Ctrl-C or SIGINT); finished points are kept, the "
+                         "others resume from their checkpoints on the next run")
+                raise
             drawn, skipped = [], None
             if figures and not report.table.empty:
                 try:
@@ -81,6 +84,20 @@ def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = Non
             logging.getLogger("mpsobs").removeHandler(handler)
             handler.close()
     return RunOutcome(report, root, drawn, skipped)
+
+
+class _RunLog(logging.FileHandler):
+    """run.log of a run (INFO and up, appended). A record that cannot be written (a full
+    disk) is dropped silently: the console has the one-line report of the run."""
+
+    def __init__(self, path: Path):
+        super().__init__(path, encoding="utf-8", delay=True)
+        self.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s: "
+                                            "%(message)s"))
+        self.setLevel(logging.INFO)
+
+    def handleError(self, record: logging.LogRecord) -> None:  # noqa: N802 - logging API
+        """Drop the record (no traceback on stderr)."""
 
 
 def _results(run_dir: str | os.PathLike, trust_rtol: float) -> pd.DataFrame:

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import shutil
 import signal
 import socket
 import subprocess
@@ -17,7 +18,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from mpsobs import cli
+from mpsobs import cli, workflow
 from mpsobs.pipeline import spec, store, sweep
 from mpsobs.pipeline.columns import REQUIRED
 
@@ -155,6 +156,26 @@ def test_sigkill_then_rerun_gives_the_uninterrupted_table(spec_file, reference, 
     pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
     assert not (out / store.LOCK_FILE).exists()
     assert not list((out / "checkpoints").glob("*.npz"))
+
+
+def test_truncated_point_file_is_named_once_and_recomputed(spec_file, reference, tmp_path):
+    out = tmp_path / "run"
+    shutil.copytree(reference, out)
+    damaged = sorted((out / "points").glob("*.parquet"))[0]
+    damaged.write_bytes(damaged.read_bytes()[:1000])  # a torn copy
+    done = subprocess.run(_mpsobs("run", str(spec_file), "--out", str(out),
+                                  "--workers", "1", "--no-progress", "--no-plots"),
+                          env=_env(), capture_output=True, text=True, timeout=WAIT)
+    assert done.returncode == 0, done.stderr
+    # one line names the damaged file (the other lines are notes on the physics, such
+    # as a negative reference temperature); no traceback reaches the console
+    lines = [line for line in done.stderr.splitlines() if "damaged" in line]
+    assert len(lines) == 1 and f"damaged file points/{damaged.name}" in lines[0], lines
+    assert "Traceback" not in done.stderr
+    assert "mpsobs: 4 points: 1 computed, 3 finished before, 0 failed" in done.stdout
+    assert len(list((out / "damaged").iterdir())) == 1
+    assert "damaged file" in (out / store.LOG_FILE).read_text()
+    pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
 
 
 def _free_port() -> int:
@@ -356,6 +377,41 @@ def test_ctrl_c_exits_130_quietly_and_the_rerun_resumes(spec_file, reference, tm
     assert "interrupted" in err
     for noise in ("Traceback", "KeyboardInterrupt", "leaked", "WARNING distributed"):
         assert noise not in err, err
+    assert "interrupted (Ctrl-C or SIGINT)" in (out / store.LOG_FILE).read_text()
     rerun = subprocess.run(args, env=_env(), capture_output=True, text=True, timeout=WAIT)
     assert rerun.returncode == 0, rerun.stderr
     pd.testing.assert_frame_equal(_table(out), _table(reference), rtol=1e-9)
+
+
+def _outcome(tmp_path, **report) -> workflow.RunOutcome:
+    (point,) = spec.parse(tomllib.loads(SPEC.replace("L = [10, 12]", "L = 10").replace(
+        "strength = [0.2, 0.5]", "strength = 0.2"))).points
+    fields = {"total": 1, "skipped": 0, "computed": 0, "failed": (),
+              "table": pd.DataFrame(), **report}
+    fields["failed"] = tuple(sweep.Failure(point, *f) for f in fields["failed"])
+    return workflow.RunOutcome(sweep.SweepReport(**fields), tmp_path, [])
+
+
+def test_full_disk_is_one_line_per_point_and_one_for_the_directory(tmp_path, capsys,
+                                                                   monkeypatch):
+    full = _outcome(tmp_path, failed=[("OSError", "[Errno 28] No space left on device",
+                                       False, True)],
+                    out_of_space=f"{tmp_path} is out of space: point 0 could not be "
+                                 f"written", not_started=1, total=2)
+    monkeypatch.setattr(workflow, "run", lambda *args, **kwargs: full)
+    assert cli.main(["run", "--no-progress"]) == 1
+    out, err = capsys.readouterr()
+    assert out.splitlines()[0] == "mpsobs: 2 points: 0 computed, 0 finished before, 1 failed"
+    lines = err.splitlines()
+    assert len(lines) == 2 and "No space left" in lines[0]
+    assert lines[1].startswith(f"mpsobs: error: {tmp_path} is out of space")
+    assert "1 point not started" in lines[1]
+
+
+def test_counts_are_singular_or_plural(tmp_path, capsys, monkeypatch):
+    table = pd.DataFrame({"t": [0.0]})
+    one = _outcome(tmp_path, computed=1, table=table)
+    monkeypatch.setattr(workflow, "run", lambda *args, **kwargs: one)
+    assert cli.main(["run", "--no-progress"]) == 0
+    out = capsys.readouterr().out
+    assert "mpsobs: 1 point: 1 computed" in out and "(1 row)" in out

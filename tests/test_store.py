@@ -273,3 +273,55 @@ def test_growing_a_run_accepts_new_sweep_values_and_refuses_other_changes(tmp_pa
     store.check_target(root, grown)
     with pytest.raises(store.RunDirError, match="the spec"):
         store.check_target(root, first)
+
+
+def test_time_grid_extension_keeps_the_points_and_earlier_keys_are_reported(tmp_path,
+                                                                             caplog):
+    root = tmp_path / "run"
+    first = _run_spec()
+    with store.open_run(root, first):
+        pass
+    longer = _run_spec(times={"t_max": 0.4, "n_times": 5})  # 0, 0.1, ..., 0.4
+    assert [p.point_id for p in longer.points] == [p.point_id for p in first.points]
+    assert [p.seed for p in longer.points] == [p.seed for p in first.points]
+    with store.open_run(root, longer):
+        pass
+    record = json.loads((root / store.SPEC_FILE).read_text())
+    assert record["spec"]["times"]["values"] == [0.0, 0.1, 0.2, 0.3, 0.4]
+    assert record["identity"] == store.IDENTITY
+    with pytest.raises(store.RunDirError, match="times.values .*after its last one"):
+        store.check_target(root, _run_spec(times={"values": [0.0, 0.15, 0.4]}))
+    # a record of the earlier identity (time grid hashed): its keys are named as stale
+    record.pop("identity")
+    record["points"][0]["point_id"] = "0123456789abcdef"
+    (root / store.SPEC_FILE).write_text(json.dumps(record))
+    with caplog.at_level("WARNING", logger="mpsobs.pipeline.store"):
+        with store.open_run(root, longer):
+            pass
+    assert "1 stored point(s) were keyed by an earlier mpsobs" in caplog.text
+    assert json.loads((root / store.SPEC_FILE).read_text())["identity"] == store.IDENTITY
+
+
+def test_damaged_checkpoint_generations(tmp_path, caplog):
+    """The newest sound generation is loaded; damaged files are moved to damaged/ and
+    noted once (run_sweep shows the notes as warnings)."""
+    st = store.RunStore(tmp_path)
+    value = 1.2345
+    first, second = [[np.zeros((1, 2, 1))]], [[np.full((1, 2, 1), value)]]
+    st.save_checkpoint("p", first, {"done": 1})
+    st.save_checkpoint("p", second, {"done": 2})
+    assert st.load_checkpoint("p")[1] == {"done": 2}
+    newest = st.checkpoint_path("p")
+    data = bytearray(newest.read_bytes())
+    data[data.index(np.float64(value).tobytes())] ^= 0x01  # one bit of a tensor entry:
+    newest.write_bytes(bytes(data))                        # the member's CRC-32 fails
+    with caplog.at_level("INFO", logger="mpsobs.pipeline.store"):
+        assert st.load_checkpoint("p")[1] == {"done": 1}
+    assert not newest.exists() and len(list(st.damaged_dir.iterdir())) == 1
+    assert len(st.notices) == 1 and "damaged file checkpoints/p.npz" in st.notices[0]
+    assert st.notices[0] in caplog.text
+    older = st.older_checkpoint_path("p")
+    older.write_bytes(b"")
+    assert st.load_checkpoint("p") is None
+    assert len(list(st.damaged_dir.iterdir())) == 2
+    st.drop_checkpoint("p")

@@ -171,6 +171,26 @@ def test_progress_bars_add_steps_from_worker_events():
     bars.close()
 
 
+def test_progress_names_the_running_points_and_counts_saved_files():
+    run = spec.parse(SPEC)
+    a, b = run.points[:2]
+    bars = sweep._Bars(run.points, 0, {a.point_id: 10, b.point_id: 10}, enabled=False)
+    bars.point_started(a.point_id)
+    bars.point_started(b.point_id)
+    assert bars.running() == f"running {a.index} ({a.label}), {b.index} ({b.label})"
+    bars.on_event((0.0, {"point_id": a.point_id, "saved": True}))  # file written
+    assert bars.points_done == 1
+    bars.point_finished(a.point_id, saved=True)  # then its task ends: counted once
+    bars.point_finished(b.point_id, saved=False)  # failed: not saved
+    assert (bars.points_done, bars.running()) == (1, "")
+    bars.close()
+
+
+def test_plural():
+    assert [sweep.plural(n, "point") for n in (0, 1, 2)] == ["0 points", "1 point",
+                                                            "2 points"]
+
+
 # --------------------------------------------------------------------------- real kernel
 
 DENSE_SPEC = {

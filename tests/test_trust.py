@@ -6,7 +6,6 @@ stored with the points, ids hashed with ``evolution.trust_rtol``) are taken over
 
 from __future__ import annotations
 
-import json
 import logging
 import math
 
@@ -22,7 +21,7 @@ from mpsobs.analysis.trust import (
     with_trusted_times,
 )
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline import spec, store
+from mpsobs.pipeline import spec
 
 T = np.arange(6.0)
 S = np.array([1.0, 2.0, 3.0, 3.5, 3.6, 3.6])
@@ -165,36 +164,4 @@ def test_an_old_spec_with_trust_rtol_warns_and_shares_the_points(finished_run, t
     assert "evolution.trust_rtol is no longer part of a point" in caplog.text
     assert parsed.run_id == spec.load(file).run_id
     assert [p.point_id for p in parsed.points] == [p.point_id for p in spec.load(file).points]
-    # its seeds are those the older versions derived with trust_rtol = 0.05 in the hash
-    assert [p.seed for p in parsed.points] != [p.seed for p in spec.load(file).points]
-
-
-def test_an_old_run_directory_is_taken_over_without_recomputing(finished_run, tmp_path):
-    """Turn a copy of the finished run into what an older version wrote (point files
-    under the ids hashed with trust_rtol = 0.01, a stored t_trusted column, the key in
-    the stored spec); the current version adopts the points and computes none."""
-    import shutil
-
-    file, run = finished_run
-    old = tmp_path / "old-run"
-    shutil.copytree(run, old)
-    points = spec.load(file).points
-    want = store.RunStore(old).merge(points)
-    for point in points:
-        frame = pd.read_parquet(old / "points" / f"{point.point_id}.parquet")
-        frame["t_trusted"] = 99.0
-        (old / "points" / f"{point.point_id}.parquet").unlink()
-        frame.to_parquet(old / "points" / f"{point.former_id}.parquet")
-        assert point.former_id != point.point_id
-    record = json.loads((old / "spec.json").read_text())
-    record["spec"]["evolution"]["trust_rtol"] = 0.01
-    record["run_id"] = "0" * 64
-    (old / "spec.json").write_text(json.dumps(record))
-    outcome = workflow.run(file, old, workers=1, progress=False, figures=False)
-    assert (outcome.report.computed, outcome.report.skipped) == (0, 2)
-    assert sorted(p.name for p in (old / "points").iterdir()) == sorted(
-        f"{p.point_id}.parquet" for p in points)
-    table = outcome.report.table
-    assert "t_trusted" not in table.columns
-    pd.testing.assert_frame_equal(table.drop(columns="elapsed_s"),
-                                  want.drop(columns="elapsed_s"))
+    assert [p.seed for p in parsed.points] == [p.seed for p in spec.load(file).points]

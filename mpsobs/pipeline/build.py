@@ -35,8 +35,8 @@ from mpsobs.mps.tensors import MPS
 from mpsobs.pipeline import spec as specs
 
 __all__ = ["BuiltCoarse", "BuiltPoint", "build_point", "build_model", "initial_state",
-           "build_coarse_grainings", "estimator_options", "estimator_seed", "evolve",
-           "empty_chain", "ESTIMATOR_METHODS", "keys_reference"]
+           "build_coarse_grainings", "estimator_options", "estimator_seed", "equilibrium_seed",
+           "evolve", "empty_chain", "ESTIMATOR_METHODS", "keys_reference"]
 
 #: Values of ``estimator.method``: "auto" (the estimators' automatic choice) and the
 #: estimators' registry.
@@ -198,7 +198,19 @@ def estimator_options(estimator: dict) -> dict:
 def estimator_seed(point_seed: int, time_index: int, cg_index: int) -> int:
     """Seed of the estimate at output time ``time_index`` of coarse-graining
     ``cg_index``: ``SeedSequence(point_seed, spawn_key=(time_index, cg_index))``."""
-    return int(np.random.SeedSequence(point_seed, spawn_key=(time_index, cg_index))
+    return _spawned_seed(point_seed, (time_index, cg_index))
+
+
+def equilibrium_seed(point_seed: int, cg_index: int) -> int:
+    """Seed of S_obs_eq of coarse-graining ``cg_index`` (it does not depend on the time
+    grid, so a run that grows in time keeps it):
+    ``SeedSequence(point_seed, spawn_key=(cg_index,))``."""
+    return _spawned_seed(point_seed, (cg_index,))
+
+
+def _spawned_seed(point_seed: int, key: tuple[int, ...]) -> int:
+    """A 63-bit seed from ``SeedSequence(point_seed, spawn_key=key)``."""
+    return int(np.random.SeedSequence(point_seed, spawn_key=key)
                .generate_state(1, np.uint64)[0] >> 1)
 
 

@@ -5,8 +5,9 @@ the same point gives the same rows whatever worker, order or interruption. Rando
 comes only from seeds in the point: the random field (``model.field.seed``), a random
 product state (``state.seed``) and the sampled estimators, whose generator for time
 index k and coarse-graining j is ``SeedSequence(point.seed, spawn_key=(k, j))``; the
-equilibrium estimate of coarse-graining j (below) uses the key (len(times), j), one past
-the last time index, so it never shares a stream with the time series.
+equilibrium estimate of coarse-graining j (below) uses the one-element key (j,), so it
+never shares a stream with the time series. No key depends on the length of the time
+grid: a grid extended by later times gives the same numbers at the earlier ones.
 
 The thermodynamic reference is computed once per point from the initial state
 (:mod:`mpsobs.thermo`): the Gibbs entropy at its energy and, when the model conserves
@@ -68,6 +69,7 @@ from mpsobs.pipeline import columns as col
 from mpsobs.pipeline.build import (
     BuiltCoarse,
     build_point,
+    equilibrium_seed,
     estimator_seed,
     evolve,
     initial_state,
@@ -189,6 +191,20 @@ def _gge_entropy(gge: thermo.GGEResult | None, cg: coarse.BlockCoarseGraining) -
     return float(gaussian.number_entropy(gge.correlation, cg.regions).entropy)
 
 
+def _resumable(resume: tuple[list[list[np.ndarray]], dict] | None, point: Point,
+               n_states: int) -> bool:
+    """Whether a checkpoint belongs to this point (same id, number of states, with the
+    S_obs_eq reference) and to a prefix of its time grid."""
+    if resume is None:
+        return False
+    tensors, meta = resume
+    times = point.params["times"]["values"]
+    done = meta.get("done", 0)
+    return (meta.get("point_id") == point.point_id and len(tensors) == n_states
+            and "S_obs_eq" in meta.get("reference", {})
+            and 0 < done <= len(times) and times[done - 1] == meta.get("t"))
+
+
 def check_point(point: Point) -> None:
     """Raise every InputError that :func:`compute_point` would raise from the point's
     parameters, without its expensive part: :func:`mpsobs.pipeline.build.build_point`
@@ -265,8 +281,10 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     resume : a checkpoint (tensors of each state, meta) offered earlier through
         ``save``; the evolution restarts from its states and time, with their cumulative
         discarded weights, norm, initial energy and reference, and its rows are kept. A
-        checkpoint of another point, with another number of states, or without the
-        S_obs_eq reference, is ignored: the point starts over.
+        checkpoint of another point, with another number of states, without the
+        S_obs_eq reference, or of a time grid that is not a prefix of the point's, is
+        ignored: the point starts over. The checkpoint after the last time of a shorter
+        grid continues the point to the later times of a longer one.
     save : called after each output time with a checkpoint (tensors of the main state
         and, when there is a check evolution, of the check state; meta).
 
@@ -282,11 +300,10 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
     chi_check = evo["chi_check"]
     built = build_point(point, cheap_only=True)
     model, cgs = built.model, built.coarse
-    eq_seeds = [estimator_seed(point.seed, len(times), j) for j in range(len(cgs))]
+    eq_seeds = [equilibrium_seed(point.seed, j) for j in range(len(cgs))]
     total_steps = max(1, round(times[-1] / evo["dt"]))
     n_states = 2 if chi_check else 1
-    if (resume is not None and resume[1].get("point_id") == point.point_id
-            and len(resume[0]) == n_states and "S_obs_eq" in resume[1].get("reference", {})):
+    if _resumable(resume, point, n_states):
         tensors, meta = resume
         state, *checked = (MPS(tuple(np.asarray(t, dtype=complex) for t in ts))
                            for ts in tensors)

@@ -20,12 +20,10 @@ by ``sweep.zip``, which advance together. Lists inside a ``[[coarse]]`` entry (`
 the same states.
 
 The resolved point (all defaults filled, axes substituted, gas box and number in sites)
-is hashed (SHA-256 of its canonical JSON) into the point's store key. Its seed derives
-from the run seed and the hash of the same parameters with ``evolution.trust_rtol``
-added back as versions up to 0.3 hashed it (the value of an old spec that still gives
-the key, else its former default 0.01), through :class:`numpy.random.SeedSequence`: so a
-spec gives the same numbers as before trusted times moved into the analysis, and
-:attr:`Point.former_id` is the store key those versions used.
+without its time grid is hashed (SHA-256 of its canonical JSON) into the point's store
+key; its seed derives from the run seed and that hash through
+:class:`numpy.random.SeedSequence`. A point is its physics; its output times are rows,
+so a longer time grid keeps the point, its seed and its earlier rows.
 """
 
 from __future__ import annotations
@@ -48,8 +46,7 @@ from mpsobs.core.printing import short
 
 __all__ = ["Point", "RunSpec", "Key", "SCHEMA", "load", "parse", "default_spec_path",
            "DEFAULT_OUTPUT_ROOT", "fixed_settings", "DISORDER_AXES", "MODELS", "STATES",
-           "OBSERVABLES", "FIELD_KINDS", "keys_markdown", "parameter_column_descriptions",
-           "LEGACY_TRUST_RTOL"]
+           "OBSERVABLES", "FIELD_KINDS", "keys_markdown", "parameter_column_descriptions"]
 
 log = logging.getLogger(__name__)
 
@@ -66,9 +63,6 @@ DISORDER_AXES = {"model.field.seed": ("field_seed", ("model.field.kind", "random
                  "state.seed": ("state_seed", ("state.kind", "random_product"))}
 #: Where runs go when neither the spec nor the command line names a directory.
 DEFAULT_OUTPUT_ROOT = Path("mpsobs-runs")
-#: The default of ``evolution.trust_rtol`` when that key was part of a point (versions up
-#: to 0.3); it enters the seeds and former store keys only (see the module docstring).
-LEGACY_TRUST_RTOL = 0.01
 
 _REQUIRED = object()
 _RUN_SEED = None  # default of seeds that follow the point's run seed
@@ -369,10 +363,9 @@ class Point:
     coarse, estimator and the run seed) with every default filled in and the gas box
     and number resolved to sites; treat it as read-only. ``columns`` are its scalar
     parameters under their table column names. ``point_id`` is the store key (hash of
-    the canonical ``params``), ``seed`` the point's own seed (63-bit integer),
-    ``former_id`` the store key of the same point in versions up to 0.3 (see the module
-    docstring), ``coarse_paths`` the spec key of each entry of ``params["coarse"]``
-    (``coarse[1]``), for messages.
+    the canonical ``params`` without the time grid, see the module docstring), ``seed``
+    the point's own seed (63-bit integer), ``coarse_paths`` the spec key of each entry
+    of ``params["coarse"]`` (``coarse[1]``), for messages.
     """
 
     index: int
@@ -382,7 +375,6 @@ class Point:
     columns: dict
     label: str = ""  # the swept values, e.g. "model.L=16 evolution.chi_max=32"
     disorder: tuple[str, ...] = ()  # parameter columns that label disorder realizations
-    former_id: str = ""
     coarse_paths: tuple[str, ...] = ()
 
     @property
@@ -772,8 +764,12 @@ def _point_seed(run_seed: int, digest: str) -> int:
     return int((int(state[0]) << 31) ^ int(state[1]))
 
 
+#: Point parameters that are not part of its identity (store key and seed).
+IDENTITY_EXCLUDES = ("times",)
+
+
 def _resolve_point(body: dict, values: dict[str, Any], index: int,
-                   disorder: tuple[str, ...], trust_rtol: float) -> Point:
+                   disorder: tuple[str, ...]) -> Point:
     """Substitute one combination of axis values, fill run-seed defaults, check the
     point's consistency with its chain length and resolve the gas box; then hash."""
     p = json.loads(json.dumps(body))  # deep copy of plain data
@@ -804,12 +800,11 @@ def _resolve_point(body: dict, values: dict[str, Any], index: int,
     paths = tuple(entry.pop("path") for entry in p["coarse"])
     params = {k: p[k] for k in ("seed", "model", "state", "evolution", "times", "coarse",
                                 "estimator")}
-    digest = _digest(params)
-    former = _digest({**params, "evolution": {**params["evolution"], "trust_rtol": trust_rtol}})
+    digest = _digest({k: v for k, v in params.items() if k not in IDENTITY_EXCLUDES})
     label = " ".join(f"{path}={value}" for path, value in values.items())
-    return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, former),
+    return Point(index=index, point_id=digest[:16], seed=_point_seed(run_seed, digest),
                  params=params, columns=_columns(params, given), label=label or "single point",
-                 disorder=disorder, former_id=former[:16], coarse_paths=paths)
+                 disorder=disorder, coarse_paths=paths)
 
 
 def _chi_check(evolution: dict) -> int:
@@ -924,8 +919,6 @@ def parse(data: Mapping[str, Any], *, name: str = "run", source: str = "<spec>")
     body["model"] = _model_section("model", _table("model", raw["model"]), axes)
     body["state"] = _state_section(_table("state", raw["state"]), body["model"]["name"], axes)
     body["evolution"] = _section(raw, "evolution", axes)
-    trust_rtol = _table("evolution", raw.get("evolution", {})).get("trust_rtol",
-                                                                   LEGACY_TRUST_RTOL)
     if "times" not in raw:
         raise _fail("times", "missing section; give times.t_max and times.n_times, or "
                     "times.values")
@@ -938,8 +931,7 @@ def parse(data: Mapping[str, Any], *, name: str = "run", source: str = "<spec>")
     groups = _axis_groups(sweep, axes)
     disorder = _disorder_axes(sweep, body, groups)
     body["sweep"] = {"zip": [list(g) for g in groups if len(g) > 1], "disorder": disorder}
-    points = _expand(body, groups, tuple(DISORDER_AXES[name][0] for name in disorder),
-                     float(trust_rtol))
+    points = _expand(body, groups, tuple(DISORDER_AXES[name][0] for name in disorder))
     hashed = {k: v for k, v in body.items() if k not in ("name", "description", "output")}
     hashed["coarse"] = [{k: v for k, v in e.items() if k != "path"} for e in hashed["coarse"]]
     out_dir = Path(output["dir"]) if output["dir"] else DEFAULT_OUTPUT_ROOT / body["name"]
@@ -957,8 +949,8 @@ def _plain(obj: Any) -> Any:
     return obj
 
 
-def _expand(body: dict, groups: list[tuple[str, ...]], disorder: tuple[str, ...],
-            trust_rtol: float) -> list[Point]:
+def _expand(body: dict, groups: list[tuple[str, ...]],
+            disorder: tuple[str, ...]) -> list[Point]:
     choices = []
     for group in groups:
         lists = [_get(body, path) for path in group]
@@ -972,7 +964,7 @@ def _expand(body: dict, groups: list[tuple[str, ...]], disorder: tuple[str, ...]
     points, seen = [], {}
     for index, combo in enumerate(itertools.product(*choices)):
         values = {k: v for part in combo for k, v in part.items()}
-        point = _resolve_point(stored, values, index, disorder, trust_rtol)
+        point = _resolve_point(stored, values, index, disorder)
         if point.point_id in seen:
             raise _fail("sweep", f"points {seen[point.point_id]} and {index} are the same "
                         f"point ({point.label})")

@@ -4,9 +4,15 @@ the merged results table and the lock.
 Layout of a run directory::
 
     spec.json                 resolved spec, run id, mpsobs version, list of points
-    points/<point_id>.parquet rows of one finished point (written once, atomically)
+    points/<point_id>.parquet rows of one finished point (written atomically, with page
+                              checksums)
     checkpoints/<point_id>.npz  MPS tensors (main and check states) and progress of an
-                              unfinished point
+                              unfinished point; checkpoints/older/<point_id>.npz is the
+                              generation before it
+    states/<point_id>.npz     the final states and progress of a finished point, from
+                              which a longer time grid continues
+    damaged/                  files that failed their check when read, set aside (never
+                              deleted) with the time they were found in their name
     results.parquet           all finished points merged, in point order
     figures/                  plots of the results (mpsobs.plots)
     run.log                   what the command line did (appended)
@@ -23,20 +29,32 @@ same per point under the key ``mpsobs.site_fields`` ({point_id: [h_0, ...]}). Ev
 column of both carries field metadata ``unit`` and ``description``
 (:data:`mpsobs.columns.DESCRIPTIONS`), readable with ``pyarrow.parquet.read_schema``.
 
+Nothing read back is trusted blindly. A point file must read completely as Parquet
+(magic bytes, footer, page checksums) and name its point; a checkpoint or final state
+must pass the CRC check of every member of its zip archive and load. A file that fails
+is moved to ``damaged/``, logged once (a warning naming it), and treated as absent: the
+point resumes from the older checkpoint generation, or starts afresh.
+
 A run directory may grow: a spec that adds values to its sweep lists (another L, more
-disorder seeds, another bond) reuses it, and only the new points are computed. A spec
-that changes anything else (time grid, estimator, coarse-grainings, couplings that are
-not swept) would change the physics of the stored points and is refused.
+disorder seeds, another bond) reuses it, and only the new points are computed; a spec
+whose time grid extends the stored one (the same earlier times, more after the last)
+continues every finished point from its final state and computes only the new times. A
+spec that changes anything else (earlier output times, estimator, coarse-grainings,
+couplings that are not swept) would change the physics of the stored points and is
+refused.
 """
 
 from __future__ import annotations
 
 import contextlib
+import errno
 import json
 import logging
 import os
 import socket
 import time
+import zipfile
+import zlib
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 
@@ -46,12 +64,13 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from mpsobs.core.errors import InputError
+from mpsobs.core.printing import short
 from mpsobs.core.version import __version__
-from mpsobs.pipeline.columns import POINT_ID, TRUSTED_TIME, describe
+from mpsobs.pipeline.columns import describe
 from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
-           "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
+           "out_of_space", "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
 
 log = logging.getLogger(__name__)
 
@@ -61,6 +80,10 @@ LOCK_FILE = "run.lock"
 LOG_FILE = "run.log"
 POINTS_DIR = "points"
 CHECKPOINTS_DIR = "checkpoints"
+#: Sub-folder of CHECKPOINTS_DIR with the generation before the last checkpoint.
+OLDER_DIR = "older"
+STATES_DIR = "states"
+DAMAGED_DIR = "damaged"
 FIGURES_DIR = "figures"
 #: A lock file left empty for longer than this (seconds) is treated as stale.
 EMPTY_LOCK_AGE = 10.0
@@ -70,12 +93,26 @@ _META_KEY = b"mpsobs.point"
 #: starts afresh.
 CHECKPOINT_FORMAT = 2
 _FIELDS_KEY = b"mpsobs.site_fields"
+#: How point keys are made (spec.json ``identity``): 2 = the resolved point without its
+#: time grid; records without the key hashed the time grid too.
+IDENTITY = 2
 #: Key of a point frame's ``attrs`` holding its per-site field values (set by the kernel).
 SITE_FIELDS_ATTR = "site_fields"
 
 
 class RunDirError(InputError):
     """The run directory cannot be used: another run's directory, or in use."""
+
+
+#: errno values of a full file system or an exhausted quota.
+_NO_SPACE = (errno.ENOSPC, errno.EDQUOT)
+#: What reading a damaged zip archive (``.npz``) can raise.
+_ZIP_ERRORS = (OSError, ValueError, KeyError, EOFError, zipfile.BadZipFile, zlib.error)
+
+
+def out_of_space(exc: BaseException) -> bool:
+    """Whether ``exc`` says that the file system (or the quota) is full."""
+    return isinstance(exc, OSError) and exc.errno in _NO_SPACE
 
 
 # --------------------------------------------------------------------------- atomic files
@@ -139,7 +176,7 @@ def _write_parquet(path: Path, frame: pd.DataFrame, metadata: dict | None = None
                        for k, v in metadata.items()})
         table = table.replace_schema_metadata(merged)
     with atomic_write(path) as tmp:
-        pq.write_table(table, tmp)
+        pq.write_table(table, tmp, write_page_checksum=True)
 
 
 # --------------------------------------------------------------------------- identity
@@ -158,8 +195,9 @@ def _read_spec_file(root: Path) -> dict | None:
 
 def check_target(root: Path, spec: RunSpec) -> None:
     """Raise RunDirError unless ``root`` is absent, empty, a run of this same spec, or a
-    run that this spec grows (:func:`mpsobs.spec.fixed_settings` equal: only the values
-    of sweep axes differ, so the stored points keep their physics).
+    run that this spec grows (:func:`mpsobs.spec.fixed_settings` equal apart from the
+    values of sweep axes and output times after the stored ones, so the stored points
+    keep their physics).
 
     Reads only; writes nothing.
     """
@@ -177,6 +215,7 @@ def check_target(root: Path, spec: RunSpec) -> None:
         return
     if stored.get("run_id") == spec.run_id:
         return
+    _check_time_grid(root, stored, spec)
     changed = _changed_settings(stored, spec)
     if changed:
         raise RunDirError(
@@ -194,8 +233,26 @@ def _changed_settings(stored: dict, spec: RunSpec) -> list[str]:
         return ["the spec"]
     axes = {*stored["axes"], *(path for group in spec.axes for path in group)}
     old, new = fixed_settings(stored["spec"], axes), fixed_settings(spec.body, axes)
+    if "times" in old and "times" in new:  # checked by _check_time_grid
+        del old["times"], new["times"]
     paths = sorted({*_leaves(old), *_leaves(new)})
     return [path for path in paths if _leaves(old).get(path) != _leaves(new).get(path)]
+
+
+def _check_time_grid(root: Path, stored: dict, spec: RunSpec) -> None:
+    """RunDirError unless the spec's output times extend the stored run's: the same
+    earlier times, possibly more after the last."""
+    before = stored.get("spec", {}).get("times", {}).get("values")
+    after = spec.body["times"]["values"]
+    if before is None or after[:len(before)] == before:
+        return
+    shown = ", ".join(f"{t:g}" for t in before[:6]) + (", ..." if len(before) > 6 else "")
+    raise RunDirError(
+        f"--out: {root} holds a run whose points differ from this spec's in times.values "
+        f"(stored: [{shown}]); a run may only add times after its last one "
+        f"(t = {before[-1]:g}): keep "
+        f"times.values as stored, or keep dt = t_max / (n_times - 1) and raise t_max, or "
+        f"choose another directory (--out or output.dir)")
 
 
 def _leaves(obj, prefix: str = "") -> dict[str, object]:
@@ -217,6 +274,14 @@ def _check_creatable(root: Path) -> None:
     if not parent.is_dir() or not os.access(parent, os.W_OK | os.X_OK):
         raise RunDirError(f"--out: cannot create {root}: {parent} is not a writable "
                           f"directory")
+
+
+def _unwritable(root: Path, exc: OSError) -> RunDirError:
+    """The RunDirError for a run directory where a file cannot be written."""
+    if out_of_space(exc):
+        return RunDirError(f"--out: {root} is out of space ({exc.strerror}); free space "
+                           f"and rerun")
+    return RunDirError(f"--out: cannot write in {root} ({exc.strerror or exc})")
 
 
 def _make_dir(root: Path) -> None:
@@ -283,10 +348,14 @@ def _stale(path: Path) -> bool:
 
 class RunStore:
     """Files of one run directory. Workers use it too (point files and checkpoints);
-    only the client that holds the lock writes the spec and the merged table."""
+    only the client that holds the lock writes the spec and the merged table.
+
+    ``notices`` collects one line per damaged file this store set aside.
+    """
 
     def __init__(self, root: str | Path):
         self.root = Path(root)
+        self.notices: list[str] = []
 
     def __repr__(self) -> str:
         return f"RunStore({str(self.root)!r})"
@@ -298,6 +367,14 @@ class RunStore:
     @property
     def checkpoints_dir(self) -> Path:
         return self.root / CHECKPOINTS_DIR
+
+    @property
+    def states_dir(self) -> Path:
+        return self.root / STATES_DIR
+
+    @property
+    def damaged_dir(self) -> Path:
+        return self.root / DAMAGED_DIR
 
     @property
     def figures_dir(self) -> Path:
@@ -313,10 +390,42 @@ class RunStore:
     def checkpoint_path(self, point_id: str) -> Path:
         return self.checkpoints_dir / f"{point_id}.npz"
 
+    def older_checkpoint_path(self, point_id: str) -> Path:
+        return self.checkpoints_dir / OLDER_DIR / f"{point_id}.npz"
+
+    def final_state_path(self, point_id: str) -> Path:
+        return self.states_dir / f"{point_id}.npz"
+
+    # damaged files -----------------------------------------------------------------
+
+    def set_aside(self, path: Path, reason: str) -> None:
+        """Move a damaged file to ``damaged/`` (its name, then the UTC time it was found),
+        log it (INFO) and add that line to ``notices``, which the owner of the console
+        reports (:func:`mpsobs.pipeline.sweep.run_sweep`: a warning each)."""
+        stamp = time.strftime("%Y%m%dT%H%M%SZ", time.gmtime())
+        target = self.damaged_dir / f"{path.name}.{stamp}.{time.monotonic_ns() % 10**6}"
+        try:
+            self.damaged_dir.mkdir(parents=True, exist_ok=True)
+            os.replace(path, target)
+        except FileNotFoundError:  # another reader set it aside first
+            return
+        notice = (f"damaged file {path.relative_to(self.root)} ({reason}) moved to "
+                  f"{target.relative_to(self.root)}")
+        log.info("%s", notice)
+        self.notices.append(notice)
+
     # points ------------------------------------------------------------------------
 
     def finished(self, point_id: str) -> bool:
         return self.point_path(point_id).exists()
+
+    def complete(self, point: Point) -> bool:
+        """Whether the point's file holds all of its times (a file of a shorter time grid
+        is finished but not complete: the point continues from its final state)."""
+        if not self.finished(point.point_id):
+            return False
+        stored = self.point_metadata(point.point_id).get("params", {}).get("times", {})
+        return stored.get("values") == point.params["times"]["values"]
 
     def write_point(self, point: Point, frame: pd.DataFrame) -> Path:
         """Write a finished point's rows atomically (with its parameters as metadata)."""
@@ -329,24 +438,6 @@ class RunStore:
         log.debug("point %s written (%d rows)", point.point_id, len(frame))
         return path
 
-    def adopt_former(self, point: Point) -> bool:
-        """Take over the finished file of ``point`` stored under its former id (versions
-        up to 0.3 hashed ``evolution.trust_rtol`` into the id, see
-        :mod:`mpsobs.pipeline.spec`): its rows get the new id and lose the stored
-        ``t_trusted`` (the analysis computes it). True when a file was taken over."""
-        former = self.point_path(point.former_id) if point.former_id else None
-        if (former is None or point.former_id == point.point_id or not former.exists()
-                or self.finished(point.point_id)):
-            return False
-        frame = pd.read_parquet(former).drop(columns=[TRUSTED_TIME], errors="ignore")
-        frame[POINT_ID] = point.point_id
-        frame.attrs[SITE_FIELDS_ATTR] = self.point_metadata(point.former_id).get("site_fields")
-        self.write_point(point, frame)
-        former.unlink()
-        log.info("point %s: adopted the finished point %s of an older version", point.point_id,
-                 point.former_id)
-        return True
-
     def read_point(self, point_id: str) -> pd.DataFrame:
         return pd.read_parquet(self.point_path(point_id))
 
@@ -355,26 +446,67 @@ class RunStore:
         raw = pq.read_schema(self.point_path(point_id)).metadata or {}
         return json.loads(raw[_META_KEY]) if _META_KEY in raw else {}
 
-    # checkpoints -------------------------------------------------------------------
+    def verify_point(self, point_id: str) -> bool:
+        """Read the point file completely (format, page checksums, its point id); set it
+        aside if that fails. Returns whether a sound file is there."""
+        return self._read_verified(point_id) is not None
+
+    def _read_verified(self, point_id: str) -> pa.Table | None:
+        """The point file's table, or None (absent; damaged: set aside)."""
+        path = self.point_path(point_id)
+        if not path.exists():
+            return None
+        try:
+            table = pq.read_table(path, page_checksum_verification=True)
+            stored = json.loads((table.schema.metadata or {})[_META_KEY]).get("point_id")
+            if stored != point_id:
+                raise ValueError(f"it holds point {stored!r}")
+        except (OSError, ValueError, KeyError, pa.ArrowException) as exc:
+            self.set_aside(path, _reason(exc))
+            return None
+        return table
+
+    # checkpoints and final states ----------------------------------------------------
 
     def save_checkpoint(self, point_id: str, states: Sequence[Sequence[np.ndarray]],
                         meta: dict) -> None:
         """Atomically store an unfinished point's MPS tensors, one list per state (the
         main state, then the check state when there is one), and its progress ``meta``
-        (JSON-serialisable: time, cumulative discarded weights, initial energy, rows)."""
-        self.checkpoints_dir.mkdir(parents=True, exist_ok=True)
-        arrays = {f"state{s:02d}_tensor_{i:05d}": np.asarray(t)
-                  for s, tensors in enumerate(states) for i, t in enumerate(tensors)}
-        arrays["format"] = np.array(CHECKPOINT_FORMAT)
-        arrays["meta"] = np.array(json.dumps(meta))
-        with atomic_write(self.checkpoint_path(point_id)) as tmp:
-            with open(tmp, "wb") as handle:
-                np.savez(handle, **arrays)
+        (JSON-serialisable: time, cumulative discarded weights, initial energy, rows).
+        The checkpoint it replaces becomes the older generation."""
+        path = self.checkpoint_path(point_id)
+        older = self.older_checkpoint_path(point_id)
+        older.parent.mkdir(parents=True, exist_ok=True)
+        with contextlib.suppress(FileNotFoundError):
+            os.replace(path, older)
+        _write_npz(path, states, meta)
 
     def load_checkpoint(self, point_id: str) -> tuple[list[list[np.ndarray]], dict] | None:
-        """The last checkpoint of a point (tensors per state, meta), or None (also for an
-        unreadable file or one of an older layout, which are logged and ignored)."""
-        path = self.checkpoint_path(point_id)
+        """The last sound checkpoint of a point (tensors per state, meta): the newest
+        generation, else the older one, else None. A damaged file is set aside
+        (:meth:`set_aside`); one of an older layout is logged and ignored."""
+        for path in (self.checkpoint_path(point_id), self.older_checkpoint_path(point_id)):
+            loaded = self._load_npz(path)
+            if loaded is not None:
+                return loaded
+        return None
+
+    def drop_checkpoint(self, point_id: str) -> None:
+        for path in (self.checkpoint_path(point_id), self.older_checkpoint_path(point_id)):
+            with contextlib.suppress(FileNotFoundError):
+                path.unlink()
+
+    def save_final_state(self, point_id: str, states: Sequence[Sequence[np.ndarray]],
+                         meta: dict) -> None:
+        """Store a finished point's final states and progress (the checkpoint after its
+        last time), from which a longer time grid continues."""
+        _write_npz(self.final_state_path(point_id), states, meta)
+
+    def load_final_state(self, point_id: str) -> tuple[list[list[np.ndarray]], dict] | None:
+        """The final states of a finished point, or None (absent, damaged: set aside)."""
+        return self._load_npz(self.final_state_path(point_id))
+
+    def _load_npz(self, path: Path) -> tuple[list[list[np.ndarray]], dict] | None:
         if not path.exists():
             return None
         try:
@@ -387,19 +519,16 @@ class RunStore:
                 for name in sorted(n for n in data.files if n.startswith("state")):
                     states.setdefault(name.split("_")[0], []).append(data[name])
                 meta = json.loads(str(data["meta"]))
-        except (OSError, ValueError, KeyError) as exc:
-            log.warning("ignoring unreadable checkpoint %s (%s)", path, exc)
+        except _ZIP_ERRORS as exc:
+            self.set_aside(path, _reason(exc))
             return None
         return list(states.values()), meta
-
-    def drop_checkpoint(self, point_id: str) -> None:
-        with contextlib.suppress(FileNotFoundError):
-            self.checkpoint_path(point_id).unlink()
 
     def remove_temporaries(self) -> None:
         """Delete temporary files left by writers that were killed (call only while
         holding the lock, before workers start)."""
-        for folder in (self.root, self.points_dir, self.checkpoints_dir):
+        for folder in (self.root, self.points_dir, self.checkpoints_dir,
+                       self.checkpoints_dir / OLDER_DIR, self.states_dir):
             if folder.is_dir():
                 for tmp in folder.glob(".*.tmp"):
                     with contextlib.suppress(FileNotFoundError):
@@ -408,20 +537,22 @@ class RunStore:
     # merged table ------------------------------------------------------------------
 
     def merge(self, points: Sequence[Point]) -> pd.DataFrame:
-        """Concatenate the finished points (in point order) into results.parquet.
+        """Concatenate the finished points (in point order) into results.parquet; a
+        damaged point file is set aside and left out.
 
         Returns the merged table (empty if no point has finished).
         """
-        done = [p for p in points if self.finished(p.point_id)]
         frames, site_fields = [], {}
-        for point in done:
-            frame = self.read_point(point.point_id)
-            if len(frame):
-                if "disorder_axes" in frame:  # as the current spec marks them
-                    frame["disorder_axes"] = ",".join(point.disorder)
-                frames.append(frame)
-                site_fields[point.point_id] = self.point_metadata(point.point_id).get(
-                    "site_fields")
+        for point in points:
+            table = self._read_verified(point.point_id)
+            if table is None or not table.num_rows:
+                continue
+            frame = table.to_pandas()
+            if "disorder_axes" in frame:  # as the current spec marks them
+                frame["disorder_axes"] = ",".join(point.disorder)
+            frames.append(frame)
+            site_fields[point.point_id] = json.loads(
+                table.schema.metadata[_META_KEY]).get("site_fields")
         merged = (pd.concat(frames, ignore_index=True) if frames else pd.DataFrame())
         if frames:
             _write_parquet(self.results_path, merged,
@@ -429,12 +560,42 @@ class RunStore:
         return merged
 
 
+def _warn_rekeyed(root: Path, before: dict, spec: RunSpec) -> None:
+    """Warn when stored points carry keys of the earlier identity (time grid hashed)."""
+    ids = {p.point_id for p in spec.points}
+    old = [p for p in before.get("points", []) if p.get("point_id") not in ids]
+    if old:
+        log.warning("%s: %d stored point(s) were keyed by an earlier mpsobs (the time "
+                    "grid was part of a point's key); they are computed again (their files "
+                    "stay in %s/)", root, len(old), POINTS_DIR)
+
+
+def _reason(exc: BaseException) -> str:
+    """A one-line reason from a read error."""
+    text = str(exc).strip().splitlines()
+    return short(f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__, 160)
+
+
+def _write_npz(path: Path, states: Sequence[Sequence[np.ndarray]], meta: dict) -> None:
+    """States (tensors ``state<s>_tensor_<i>``), layout number and JSON ``meta`` as one
+    atomically written ``.npz`` (zip members carry CRC-32 checksums)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    arrays = {f"state{s:02d}_tensor_{i:05d}": np.asarray(t)
+              for s, tensors in enumerate(states) for i, t in enumerate(tensors)}
+    arrays["format"] = np.array(CHECKPOINT_FORMAT)
+    arrays["meta"] = np.array(json.dumps(meta))
+    with atomic_write(path) as tmp:
+        with open(tmp, "wb") as handle:
+            np.savez(handle, **arrays)
+
+
 def _spec_record(spec: RunSpec, before: dict | None = None) -> dict:
     """The spec.json record; ``before`` is the record of the run this spec grows."""
     now = time.strftime("%Y-%m-%dT%H:%M:%S%z")
     history = [] if before is None else [*before.get("history", []), {
         key: before.get(key) for key in ("run_id", "name", "source", "updated", "created")}]
-    return {"run_id": spec.run_id, "name": spec.name, "source": spec.source,
+    return {"run_id": spec.run_id, "identity": IDENTITY, "name": spec.name,
+            "source": spec.source,
             "mpsobs_version": __version__,
             "created": now if before is None else before.get("created", now),
             "updated": now, "history": history,
@@ -457,19 +618,26 @@ def open_run(root: str | Path, spec: RunSpec) -> Iterator[RunStore]:
     check_target(root, spec)
     _make_dir(root)
     lock = root / LOCK_FILE
-    _take_lock(lock)
+    try:
+        _take_lock(lock)
+    except OSError as exc:
+        raise _unwritable(root, exc) from None
     try:
         check_target(root, spec)  # another run may have claimed it meanwhile
         before = _read_spec_file(root)
-        if before is None or before.get("run_id") != spec.run_id:
-            if before is not None:
+        if before is not None and before.get("identity") != IDENTITY:
+            _warn_rekeyed(root, before, spec)
+        if (before is None or before.get("run_id") != spec.run_id
+                or before.get("identity") != IDENTITY):
+            if before is not None and before.get("run_id") != spec.run_id:
                 log.info("growing the run in %s (run id %s -> %s)", root,
                          before.get("run_id", "?")[:12], spec.run_id[:12])
-            _write_json(root / SPEC_FILE, _spec_record(spec, before))
+            try:
+                _write_json(root / SPEC_FILE, _spec_record(spec, before))
+            except OSError as exc:
+                raise _unwritable(root, exc) from None
         store = RunStore(root)
         store.remove_temporaries()
-        for point in spec.points:
-            store.adopt_former(point)
         yield store
     finally:
         with contextlib.suppress(FileNotFoundError):
