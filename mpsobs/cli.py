@@ -181,6 +181,9 @@ def _cmd_scale(args) -> int:
 
     table = workflow.scale(args.run_dir, window=args.window, fraction=args.fraction)
     print(scaling.format_table(table))
+    print()
+    for path in workflow.scale_files(args.run_dir):
+        print(f"mpsobs: wrote {path}")
     return 0
 
 

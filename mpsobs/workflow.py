@@ -22,7 +22,7 @@ from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 from mpsobs.pipeline import store, sweep
 
-__all__ = ["RunOutcome", "run", "check", "plot", "scale"]
+__all__ = ["RunOutcome", "run", "check", "plot", "scale", "scale_files"]
 
 log = logging.getLogger(__name__)
 
@@ -86,22 +86,29 @@ def plot(run_dir: str | os.PathLike) -> list[Path]:
     return plots.plot_results(scaling.read_results(run_dir), store.RunStore(run_dir).figures_dir)
 
 
+def scale_files(run_dir: str | os.PathLike) -> list[Path]:
+    """The files :func:`scale` writes: RUN_DIR/scaling.csv, RUN_DIR/scaling.parquet and
+    the collapse figure RUN_DIR/figures/collapse.png and .pdf."""
+    run_store = store.RunStore(run_dir)
+    return [run_store.root / "scaling.csv", run_store.root / "scaling.parquet",
+            *plots.figure_files(run_store.figures_dir / "collapse")]
+
+
 def scale(run_dir: str | os.PathLike, *, window: float = 0.3,
           fraction: float = 0.9) -> pd.DataFrame:
-    """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
-    with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
+    """Scaling table of a run, saved with its collapse figure (:func:`scale_files`).
 
     See :func:`mpsobs.analysis.scaling.scaling_table` for ``window`` and ``fraction``.
     Raises InputError (and writes nothing) for a missing table, missing columns or a
     group with a single L.
     """
-    run_store = store.RunStore(run_dir)
     results = scaling.read_results(run_dir)
     table = scaling.scaling_table(results, window=window, fraction=fraction)
     figure = plots.collapse_figure(scaling.collapse_curves(results, table))
-    with store.atomic_write(run_store.root / "scaling.csv") as tmp:
+    csv, parquet, *_ = scale_files(run_dir)
+    with store.atomic_write(csv) as tmp:
         table.to_csv(tmp, index=False)
-    with store.atomic_write(run_store.root / "scaling.parquet") as tmp:
+    with store.atomic_write(parquet) as tmp:
         table.to_parquet(tmp, index=False)
-    plots.save_figure(figure, run_store.figures_dir / "collapse")
+    plots.save_figure(figure, store.RunStore(run_dir).figures_dir / "collapse")
     return table

@@ -374,7 +374,15 @@ def collapse_figure(collapse: pd.DataFrame,
     keys = scaling.key_columns(collapse)
     shown = scaling.varying_columns(collapse, [k for k in keys if k != "coarse_graining"],
                                     within="coarse_graining")
-    panels = scaling.split(collapse, keys)
+    panels = scaling.split(collapse, keys) if not collapse.empty else []
+    if not panels:
+        with matplotlib.rc_context(PAPER_STYLE):
+            fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT), layout="constrained")
+            FigureCanvasAgg(fig)
+            ax = fig.subplots()
+            ax.set_axis_off()
+            ax.text(0.5, 0.5, "no saturated curve to collapse", ha="center", va="center")
+        return fig
     ncols = 1 if len(panels) <= 3 else 2
     nrows = -(-len(panels) // ncols)
     with matplotlib.rc_context(PAPER_STYLE):
@@ -406,11 +414,16 @@ def collapse_figure(collapse: pd.DataFrame,
     return fig
 
 
+def figure_files(stem: str | os.PathLike) -> list[Path]:
+    """The files :func:`save_figure` writes for ``stem``: ``stem``.png and ``stem``.pdf."""
+    stem = Path(stem)
+    return [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
+
+
 def save_figure(fig: Figure, stem: str | os.PathLike) -> list[Path]:
     """Write ``stem``.png and ``stem``.pdf (creating the directory); return the paths."""
-    stem = Path(stem)
-    stem.parent.mkdir(parents=True, exist_ok=True)
-    paths = [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
+    paths = figure_files(stem)
+    paths[0].parent.mkdir(parents=True, exist_ok=True)
     with matplotlib.rc_context(PAPER_STYLE):
         for path in paths:
             with atomic_write(path) as tmp:
