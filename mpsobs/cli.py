@@ -50,6 +50,14 @@ def _fraction(text: str) -> float:
     return value
 
 
+def _choice(text: str) -> tuple[str, list[str]]:
+    name, sep, values = text.partition("=")
+    chosen = [v.strip() for v in values.split(",") if v.strip()]
+    if not sep or not name.strip() or not chosen:
+        raise argparse.ArgumentTypeError(f"expected NAME=VALUE[,VALUE...], got {text!r}")
+    return name.strip(), chosen
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="mpsobs",
@@ -95,8 +103,22 @@ def build_parser() -> argparse.ArgumentParser:
     plot = commands.add_parser(
         "plot", help="draw the figures of a run",
         description="Write the entropy, parts and knowledge figures of RUN_DIR/results.parquet "
-                    "to RUN_DIR/figures.")
+                    "to RUN_DIR/figures: PNG and PDF (all settings in their metadata) and "
+                    "the drawn numbers as CSV.")
     plot.add_argument("run_dir", metavar="RUN_DIR")
+    plot.add_argument("--coarse", action="append", metavar="LABEL",
+                      help="draw only this coarse-graining (its label in the table; "
+                           "repeat for several)")
+    plot.add_argument("--where", action="append", type=_choice, metavar="NAME=V1,V2",
+                      help="draw only rows whose parameter NAME takes one of these values, "
+                           "e.g. --where L=32,48 (repeat for several parameters)")
+    plot.add_argument("--total", action="store_true",
+                      help="total entropies instead of entropies per site")
+    plot.add_argument("--diagnostics", action="store_true",
+                      help="add the entanglement and discarded-weight panels to the "
+                           "entropy figure")
+    plot.add_argument("--separate", action="store_true",
+                      help="one figure per coarse-graining instead of one panel each")
 
     scale = commands.add_parser(
         "scale", help="finite-size scaling table of a run",
@@ -170,7 +192,12 @@ def _cmd_template(args) -> int:
 def _cmd_plot(args) -> int:
     from mpsobs import workflow
 
-    for path in workflow.plot(args.run_dir):
+    where: dict[str, list[str]] = {}
+    for name, values in args.where or []:
+        where.setdefault(name, []).extend(values)
+    for path in workflow.plot(args.run_dir, coarse=args.coarse, where=where,
+                              per_site=not args.total, diagnostics=args.diagnostics,
+                              separate=args.separate):
         print(path)
     return 0
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import logging
 import os
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -81,9 +82,15 @@ def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = Non
     return RunOutcome(report, root, drawn, skipped)
 
 
-def plot(run_dir: str | os.PathLike) -> list[Path]:
-    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF)."""
-    return plots.plot_results(scaling.read_results(run_dir), store.RunStore(run_dir).figures_dir)
+def plot(run_dir: str | os.PathLike, *, coarse: Sequence[str] | None = None,
+         where: Mapping[str, Sequence] | None = None, per_site: bool = True,
+         diagnostics: bool = False, separate: bool = False) -> list[Path]:
+    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF with
+    the settings in their metadata, and the drawn numbers as CSV); the options are those
+    of :func:`mpsobs.analysis.plots.plot_results`."""
+    return plots.plot_results(scaling.read_results(run_dir), store.RunStore(run_dir).figures_dir,
+                              coarse=coarse, where=where, per_site=per_site,
+                              diagnostics=diagnostics, separate=separate)
 
 
 def scale_files(run_dir: str | os.PathLike) -> list[Path]:
