@@ -534,17 +534,16 @@ def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = N
     data = figure_data(results, "entropy", per_site=per_site, shown=shown)
     has_eq = _column(data, scaling.EQUILIBRIUM, per_site) is not None and bool(
         np.isfinite(_column(data, scaling.EQUILIBRIUM, per_site)).any())
-    faint = False
+    faint = scaling.TRUSTED_TIME in data and bool(
+        (data["t"] > data[scaling.TRUSTED_TIME].fillna(np.inf)).any())
     shown_range: dict[int, list[float]] = {}  # per panel: values on trusted times
     names: dict[int, dict[str, float]] = {}   # per panel: reference -> value, largest L
 
     def draw(ax, curve, L, color):
-        nonlocal faint
         t = curve["t"].to_numpy(dtype=float)
         y = _column(curve, "S_obs", per_site)
         err = _column(curve, uncertainty.TOTAL, per_site)
         trusted = _trusted_time(curve)
-        faint |= trusted is not None and t[-1] > trusted
         _band(ax, t, y, err, color, trusted=trusted)
         thermo = _column(curve, "S_thermo", per_site)
         ax.plot(t, thermo, color=color, **THERMO_STYLE)
@@ -579,16 +578,15 @@ def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = N
 
     per = "/L" if per_site else ""
     styles = [_style(rf"$S_\mathrm{{obs}}{per}$"),
-              _band_style(r"$\pm$ total error (sampling, truncation, pruning)"),
-              _style(rf"$S_\mathrm{{thermo}}{per}$ (Gibbs entropy)", **THERMO_STYLE)]
+              _band_style(r"$\pm$ total error"),
+              _style(rf"$S_\mathrm{{thermo}}{per}$ (Gibbs)", **THERMO_STYLE)]
     if has_eq:
         styles.append(_style(rf"$S_\mathrm{{obs}}^\mathrm{{eq}}{per}$ (Gibbs state)",
                              **EQUILIBRIUM_STYLE))
     if faint:
-        styles.append(_style("faint: past the trusted time (truncation)",
+        styles.append(_style(r"past $t_\mathrm{trusted}$ (truncation)",
                              alpha=UNTRUSTED_ALPHA))
-    styles.append(_style(r"maximum $\ln 2$" if per_site else r"maximum $L \ln 2$",
-                         **LN2_STYLE))
+    styles.append(_style(r"max. $\ln 2$" if per_site else r"max. $L \ln 2$", **LN2_STYLE))
     ylabel = "entropy per site [nats]" if per_site else "entropy [nats]"
     return _panel_figure(results, data, colors, shown, draw, ylabel, styles, decorate,
                          diagnostics=diagnostics, per_site=per_site)
