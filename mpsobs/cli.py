@@ -92,7 +92,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Validate SPEC (default: the built-in scenario) and every one of its "
                     "sweep points (the model, initial state, coarse-grainings and estimator "
                     "settings each point would use; nothing is evolved), then list the "
-                    "points.")
+                    "points with an estimate of their core-hours and peak memory.")
     check.add_argument("spec", nargs="?", metavar="SPEC", help="TOML spec file")
 
     commands.add_parser(
@@ -167,6 +167,7 @@ def _cmd_run(args) -> int:
 
 def _cmd_check(args) -> int:
     from mpsobs import workflow
+    from mpsobs.pipeline import cost
 
     spec = workflow.check(args.spec)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
@@ -179,6 +180,10 @@ def _cmd_check(args) -> int:
               f"by plot and scale)")
     for point in spec.points:
         print(f"  {point.index:4d}  {point.point_id}  {point.label}")
+    print("estimated cost (one core; bonds grown to the cap, see mpsobs.pipeline.cost; "
+          "a factor 3 either way):")
+    for line in cost.format_costs(workflow.costs(spec)):
+        print(f"  {line}")
     return 0
 
 

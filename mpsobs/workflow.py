@@ -19,11 +19,11 @@ import pandas as pd
 
 from mpsobs.analysis import plots, scaling
 from mpsobs.core.errors import InputError
+from mpsobs.pipeline import cost, store, sweep
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
-from mpsobs.pipeline import store, sweep
 
-__all__ = ["RunOutcome", "run", "check", "plot", "scale", "scale_files"]
+__all__ = ["RunOutcome", "run", "check", "costs", "plot", "scale", "scale_files"]
 
 log = logging.getLogger(__name__)
 
@@ -44,6 +44,12 @@ def check(spec_path: str | os.PathLike | None) -> specs.RunSpec:
     spec = specs.load(spec_path)
     points.check_points(spec.points)
     return spec
+
+
+def costs(spec: specs.RunSpec) -> list[cost.PointCost]:
+    """The estimated core-hours and peak memory of every point of a checked spec
+    (:mod:`mpsobs.pipeline.cost`; nothing is evolved)."""
+    return [cost.point_cost(point) for point in spec.points]
 
 
 def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = None, *,
