@@ -19,6 +19,7 @@ from mpsobs.core.errors import InputError
 from mpsobs.core.version import __version__
 
 __all__ = ["main", "build_parser"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger("mpsobs")
 

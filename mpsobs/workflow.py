@@ -24,6 +24,7 @@ from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 
 __all__ = ["RunOutcome", "run", "check", "costs", "plot", "scale", "scale_files"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

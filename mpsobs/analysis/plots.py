@@ -67,6 +67,7 @@ __all__ = [
     "parts_figure", "knowledge_figure", "collapse_figure", "figure_files", "save_figure",
     "plot_results",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Width of one panel in inches (a single journal column).
 PANEL_WIDTH = 3.4

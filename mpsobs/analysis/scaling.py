@@ -118,6 +118,7 @@ __all__ = [
     "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
     "collapse_curves", "format_table", "format_value",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

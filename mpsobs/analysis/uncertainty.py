@@ -33,6 +33,7 @@ from mpsobs.estimators.estimate import pruned_entropy_bound
 
 __all__ = ["STATISTICAL", "ESTIMATES", "PRUNED_MASS", "TOTAL", "error_parts", "total_error",
            "with_total_error"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Column of the statistical (sampling) standard error of S_obs.
 STATISTICAL = "S_obs_err"

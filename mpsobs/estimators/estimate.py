@@ -77,6 +77,7 @@ __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "Samp
            "draw_conditional", "ConditionalBatch", "conditional_terms",
            "conditional_sample_flops", "default_batch", "pruned_entropy_bound", "countable",
            "check_seed", "Method", "METHODS"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 logger = logging.getLogger(__name__)
 

@@ -11,6 +11,7 @@ from collections.abc import Iterable
 
 __all__ = ["REQUIRED", "EXTRA", "DESCRIPTIONS", "PARAMETER_DESCRIPTIONS", "describe",
            "parameter_columns"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Fixed result columns (besides the point's parameters, among them ``L``).
 REQUIRED = (

@@ -70,6 +70,7 @@ __all__ = ["GEMM_RATE", "LAPACK_RATE", "CALL_SECONDS", "BASE_BYTES", "BETA_GUESS
            "DOUBLING_TIME", "THERMO_BOND_GUESS", "Work", "PointCost", "grown_bond",
            "bond_caps", "svd_flops", "qr_flops", "tebd_work", "estimator_work",
            "point_cost", "format_costs"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Effective single-core rate of complex matrix products (flop/s).
 GEMM_RATE = 2.0e10

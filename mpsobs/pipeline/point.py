@@ -71,6 +71,7 @@ from mpsobs.references import gaussian, thermo
 __all__ = ["compute_point", "check_point", "check_points", "build_model",
            "build_coarse_grainings", "initial_state", "total_number", "trusted_time",
            "ROW_COLUMNS", "ROUNDOFF_NATS"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

@@ -76,6 +76,7 @@ from mpsobs.estimators.estimate import COUNT_MAX_REGIONS
 __all__ = ["Point", "RunSpec", "load", "parse", "default_spec_path", "DEFAULT_OUTPUT_ROOT",
            "fixed_settings", "DISORDER_AXES", "MODELS", "STATES", "OBSERVABLES",
            "FIELD_KINDS", "ESTIMATOR_METHODS"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 MODELS = ("xxz", "ising")
 STATES = ("product", "domain_wall", "neel", "gas", "random_product", "ground")

@@ -38,6 +38,7 @@ from mpsobs.pipeline.store import RunStore
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
            "check_execution", "reach_scheduler",
            "WORKER_ENV", "PROGRESS_TOPIC"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 
