@@ -513,3 +513,11 @@ def test_scale_command_says_where_it_wrote(tmp_path, capsys):
     out = capsys.readouterr().out
     for path in workflow.scale_files(tmp_path):
         assert f"wrote {path}" in out and path.is_file()
+
+
+def test_scale_of_curves_still_rising_writes_an_empty_collapse(tmp_path):
+    _still_rising().to_parquet(tmp_path / "results.parquet")
+    table = workflow.scale(tmp_path)
+    assert (table.plateau_status == scaling.RISING).all()
+    for path in workflow.scale_files(tmp_path):
+        assert path.stat().st_size > 0, path

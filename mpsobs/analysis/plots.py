@@ -143,7 +143,7 @@ def length_colors(lengths: Iterable[int]) -> dict[int, tuple]:
     """A colour per chain length, ordered along the viridis map (dark = small L)."""
     unique = sorted({int(L) for L in lengths})
     cmap = matplotlib.colormaps["viridis"]
-    positions = np.linspace(0.0, 0.85, len(unique)) if len(unique) > 1 else [0.35]
+    positions = np.linspace(0.0, 0.85, len(unique)) if len(unique) > 1 else [0.35] * len(unique)
     return {L: cmap(p) for L, p in zip(unique, positions, strict=True)}
 
 
