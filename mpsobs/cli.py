@@ -20,6 +20,7 @@ from mpsobs.core.errors import InputError
 from mpsobs.core.version import __version__
 
 __all__ = ["main", "build_parser"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger("mpsobs")
 
@@ -71,6 +72,14 @@ def _add_trust_option(parser: argparse.ArgumentParser) -> None:
                              f"recomputes nothing (default {DEFAULT_TRUST_RTOL:g})")
 
 
+def _choice(text: str) -> tuple[str, list[str]]:
+    name, sep, values = text.partition("=")
+    chosen = [v.strip() for v in values.split(",") if v.strip()]
+    if not sep or not name.strip() or not chosen:
+        raise argparse.ArgumentTypeError(f"expected NAME=VALUE[,VALUE...], got {text!r}")
+    return name.strip(), chosen
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="mpsobs",
@@ -105,7 +114,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Validate SPEC (default: the built-in scenario) and every one of its "
                     "sweep points (the model, initial state, coarse-grainings and estimator "
                     "settings each point would use; nothing is evolved), then list the "
-                    "points.")
+                    "points with an estimate of their core-hours and peak memory.")
     check.add_argument("spec", nargs="?", metavar="SPEC", help="TOML spec file")
 
     commands.add_parser(
@@ -116,9 +125,23 @@ def build_parser() -> argparse.ArgumentParser:
     plot = commands.add_parser(
         "plot", help="draw the figures of a run",
         description="Write the entropy, parts and knowledge figures of RUN_DIR/results.parquet "
-                    "to RUN_DIR/figures.")
+                    "to RUN_DIR/figures: PNG and PDF (all settings in their metadata) and "
+                    "the drawn numbers as CSV.")
     plot.add_argument("run_dir", metavar="RUN_DIR")
     _add_trust_option(plot)
+    plot.add_argument("--coarse", action="append", metavar="LABEL",
+                      help="draw only this coarse-graining (its label in the table; "
+                           "repeat for several)")
+    plot.add_argument("--where", action="append", type=_choice, metavar="NAME=V1,V2",
+                      help="draw only rows whose parameter NAME takes one of these values, "
+                           "e.g. --where L=32,48 (repeat for several parameters)")
+    plot.add_argument("--total", action="store_true",
+                      help="total entropies instead of entropies per site")
+    plot.add_argument("--diagnostics", action="store_true",
+                      help="add the entanglement and discarded-weight panels to the "
+                           "entropy figure")
+    plot.add_argument("--separate", action="store_true",
+                      help="one figure per coarse-graining instead of one panel each")
 
     scale = commands.add_parser(
         "scale", help="finite-size scaling table of a run",
@@ -187,6 +210,7 @@ def _cmd_run(args) -> int:
 
 def _cmd_check(args) -> int:
     from mpsobs import workflow
+    from mpsobs.pipeline import cost
     from mpsobs.pipeline.sweep import plural
 
     spec = workflow.check(args.spec)
@@ -200,6 +224,10 @@ def _cmd_check(args) -> int:
               f"by plot and scale)")
     for point in spec.points:
         print(f"  {point.index:4d}  {point.point_id}  {point.label}")
+    print("estimated cost (one core; bonds grown to the cap, see mpsobs.pipeline.cost; "
+          "a factor 3 either way):")
+    for line in cost.format_costs(workflow.costs(spec)):
+        print(f"  {line}")
     return 0
 
 
@@ -213,7 +241,12 @@ def _cmd_template(args) -> int:
 def _cmd_plot(args) -> int:
     from mpsobs import workflow
 
-    for path in workflow.plot(args.run_dir, trust_rtol=args.trust_rtol):
+    where: dict[str, list[str]] = {}
+    for name, values in args.where or []:
+        where.setdefault(name, []).extend(values)
+    for path in workflow.plot(args.run_dir, coarse=args.coarse, where=where,
+                              per_site=not args.total, diagnostics=args.diagnostics,
+                              separate=args.separate, trust_rtol=args.trust_rtol):
         print(path)
     return 0
 
@@ -225,6 +258,9 @@ def _cmd_scale(args) -> int:
     table = workflow.scale(args.run_dir, window=args.window, fraction=args.fraction,
                            trust_rtol=args.trust_rtol)
     print(scaling.format_table(table))
+    print()
+    for path in workflow.scale_files(args.run_dir):
+        print(f"mpsobs: wrote {path}")
     return 0
 
 

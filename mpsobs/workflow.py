@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import logging
 import os
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -19,12 +20,13 @@ import pandas as pd
 
 from mpsobs.analysis import plots, scaling, trust
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline import build, columns, store, sweep
+from mpsobs.pipeline import build, columns, cost, store, sweep
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 
-__all__ = ["RunOutcome", "run", "check", "plot", "scale", "reference", "REFERENCES",
-           "refresh_references"]
+__all__ = ["RunOutcome", "run", "check", "costs", "plot", "scale", "scale_files", "reference",
+           "REFERENCES", "refresh_references"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 
@@ -45,6 +47,12 @@ def check(spec_path: str | os.PathLike | None) -> specs.RunSpec:
     spec = specs.load(spec_path)
     points.check_points(spec.points)
     return spec
+
+
+def costs(spec: specs.RunSpec) -> list[cost.PointCost]:
+    """The estimated core-hours and peak memory of every point of a checked spec
+    (:mod:`mpsobs.pipeline.cost`; nothing is evolved)."""
+    return [cost.point_cost(point) for point in spec.points]
 
 
 def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = None, *,
@@ -106,34 +114,45 @@ def _results(run_dir: str | os.PathLike, trust_rtol: float) -> pd.DataFrame:
     return trust.with_trusted_times(scaling.read_results(run_dir), rtol)
 
 
-def plot(run_dir: str | os.PathLike, *,
+def plot(run_dir: str | os.PathLike, *, coarse: Sequence[str] | None = None,
+         where: Mapping[str, Sequence] | None = None, per_site: bool = True,
+         diagnostics: bool = False, separate: bool = False,
          trust_rtol: float = trust.DEFAULT_TRUST_RTOL) -> list[Path]:
-    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF);
-    curves are faint past their trusted time at tolerance ``trust_rtol``
-    (:mod:`mpsobs.analysis.trust`)."""
-    results = _results(run_dir, trust_rtol)
-    return plots.plot_results(results, store.RunStore(run_dir).figures_dir)
+    """Figures of RUN_DIR/results.parquet, written to RUN_DIR/figures (PNG and PDF with
+    the settings in their metadata, and the drawn numbers as CSV); the options are those
+    of :func:`mpsobs.analysis.plots.plot_results`; curves are faint past their trusted
+    time at tolerance ``trust_rtol`` (:mod:`mpsobs.analysis.trust`)."""
+    return plots.plot_results(_results(run_dir, trust_rtol),
+                              store.RunStore(run_dir).figures_dir, coarse=coarse, where=where,
+                              per_site=per_site, diagnostics=diagnostics, separate=separate)
+
+
+def scale_files(run_dir: str | os.PathLike) -> list[Path]:
+    """The files :func:`scale` writes: RUN_DIR/scaling.csv, RUN_DIR/scaling.parquet and
+    the collapse figure RUN_DIR/figures/collapse.png and .pdf."""
+    run_store = store.RunStore(run_dir)
+    return [run_store.root / "scaling.csv", run_store.root / "scaling.parquet",
+            *plots.figure_files(run_store.figures_dir / "collapse")]
 
 
 def scale(run_dir: str | os.PathLike, *, window: float = 0.3, fraction: float = 0.9,
           trust_rtol: float = trust.DEFAULT_TRUST_RTOL) -> pd.DataFrame:
-    """Scaling table of a run, saved as RUN_DIR/scaling.csv and RUN_DIR/scaling.parquet,
-    with the collapse figure RUN_DIR/figures/collapse.png and .pdf.
+    """Scaling table of a run, saved with its collapse figure (:func:`scale_files`).
 
     See :func:`mpsobs.analysis.scaling.scaling_table` for ``window`` and ``fraction``;
     the trusted times are computed at tolerance ``trust_rtol``
     (:mod:`mpsobs.analysis.trust`). Raises InputError (and writes nothing) for a missing
     table, missing columns or a group with a single L.
     """
-    run_store = store.RunStore(run_dir)
     results = _results(run_dir, trust_rtol)
     table = scaling.scaling_table(results, window=window, fraction=fraction)
     figure = plots.collapse_figure(scaling.collapse_curves(results, table))
-    with store.atomic_write(run_store.root / "scaling.csv") as tmp:
+    csv, parquet, *_ = scale_files(run_dir)
+    with store.atomic_write(csv) as tmp:
         table.to_csv(tmp, index=False)
-    with store.atomic_write(run_store.root / "scaling.parquet") as tmp:
+    with store.atomic_write(parquet) as tmp:
         table.to_parquet(tmp, index=False)
-    plots.save_figure(figure, run_store.figures_dir / "collapse")
+    plots.save_figure(figure, store.RunStore(run_dir).figures_dir / "collapse")
     return table
 
 

@@ -7,6 +7,8 @@ stored images.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -29,7 +31,7 @@ def _results(**parameters) -> pd.DataFrame:
 
 
 def _check_files(paths) -> None:
-    for path in paths:
+    for path in [p for p in paths if p.suffix != ".csv"]:
         data = path.read_bytes()
         assert len(data) > 1000, path
         assert data[:8] == PNG_MAGIC if path.suffix == ".png" else data[:5] == PDF_MAGIC
@@ -43,7 +45,7 @@ def test_plot_run_writes_one_set_per_parameter_value(tmp_path):
     names = sorted(p.name for p in paths)
     expected = sorted(f"{kind}_Delta={delta}{suffix}"
                       for kind in ("entropy", "parts", "knowledge")
-                      for delta in (0.5, 1.0) for suffix in (".png", ".pdf"))
+                      for delta in (0.5, 1.0) for suffix in (".png", ".pdf", ".csv"))
     assert names == expected
     assert all(p.parent == tmp_path / "figures" for p in paths)
     _check_files(paths)
@@ -55,7 +57,7 @@ def test_single_parameter_set_and_single_length(tmp_path):
     paths = plots.plot_results(results, tmp_path)
     assert sorted(p.name for p in paths) == sorted(
         f"{kind}{suffix}" for kind in ("entropy", "parts", "knowledge")
-        for suffix in (".png", ".pdf"))
+        for suffix in (".png", ".pdf", ".csv"))
     _check_files(paths)
 
 
@@ -112,9 +114,13 @@ def test_figures_carry_a_caption_of_the_fixed_parameters(tmp_path):
     for make in (plots.entropy_figure, plots.parts_figure, plots.knowledge_figure):
         fig = make(rows, shown=["Delta"])
         text = _caption(fig).replace("\n", " ")
-        for part in ("model=xxz", "delta=0.5", "chi_max=64", "dt=0.05", "estimator=auto"):
+        for part in ("model=xxz", "delta=0.5"):
             assert part in text, (part, text)
         assert "Delta" not in text and "L=" not in text  # in the panel titles / legend
+        # numerical settings are kept in the files' metadata, not the caption
+        settings = json.loads(plots.figure_metadata(rows, "t", ["Delta"])["settings"])
+        for name, value in (("chi_max", 64), ("dt", 0.05), ("estimator", "auto")):
+            assert f"{name}=" not in text and settings[name] == value
     paths = plots.save_figure(plots.entropy_figure(rows, shown=["Delta"]), tmp_path / "e")
     _check_files(paths)
 
@@ -137,7 +143,7 @@ def test_disorder_mean_is_drawn_with_its_error():
     fig = plots.entropy_figure(results)
     assert "disorder mean over 5 realizations of field_seed" in _caption(fig).replace(
         "\n", " ")
-    label = sorted(LAWS)[0]
+    label = list(LAWS)[0]  # the first panel: spec order
     rows = results[(results.coarse_graining == label) & (results.L == 6)]
     mean = rows.groupby("t").S_obs.mean().to_numpy() / 6
     assert np.allclose(fig.axes[0].lines[0].get_ydata(), mean)
@@ -188,3 +194,162 @@ def test_collapse_of_disorder_means_says_so():
     assert (collapse.realizations == 5).all()
     fig = plots.collapse_figure(collapse)
     assert "disorder mean over 5 realizations" in _caption(fig).replace("\n", " ")
+
+
+# --------------------------------------------------------------------------- paper figures
+
+PAPER_LAWS = {
+    # listed in spec order, not alphabetical; reference values that nearly coincide
+    "number:b4": SaturationLaw(s_inf=0.55, c=-0.8, tau0=0.5, z=1.0, s_thermo=0.69,
+                               s_eq=0.6925),
+    "energy:b4,dE0.5>number:b4": SaturationLaw(s_inf=0.6, c=-0.5, tau0=0.3, z=1.0,
+                                               s_thermo=0.69, s_eq=0.692),
+}
+SETTINGS = {"model": ["xxz"], "delta": [0.5], "field": ["uniform"], "h": [0.0],
+            "field_seed": [3], "state": ["neel"], "chi_max": [64], "sample_budget": [2000],
+            "prune": [1e-12], "trust_rtol": [0.01]}
+
+
+def _paper(**options) -> pd.DataFrame:
+    return saturating_results((6, 10), np.linspace(0.0, 30.0, 31), PAPER_LAWS, stderr=0.02,
+                              seed=5, parameters=SETTINGS, **options)
+
+
+def test_coarse_graining_titles_in_words():
+    title = plots.coarse_graining_title
+    assert title("energy:b4,dE0.5>number:b4") == \
+        "energy of blocks of 4, bins of 0.5, then number"
+    assert title("number:b4") == "number of blocks of 4"
+    assert title("number:r0-32,32-64") == "number of regions 0-31, 32-63"
+    assert title("energy:r0-8,8-16,dE0.25") == "energy of regions 0-7, 8-15, bins of 0.25"
+    assert title("fine") == "configuration of single sites"
+    assert title("number:b2>energy:b4") == "number of blocks of 2, then energy of blocks of 4"
+    assert title("my regions") == "my regions"  # a label from the spec, as written
+
+
+def test_panels_follow_the_spec_order_with_readable_titles():
+    fig = plots.entropy_figure(_paper(), diagnostics=False)
+    titles = [ax.get_title() for ax in fig.axes]
+    assert titles == ["number of blocks of 4",
+                      "energy of blocks of 4, bins of 0.5, then number"]
+    data = plots.figure_data(_paper(), "entropy")
+    assert list(pd.unique(data.coarse_graining)) == list(PAPER_LAWS)
+
+
+def test_every_line_and_band_is_in_the_legend():
+    fig = plots.entropy_figure(_paper(trusted_until=20.0), diagnostics=False)
+    entries = [t.get_text() for t in fig.legends[1].get_texts()]
+    for words in ("S_\\mathrm{obs}/L", "total error", "S_\\mathrm{thermo}/L",
+                  "S_\\mathrm{obs}^\\mathrm{eq}/L", "t_\\mathrm{trusted}", "ln 2"):
+        assert any(words in e for e in entries), (words, entries)
+    ax = fig.axes[0]
+    # one band per L (the total error), one faint continuation per L
+    assert len(ax.collections) == 2
+    assert sum(line.get_alpha() == plots.UNTRUSTED_ALPHA for line in ax.lines) == 2
+    fig.canvas.draw()  # the legends fit inside the one-column figure
+    width = fig.bbox.width
+    for legend in fig.legends:
+        box = legend.get_window_extent()
+        assert 0 <= box.x0 and box.x1 <= width
+
+
+def test_reference_lines_are_named_apart_at_the_right_edge():
+    fig = plots.entropy_figure(_paper(), diagnostics=False)
+    fig.canvas.draw()
+    for ax in fig.axes:
+        names = {t.get_text(): t for t in ax.texts}
+        assert set(names) == {plots.THERMO_NAME, plots.EQUILIBRIUM_NAME, plots.MAX_NAME}
+        places = sorted(t.get_position()[1] for t in names.values())  # axes fraction
+        assert np.all(np.diff(places) >= plots.NAME_GAP - 1e-12)
+        # the lines stay at their values: ln 2 and S_thermo/L = 0.69 exactly
+        heights = {round(float(line.get_ydata()[-1]), 12) for line in ax.lines}
+        assert round(np.log(2.0), 12) in heights and 0.69 in heights
+
+
+def test_short_caption_and_full_settings_in_the_metadata():
+    results = _paper()
+    text = plots.caption(results).replace("\n", " ")
+    assert text == "model=xxz; delta=0.5; h=0; state=neel"
+    meta = plots.figure_metadata(results, "title")
+    settings = json.loads(meta["settings"])
+    assert settings["field_seed"] == 3 and settings["sample_budget"] == 2000
+    assert settings["prune"] == 1e-12 and settings["trust_rtol"] == 0.01
+    assert settings["L"] == [6, 10] and settings["coarse_graining"] == list(PAPER_LAWS)
+    # a random field keeps its seed in the caption
+    random = results.assign(field="random", h=1.0)
+    assert "field_seed=3" in plots.caption(random)
+
+
+def test_files_carry_the_metadata_and_the_drawn_data(tmp_path):
+    from PIL import Image
+
+    results = _paper()
+    paths = plots.plot_results(results, tmp_path)
+    png = Image.open(tmp_path / "entropy.png")
+    png.load()
+    settings = json.loads(png.text["mpsobs-settings"])
+    assert settings["sample_budget"] == 2000 and settings["field_seed"] == 3
+    assert png.text["Description"] == "model=xxz; delta=0.5; h=0; state=neel"
+    assert "energy of blocks of 4" in png.text["Title"]
+    pdf = (tmp_path / "entropy.pdf").read_bytes()
+    assert b"/Keywords" in pdf and b"sample_budget" in pdf and b"/Subject" in pdf
+    csv = pd.read_csv(tmp_path / "entropy.csv")
+    assert list(csv.columns) == ["coarse_graining", "L", "t", "S_obs_per_site",
+                                 "S_obs_total_err_per_site", "S_obs_err_per_site",
+                                 "S_thermo_per_site", "S_obs_eq_per_site", "S_max_per_site",
+                                 "S_ent_half_per_site", "discarded_weight"]
+    first = results[(results.coarse_graining == "number:b4") & (results.L == 6)]
+    mine = csv[(csv.coarse_graining == "number:b4") & (csv.L == 6)]
+    assert np.allclose(mine.S_obs_per_site, first.sort_values("t").S_obs / 6)
+    assert set(pd.read_csv(tmp_path / "knowledge.csv").columns) >= {
+        "knowledge_per_site", "S_obs_total_err_per_site"}
+    assert len(paths) == 9
+
+
+def test_the_band_is_the_total_error():
+    from mpsobs.analysis import uncertainty
+
+    results = _paper().assign(S_obs_trunc_err=0.05, pruned_mass=1e-4)
+    fig = plots.entropy_figure(results[results.L == 6], diagnostics=False)
+    band = fig.axes[0].collections[0].get_paths()[0].vertices[:, 1]
+    rows = results[(results.coarse_graining == "number:b4") & (results.L == 6)]
+    total = uncertainty.total_error(rows) / 6
+    y = rows.S_obs.to_numpy() / 6
+    assert band.max() == pytest.approx(np.max(y + total), rel=1e-12)
+    assert band.min() == pytest.approx(np.min(y - total), rel=1e-12)
+
+
+def test_options_choose_rows_scale_and_layout(tmp_path):
+    results = saturating_results((6, 8, 10), np.linspace(0.0, 30.0, 31), PAPER_LAWS,
+                                 stderr=0.02, seed=5, parameters=SETTINGS)
+    results.to_parquet(tmp_path / "results.parquet")
+    paths = workflow.plot(tmp_path, coarse=["number:b4"], where={"L": ["6", "10"]},
+                          per_site=False, diagnostics=True, separate=True)
+    assert sorted(p.name for p in paths) == sorted(
+        f"{kind}_number-b4{suffix}" for kind in ("entropy", "parts", "knowledge")
+        for suffix in (".png", ".pdf", ".csv"))
+    csv = pd.read_csv(tmp_path / "figures" / "entropy_number-b4.csv")
+    assert set(csv.L) == {6, 10} and set(csv.coarse_graining) == {"number:b4"}
+    assert "S_obs" in csv.columns and "S_obs_per_site" not in csv.columns
+    fig = plots.entropy_figure(results, per_site=False, diagnostics=True)
+    assert fig.axes[0].get_ylabel() == "entropy [nats]"
+    assert len(fig.axes) == len(PAPER_LAWS) + 2
+    assert len(plots.entropy_figure(results, diagnostics=False).axes) == len(PAPER_LAWS)
+    # both coarse-grainings, one figure each
+    both = plots.plot_results(results, tmp_path / "both", separate=True)
+    assert {p.stem for p in both} == {f"{kind}_{slug}" for kind in plots.KINDS
+                                     for slug in ("number-b4", "energy-b4-dE0.5-number-b4")}
+
+
+def test_bad_plot_choices_name_the_field_and_write_nothing(tmp_path, capsys):
+    from mpsobs import cli
+
+    _paper().to_parquet(tmp_path / "results.parquet")
+    for argv, words in ((["--coarse", "number:b9"], "coarse: unknown coarse-graining "
+                         "'number:b9'; the run has 'number:b4'"),
+                        (["--where", "L=7"], "where: L=7 is not in the run; values: 10, 6"),
+                        (["--where", "Delta=1"], "where: 'Delta' is not a parameter"),
+                        (["--where", "L"], "--where: expected NAME=VALUE")):
+        assert cli.main(["plot", str(tmp_path), *argv]) == 2
+        assert words in capsys.readouterr().err
+    assert not (tmp_path / "figures").exists()

@@ -398,3 +398,127 @@ def test_numbers_are_printed_to_the_precision_of_their_error():
     assert with_error(0.123456, 0.0123) == "0.123 +- 0.012"
     assert with_error(12.3456, 1.7) == "12.3 +- 1.7"
     assert with_error(0.65, 1e-17) == "0.65"  # exact up to rounding
+
+
+# --------------------------------------------------------------------------- saturation
+
+
+def _still_rising() -> pd.DataFrame:
+    # a number-block curve of relaxation time tau = 4 L still rising at t_max = 60 for
+    # L = 16 (tau = 64), far below its equilibrium value; known answer: not saturated
+    slow = {"number:b4": SaturationLaw(s_inf=0.69, c=0.0, tau0=4.0, z=1.0, s_eq=0.693)}
+    return saturating_results((8, 16), np.arange(0.0, 60.0, 0.5), slow, stderr=0.001,
+                              seed=3)
+
+
+def test_a_rising_curve_is_flagged_and_gets_no_saturation_time(caplog):
+    results = _still_rising()
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
+        table = scaling.scaling_table(results)
+    assert (table.plateau_status == scaling.RISING).all()
+    assert "has not saturated" in caplog.text and "S_obs_eq/L = 0.693" in caplog.text
+    # the true slope of the law at the window centre lies within the reported error
+    law = SaturationLaw(s_inf=0.69, c=0.0, tau0=4.0, z=1.0)
+    for row in table.itertuples():
+        centre = 0.5 * (row.window_start + row.t_last)
+        tau = law.relaxation_time(row.L)
+        truth = (law.s_inf - law.s_initial) / tau * np.exp(-centre / tau)
+        # a straight line through an exponential: its slope is the local slope up to
+        # the curvature over the window, (span/tau)^2 / 24 relative (Taylor, fact of
+        # the trade), which is below 1 % here; the noise part is within 4 sigma
+        curvature = truth * ((row.t_last - row.window_start) / tau) ** 2 / 24
+        assert abs(row.window_slope - truth) <= SIGMAS * row.window_slope_err + curvature
+    assert table.saturation_time.isna().all() and table.z.isna().all()
+    assert scaling.collapse_curves(results, table).empty
+    text = scaling.format_table(table)
+    assert "rising" in text and "undetermined (0 L)" in text
+
+
+def test_a_saturated_curve_is_not_flagged(caplog):
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
+        table = scaling.scaling_table(_results(STDERR))
+    assert (table.plateau_status == scaling.SATURATED).all()
+    assert "has not saturated" not in caplog.text
+    # pure noise around a constant: the slope is zero within 4 errors
+    assert np.all(np.abs(table.window_slope) <= SIGMAS * table.window_slope_err)
+
+
+def test_a_plateau_far_below_the_equilibrium_value_is_flagged(caplog):
+    law = {"number@b2": SaturationLaw(s_inf=0.55, c=0.0, tau0=0.5, z=1.0, s_eq=0.62)}
+    results = saturating_results((8, 12, 16), DISORDER_TIMES, law, stderr=STDERR, seed=4)
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
+        table = scaling.scaling_table(results)
+    assert (table.plateau_status == scaling.BELOW_EQUILIBRIUM).all()
+    assert "or not thermalizing" in caplog.text
+    expected = (0.62 - table.plateau_per_site) / np.hypot(table.plateau_total_err,
+                                                          table.eq_err)
+    assert np.allclose(table.eq_distance_sigmas, expected)
+    assert np.isfinite(table.saturation_time).all()  # levelled off: t_f is meaningful
+
+
+def test_exponent_from_two_lengths_is_undetermined(caplog):
+    results = _results(STDERR)
+    results = results[results.L.isin([8, 16])]
+    with caplog.at_level("WARNING", logger="mpsobs.analysis.scaling"):
+        table = scaling.scaling_table(results)
+    assert table.z.isna().all() and table.z_err.isna().all()
+    assert (table.z_note.str.contains("undetermined: 2 length")).all()
+    assert "a power law needs 3" in caplog.text
+    assert np.isfinite(table.saturation_time).all()
+    assert "undetermined (2 L)" in scaling.format_table(table)
+
+
+# --------------------------------------------------------------------------- total error
+
+
+def test_total_error_combines_the_parts_by_the_documented_rule():
+    from mpsobs.analysis import uncertainty
+    from mpsobs.estimators.estimate import pruned_entropy_bound
+
+    results = _results(STDERR).head(6).copy()
+    plain = uncertainty.total_error(results)
+    assert np.array_equal(plain, results.S_obs_err)  # older tables keep their error
+    results["S_obs_trunc_err"] = [0.03, np.nan, 0.0, 0.01, 0.02, 0.0]
+    results["S_obs_method_err"] = 0.04
+    results["pruned_mass"] = [0.0, 1e-6, 0.0, 0.0, 1e-3, 0.0]
+    total = uncertainty.with_total_error(results)[uncertainty.TOTAL].to_numpy()
+    quad = np.sqrt(results.S_obs_err**2 + np.nan_to_num(results.S_obs_trunc_err) ** 2
+                   + 0.04**2)
+    bound = [pruned_entropy_bound(m, s) for m, s in zip(results.pruned_mass,
+                                                        results.S_max, strict=True)]
+    assert np.allclose(total, quad + bound, rtol=1e-14)
+    # the pruning bound by hand: delta (S_max - ln delta), S_max = L ln 2
+    row = results.iloc[4]
+    assert bound[4] == pytest.approx(1e-3 * (row.L * np.log(2) + np.log(1e3)), rel=1e-14)
+
+
+def test_scale_uses_the_total_error():
+    results = _results(STDERR)
+    table = scaling.scaling_table(results)
+    assert np.allclose(table.plateau_total_err, table.plateau_err, rtol=1e-14)
+    systematic = results.assign(S_obs_trunc_err=0.002 * results.L,
+                                S_obs_method_err=0.001 * results.L)
+    wide = scaling.scaling_table(systematic)
+    # systematic errors do not average down over the window: sqrt(sum of squares)
+    assert np.allclose(wide.plateau_total_err,
+                       np.sqrt(table.plateau_err**2 + 0.002**2 + 0.001**2), rtol=1e-12)
+    assert np.all(wide.extrapolated_err > table.extrapolated_err)
+    assert np.allclose(wide.deficit_err, np.hypot(wide.plateau_total_err, wide.thermo_err))
+
+
+def test_scale_command_says_where_it_wrote(tmp_path, capsys):
+    from mpsobs import cli
+
+    _results(STDERR).to_parquet(tmp_path / "results.parquet")
+    assert cli.main(["scale", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    for path in workflow.scale_files(tmp_path):
+        assert f"wrote {path}" in out and path.is_file()
+
+
+def test_scale_of_curves_still_rising_writes_an_empty_collapse(tmp_path):
+    _still_rising().to_parquet(tmp_path / "results.parquet")
+    table = workflow.scale(tmp_path)
+    assert (table.plateau_status == scaling.RISING).all()
+    for path in workflow.scale_files(tmp_path):
+        assert path.stat().st_size > 0, path

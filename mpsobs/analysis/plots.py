@@ -1,33 +1,44 @@
-"""Figures of a run: observational entropy per site against time, for a paper.
+"""Figures of a run: observational entropy against time, for a paper.
 
-Every figure is one column wide (PANEL_WIDTH inches) with one panel per coarse-graining
-stacked vertically; each chain length L keeps one colour in every figure of a run
-(:func:`length_colors`). Entropies are per site in nats (natural logarithms), times in
-units of 1/J; shaded bands are +- one standard error. :func:`plot_results` makes one
-set of figures per combination of the parameters that vary within a coarse-graining
-(:func:`figure_parameters`), with the values in the file names and panel titles.
+Layout. One panel per coarse-graining, in the order of the spec (the order in which the
+labels first appear in the results table), and per value of the parameters shown in the
+panel titles, stacked in one column PANEL_WIDTH inches wide (a journal column); each
+chain length L keeps one colour in every figure of a run (:func:`length_colors`).
+Entropies are in nats (natural logarithms), per site (default) or total; times in
+units of 1/J. Panel titles describe the coarse-graining in words
+(:func:`coarse_graining_title`, e.g. "energy of blocks of 4, bins of 0.5, then
+number"); a label given in the spec is shown as written.
 
-Each figure says what was run: a caption line above the panels lists the parameters
-that are fixed in it (:func:`caption`: model, couplings, field, state, bond, dt,
-estimator ...). Disorder realizations (:func:`mpsobs.scaling.disorder_columns`) are
-averaged first (:func:`mpsobs.scaling.disorder_average`): the curves are disorder
-means and their bands the error of the mean. The entropy figure draws, per panel,
-S_thermo/L (dashed) and, where the table has it, the equilibrium value S_obs_eq/L
-(dash-dot), the S_obs of the Gibbs state for that coarse-graining; a lighter band
-+- S_obs_trunc_err/L shows the truncation error, and the curve is drawn faint beyond
-t_trusted. Two panels below show the half-chain entanglement S_ent/L and the
-cumulative discarded weight (log scale).
+Errors. Where the table marks disorder realizations the curves are disorder means
+(:func:`mpsobs.analysis.scaling.disorder_average`). The shaded band is +- the total
+error S_obs_total_err (:mod:`mpsobs.analysis.uncertainty`: sampling, truncation and
+method errors in quadrature plus the pruning bound); past t_trusted a curve is faint.
 
-The figure functions take the rows to draw, ``colors`` (L -> colour, default
-:func:`length_colors` of the rows) and ``shown`` (parameters that get panels of their
-own and appear in the panel titles, default :func:`figure_parameters` of the rows) and
-return a :class:`matplotlib.figure.Figure`. Figures are built on
-:class:`matplotlib.figure.Figure` with the Agg canvas, so no display is ever opened
-and pyplot's global state is left alone.
+References (entropy figure): S_thermo (dashed) and, where the table has it, S_obs_eq
+(dash-dot; the S_obs of the Gibbs state for that coarse-graining), per L in the
+length's colour, and the maximum ln 2 per site (dotted grey; L ln 2 per L for total
+entropies). Each reference is named at the right edge of its panel at its value for the
+largest L; the names are pushed apart where the lines nearly coincide, the lines are
+not moved. Every line style and band is in the legend below the panels.
+
+Caption and metadata. The caption above the panels names the model and initial state
+(:data:`CAPTION_PARAMETERS` that are fixed; a field seed only for a random field), the
+parameters tied to L and the disorder average; values that vary are in the legend and
+the panel titles. All settings of the rows (every parameter column, the
+coarse-graining labels, the mpsobs version) go into the files' metadata
+(:func:`figure_metadata`: PNG text chunks, PDF info dictionary) and the drawn numbers
+into a CSV beside each figure (:func:`figure_data`).
+
+The figure functions take the rows, ``colors`` (L -> colour, default
+:func:`length_colors` of the rows), ``shown`` (parameters that get panels of their own
+and appear in panel titles, default :func:`figure_parameters`) and ``per_site``; they
+return a :class:`matplotlib.figure.Figure` on the Agg canvas (no display is opened,
+pyplot's global state is left alone).
 """
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import textwrap
@@ -40,18 +51,25 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
-from mpsobs.analysis import scaling, trust
+from mpsobs.analysis import scaling, trust, uncertainty
+from mpsobs.core.errors import InputError
 from mpsobs.core.printing import with_error
+from mpsobs.core.version import __version__
 from mpsobs.pipeline import columns as col
+from mpsobs.pipeline.columns import parameter_columns
 from mpsobs.pipeline.store import atomic_write
 
 __all__ = [
-    "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "length_colors", "figure_parameters",
-    "caption", "entropy_figure", "parts_figure", "knowledge_figure", "collapse_figure",
-    "save_figure", "plot_results",
+    "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "KINDS", "CAPTION_PARAMETERS",
+    "length_colors", "figure_parameters", "coarse_graining_title", "coarse_order",
+    "caption", "figure_data", "figure_metadata", "select_rows", "entropy_figure",
+    "parts_figure", "knowledge_figure", "collapse_figure", "figure_files", "save_figure",
+    "plot_results",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Width of one panel in inches (a single journal column).
 PANEL_WIDTH = 3.4
@@ -68,22 +86,57 @@ PAPER_STYLE = {
 }
 
 TIME_LABEL = r"time $t$ [$1/J$]"
-#: Opacity of the error bands, of the truncation-error bands and of curves past t_trusted.
+#: Opacity of the error bands and of curves past t_trusted.
 BAND_ALPHA = 0.35
-TRUNCATION_ALPHA = 0.15
 UNTRUSTED_ALPHA = 0.35
 LN2_STYLE = {"color": "0.45", "linestyle": ":", "linewidth": 1.0}
+THERMO_STYLE = {"linestyle": "--", "linewidth": 0.8}
 EQUILIBRIUM_STYLE = {"linestyle": (0, (5, 1.5, 1, 1.5)), "linewidth": 0.9}
 #: Characters per caption line and caption font size (points).
 CAPTION_WIDTH = 62
 CAPTION_SIZE = 6.5
-#: Parameter columns left out of captions (bookkeeping, not physics).
-CAPTION_SKIP = ("block_size",)
+#: Font size of the reference names at the right edge (points) and their smallest
+#: vertical distance (axes fraction).
+NAME_SIZE = 6.0
+NAME_GAP = 0.09
+#: Parameter columns of the model and the initial state: the caption names those that
+#: are fixed in a figure (``pre_<name>`` too); every other setting is in the metadata.
+CAPTION_PARAMETERS = ("model", "J", "delta", "g", "field", "h", "field_seed", "state",
+                      "pattern", "number", "filling", "box_start", "box_stop", "box_from",
+                      "box_to", "fill", "state_seed", "draw")
+#: The figures of a run, in the order they are written.
+KINDS = ("entropy", "parts", "knowledge")
 
-_CURVE = (col.T, col.COARSE_GRAINING, col.LENGTH)
-ENTROPY_COLUMNS = (*_CURVE, col.S_OBS, col.S_OBS_ERR, col.S_THERMO, col.S_ENT_HALF)
-PARTS_COLUMNS = (*_CURVE, col.S_SHANNON, col.S_BOLTZMANN)
-KNOWLEDGE_COLUMNS = (*_CURVE, col.KNOWLEDGE, col.S_OBS_ERR, col.S_MAX, col.S_THERMO)
+ENTROPY_COLUMNS = ("t", "coarse_graining", "L", "S_obs", "S_obs_err", "S_thermo",
+                   "S_ent_half")
+PARTS_COLUMNS = ("t", "coarse_graining", "L", "S_shannon", "S_boltzmann")
+KNOWLEDGE_COLUMNS = ("t", "coarse_graining", "L", "knowledge", "S_obs_err", "S_max",
+                     "S_thermo")
+_NEEDED = {"entropy": ENTROPY_COLUMNS, "parts": PARTS_COLUMNS,
+           "knowledge": KNOWLEDGE_COLUMNS}
+#: Columns each figure draws (those present are written to its CSV).
+_DRAWN = {
+    "entropy": ("S_obs", uncertainty.TOTAL, uncertainty.STATISTICAL, *uncertainty.ESTIMATES,
+                uncertainty.PRUNED_MASS, col.TRUSTED_TIME, "S_thermo",
+                col.EQUILIBRIUM, "S_max", "S_ent_half", "discarded_weight"),
+    "parts": ("S_shannon", "S_shannon_err", "S_boltzmann", "S_boltzmann_err"),
+    "knowledge": ("knowledge", uncertainty.TOTAL, "S_max", "S_thermo", col.EQUILIBRIUM),
+}
+#: Entropy columns (nats) divided by L in per-site figures; their names then end in
+#: PER_SITE.
+EXTENSIVE = ("S_obs", uncertainty.TOTAL, uncertainty.STATISTICAL, *uncertainty.ESTIMATES,
+             "S_thermo", col.EQUILIBRIUM, "S_max", "S_ent_half", "S_shannon",
+             "S_shannon_err", "S_boltzmann", "S_boltzmann_err", "knowledge")
+PER_SITE = "_per_site"
+#: Columns that :func:`mpsobs.pipeline.columns.parameter_columns` counts as parameters
+#: but are not settings: made by the disorder average, or fixed by the coarse-graining.
+_NOT_PARAMETERS = ("S_obs_disorder_err", "S_obs_sampling_err", "realizations",
+                   "block_size")
+#: Words for the observables in coarse-graining labels.
+_OBSERVABLE_WORDS = {"number": "number", "energy": "energy", "fine": "configuration",
+                     "operator": "operator"}
+_LABEL_PART = re.compile(r"^(?P<obs>number|energy|fine|operator):"
+                         r"(?P<where>b\d+|r\d+-\d+(?:,\d+-\d+)*)(?:,dE(?P<dE>[^,>]+))?$")
 
 Draw = Callable[[object, pd.DataFrame, int, object], None]
 
@@ -92,8 +145,244 @@ def length_colors(lengths: Iterable[int]) -> dict[int, tuple]:
     """A colour per chain length, ordered along the viridis map (dark = small L)."""
     unique = sorted({int(L) for L in lengths})
     cmap = matplotlib.colormaps["viridis"]
-    positions = np.linspace(0.0, 0.85, len(unique)) if len(unique) > 1 else [0.35]
+    positions = np.linspace(0.0, 0.85, len(unique)) if len(unique) > 1 else [0.35] * len(unique)
     return {L: cmap(p) for L, p in zip(unique, positions, strict=True)}
+
+
+def _where_words(where: str) -> str:
+    if where.startswith("b"):
+        size = int(where[1:])
+        return "single sites" if size == 1 else f"blocks of {size}"
+    spans = [tuple(int(x) for x in span.split("-")) for span in where[1:].split(",")]
+    return "regions " + ", ".join(f"{a}-{b - 1}" for a, b in spans)
+
+
+def coarse_graining_title(label: str) -> str:
+    """A coarse-graining label in words: ``energy:b4,dE0.5>number:b4`` -> "energy of
+    blocks of 4, bins of 0.5, then number"; regions are named by their first and last
+    site ("number of regions 0-31, 32-63"). A label that is not of the form the
+    coarse-grainings generate (one given in the spec) is returned unchanged."""
+    if label == "fine":
+        return "configuration of single sites"
+    words, last_where = [], None
+    for index, part in enumerate(str(label).split(">")):
+        match = _LABEL_PART.match(part) if part != "fine" else _LABEL_PART.match("fine:b1")
+        if match is None:
+            return str(label)
+        text = _OBSERVABLE_WORDS[match["obs"]]
+        if match["where"] != last_where:
+            text += f" of {_where_words(match['where'])}"
+        if match["dE"] is not None:
+            text += f", bins of {match['dE']}"
+        words.append(text if index == 0 else f"then {text}")
+        last_where = match["where"]
+    return ", ".join(words)
+
+
+def coarse_order(results: pd.DataFrame) -> list[str]:
+    """The coarse-graining labels in the order of the spec: the order in which they
+    first appear in the table (a point writes its rows in spec order)."""
+    return [str(v) for v in pd.unique(results["coarse_graining"])]
+
+
+def _text(value: str) -> str:
+    """Text shown literally (no mathtext)."""
+    return str(value).replace("$", r"\$")
+
+
+def _title(key: Mapping[str, object], shown: Iterable[str]) -> str:
+    """Panel title: the coarse-graining in words, then the values of ``shown``."""
+    others = [f"{k} = {key[k]}" for k in shown if k in key and k != "coarse_graining"]
+    return _text(coarse_graining_title(str(key["coarse_graining"]))
+                 + (f" ({', '.join(others)})" if others else ""))
+
+
+def figure_parameters(results: pd.DataFrame) -> list[str]:
+    """Parameters that get figures of their own: those other than L (its companions and
+    the disorder labels) that vary within a coarse-graining."""
+    others = scaling.group_columns(results)[1:]
+    return scaling.varying_columns(results, others, within="coarse_graining")
+
+
+def _value(value) -> str:
+    return f"{value:g}" if isinstance(value, float | np.floating) else str(value)
+
+
+def _in_caption(name: str) -> bool:
+    return name in CAPTION_PARAMETERS or (name.startswith("pre_")
+                                          and name[4:] in CAPTION_PARAMETERS)
+
+
+def _irrelevant(name: str, fixed: Mapping[str, object]) -> bool:
+    """A model or state setting without effect: a field seed unless the field is random,
+    a zero field's shape, a state seed unless the state is a random product."""
+    prefix = "pre_" if name.startswith("pre_") else ""
+    base = name[len(prefix):]
+    if base == "field_seed":
+        return fixed.get(prefix + "field", "random") != "random"
+    if base == "field":
+        return fixed.get(prefix + "h", 1.0) == 0 and fixed[name] != "random"
+    if base in ("state_seed", "draw"):
+        return fixed.get("state", "random_product") != "random_product"
+    return False
+
+
+def caption(results: pd.DataFrame, shown: Sequence[str] = (),
+            parameters: Sequence[str] | None = None) -> str:
+    """The caption of a figure of ``results``: the model and initial state
+    (:data:`CAPTION_PARAMETERS` with one value in the rows, ``name=value``, table
+    order, leaving out settings without effect such as the seed of a uniform field),
+    the chain-length companions as ``name(L)`` lists and the disorder average. L, the
+    ``shown`` parameters (in panel titles) and the numerical settings (in the metadata,
+    :func:`figure_metadata`) are left out. ``parameters``: the columns to consider
+    (default :func:`mpsobs.analysis.scaling.group_columns`)."""
+    disorder = scaling.disorder_columns(results)
+    skip = {"L", "coarse_graining", *shown, *disorder}
+    companions = scaling.length_companions(results) if parameters is None else []
+    if parameters is None:
+        parameters = scaling.group_columns(results)
+    candidates = [c for c in parameters if c not in skip and _in_caption(c)]
+    varying = scaling.varying_columns(results, candidates)
+    fixed = {c: results[c].iloc[0] for c in candidates if c not in varying}
+    parts = [f"{c}={_value(v)}" for c, v in fixed.items() if not _irrelevant(c, fixed)]
+    for name in companions:
+        pairs = results[["L", name]].drop_duplicates().sort_values("L")
+        parts.append(f"{name}(L)=" + ",".join(_value(v) for v in pairs[name]))
+    counts = None
+    if disorder:
+        per_curve = results.groupby(scaling.group_columns(results) + ["L"], dropna=False)
+        counts = sorted({int(n) for n in per_curve[disorder].nunique().max(axis=1)})
+    elif "realizations" in results and results["realizations"].max() > 1:
+        counts = sorted({int(n) for n in results["realizations"]})
+    if counts:
+        span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
+        labels = f" of {', '.join(disorder)}" if disorder else ""
+        parts.append(f"disorder mean over {span} realizations{labels} "
+                     f"(band: error of the mean)")
+    return _text("\n".join(textwrap.wrap("; ".join(parts), CAPTION_WIDTH)))
+
+
+def _plain(value):
+    """A table value as a JSON-ready Python value."""
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def figure_metadata(results: pd.DataFrame, title: str, shown: Sequence[str] = ()
+                    ) -> dict[str, str]:
+    """What the files of a figure of ``results`` record: ``title``, the ``caption``
+    (:func:`caption`) and ``settings``, a JSON object of every parameter column (its
+    value, or the list of its values when it varies), the coarse-graining labels in
+    spec order and the mpsobs version that made the rows."""
+    settings: dict[str, object] = {}
+    for name in parameter_columns(results.columns):
+        if name in _NOT_PARAMETERS:
+            continue
+        values = list({repr(v): v for v in map(_plain, results[name])}.values())
+        settings[name] = values[0] if len(values) == 1 else values
+    settings["coarse_graining"] = coarse_order(results)
+    if "mpsobs_version" in results:
+        settings["mpsobs_version"] = sorted({str(v) for v in results["mpsobs_version"]})
+    settings["figure_by"] = f"mpsobs {__version__}"
+    return {"title": title, "caption": caption(results, shown).replace("\n", " "),
+            "settings": json.dumps(settings, default=str, sort_keys=True)}
+
+
+
+
+def _averaged(results: pd.DataFrame) -> pd.DataFrame:
+    """Disorder means when the rows have disorder labels, else the rows."""
+    return scaling.disorder_average(results) if scaling.disorder_columns(results) else results
+
+
+def _check_kind(kind: str) -> None:
+    if kind not in KINDS:
+        raise InputError(f"kind: unknown figure {kind!r}; allowed: {', '.join(KINDS)}")
+
+
+def figure_data(results: pd.DataFrame, kind: str = "entropy", *, per_site: bool = True,
+                shown: Sequence[str] = ()) -> pd.DataFrame:
+    """The numbers a figure of ``kind`` ("entropy", "parts", "knowledge") draws.
+
+    One row per (coarse-graining, varying parameters, L, t), coarse-grainings in spec
+    order: ``coarse_graining``, the parameter columns that vary in the rows or are
+    ``shown`` (in panel titles), ``L``,
+    ``t`` and the figure's columns present in the table (disorder means where the rows
+    are realizations; ``S_obs_total_err`` added, :mod:`mpsobs.analysis.uncertainty`).
+    With ``per_site`` the entropy columns (:data:`EXTENSIVE`) are divided by L and
+    named ``<column>_per_site``.
+    """
+    _check_kind(kind)
+    scaling.require_columns(results, _NEEDED[kind], f"{kind} figure")
+    data = uncertainty.with_total_error(_averaged(results))
+    params = [c for c in scaling.group_columns(results)[1:] if c in data]
+    varying = [c for c in params if c in shown or c in scaling.varying_columns(data, params)]
+    drawn = [c for c in _DRAWN[kind] if c in data]
+    out = data[["coarse_graining", *varying, "L", "t", *drawn]].copy()
+    if per_site:
+        length = out["L"].to_numpy(dtype=float)
+        for name in drawn:
+            if name in EXTENSIVE:
+                out[name] = out[name].to_numpy(dtype=float) / length
+        out = out.rename(columns={c: c + PER_SITE for c in drawn if c in EXTENSIVE})
+    order = {label: i for i, label in enumerate(coarse_order(results))}
+    out["_order"] = out["coarse_graining"].map(order)
+    out = out.sort_values(["_order", *varying, "L", "t"], kind="stable")
+    return out.drop(columns="_order").reset_index(drop=True)
+
+
+def _matches(column: pd.Series, wanted) -> np.ndarray:
+    """Rows of ``column`` equal to ``wanted`` (text compared as a number where the
+    column is numeric)."""
+    if pd.api.types.is_numeric_dtype(column) and not pd.api.types.is_bool_dtype(column):
+        try:
+            number = float(wanted)
+        except (TypeError, ValueError):
+            return np.zeros(len(column), dtype=bool)
+        return np.isclose(column.to_numpy(dtype=float), number, rtol=1e-12, atol=0.0)
+    return (column.astype(str) == str(wanted)).to_numpy()
+
+
+def select_rows(results: pd.DataFrame, *, coarse: Sequence[str] | None = None,
+                where: Mapping[str, Sequence] | None = None) -> pd.DataFrame:
+    """The rows of the coarse-grainings ``coarse`` (labels; default all) whose parameter
+    columns take one of the given values, ``where`` = {name: values} (e.g.
+    {"L": [32, 48]}; text values are compared as numbers in numeric columns). Raises
+    InputError naming an unknown label, parameter or value with the allowed ones."""
+    rows = results
+    if coarse:
+        labels = coarse_order(results)
+        unknown = [c for c in coarse if c not in labels]
+        if unknown:
+            raise InputError(f"coarse: unknown coarse-graining {', '.join(map(repr, unknown))}"
+                             f"; the run has {', '.join(map(repr, labels))}")
+        rows = rows[rows["coarse_graining"].isin(list(coarse))]
+    parameters = [c for c in parameter_columns(results.columns) if c not in _NOT_PARAMETERS]
+    for name, values in (where or {}).items():
+        if name not in parameters:
+            raise InputError(f"where: {name!r} is not a parameter of the run; parameters: "
+                             f"{', '.join(parameters)}")
+        present = sorted({_value(_plain(v)) for v in results[name]})
+        keep = np.zeros(len(rows), dtype=bool)
+        for value in values:
+            hit = _matches(rows[name], value)
+            if not _matches(results[name], value).any():
+                raise InputError(f"where: {name}={value} is not in the run; values: "
+                                 f"{', '.join(present)}")
+            keep |= hit
+        rows = rows[keep]
+    if rows.empty:
+        raise InputError("where: no rows have all the chosen values together")
+    return rows
+
+
+def _column(curve: pd.DataFrame, name: str, per_site: bool) -> np.ndarray | None:
+    """A drawn column of :func:`figure_data` output (None when absent)."""
+    key = name + PER_SITE if per_site and name in EXTENSIVE else name
+    return curve[key].to_numpy(dtype=float) if key in curve else None
 
 
 def _band(ax, t, y, err, color, linestyle="-", trusted=None) -> None:
@@ -110,19 +399,9 @@ def _band(ax, t, y, err, color, linestyle="-", trusted=None) -> None:
         ax.fill_between(t, y - err, y + err, color=color, alpha=BAND_ALPHA, linewidth=0)
 
 
-def _column(curve: pd.DataFrame, name: str) -> np.ndarray | None:
-    return curve[name].to_numpy(dtype=float) if name in curve else None
-
-
-def _text(value: str) -> str:
-    """Text shown literally (no mathtext)."""
-    return str(value).replace("$", r"\$")
-
-
-def _legend(fig: Figure, colors: Mapping[int, tuple], styles: list[Line2D],
-            text: str = "") -> None:
+def _legend(fig: Figure, colors: Mapping[int, tuple], styles: list, text: str = "") -> None:
     """The caption ``text`` and the colours per L above the panels (one legend, so that
-    the layout keeps them apart), line styles below them."""
+    the layout keeps them apart), line styles and bands below them."""
     lengths = [Line2D([], [], color=c, label=f"$L={L}$") for L, c in colors.items()]
     fig.legend(handles=lengths, loc="outside upper center", ncols=min(5, len(lengths)),
                handlelength=1.5, columnspacing=1.0, title=text or None,
@@ -133,72 +412,36 @@ def _legend(fig: Figure, colors: Mapping[int, tuple], styles: list[Line2D],
                    handlelength=2.2, columnspacing=1.2)
 
 
-def _title(key: Mapping[str, object], shown: Iterable[str]) -> str:
-    """Panel title: the coarse-graining, then the values of the ``shown`` parameters."""
-    others = [f"{k} = {key[k]}" for k in shown if k in key and k != "coarse_graining"]
-    return _text(str(key["coarse_graining"]) + (f" ({', '.join(others)})" if others else ""))
+def _style(label: str, **line) -> Line2D:
+    return Line2D([], [], color=line.pop("color", "0.2"), label=label, **line)
 
 
-def figure_parameters(results: pd.DataFrame) -> list[str]:
-    """Parameters that get figures of their own: those other than L (its companions and
-    the disorder labels) that vary within a coarse-graining."""
-    others = scaling.group_columns(results)[1:]
-    return scaling.varying_columns(results, others, within="coarse_graining")
+def _band_style(label: str) -> Patch:
+    return Patch(facecolor="0.2", alpha=BAND_ALPHA, linewidth=0, label=label)
 
 
-def _value(value) -> str:
-    return f"{value:g}" if isinstance(value, float | np.floating) else str(value)
+def _panels(data: pd.DataFrame, shown: Sequence[str], order: Sequence[str]
+            ) -> list[tuple[dict, pd.DataFrame]]:
+    """(key, rows) per panel: coarse-grainings in ``order``, then the ``shown`` values."""
+    rank = {label: i for i, label in enumerate(order)}
+    panels = scaling.split(data, ["coarse_graining", *shown])
+    return sorted(panels, key=lambda item: rank.get(item[0]["coarse_graining"], len(rank)))
 
 
-def caption(results: pd.DataFrame, shown: Sequence[str] = (),
-            parameters: Sequence[str] | None = None) -> str:
-    """What a figure of ``results`` shows, for its caption line: every parameter column
-    (default :func:`mpsobs.scaling.group_columns`; or ``parameters``) with one value in
-    the rows (``name=value``, table order), the chain-length companions as ``name(L)``
-    lists, and the disorder average (realizations and their labels). ``shown``
-    parameters (in panel titles) and L are left out."""
-    disorder = scaling.disorder_columns(results)
-    skip = {"L", "coarse_graining", *shown, *disorder, *CAPTION_SKIP}
-    companions = scaling.length_companions(results) if parameters is None else []
-    if parameters is None:
-        parameters = scaling.group_columns(results)
-    candidates = [c for c in parameters if c not in skip]
-    fixed = [c for c in candidates if c not in scaling.varying_columns(results, candidates)]
-    parts = [f"{c}={_value(results[c].iloc[0])}" for c in fixed]
-    for name in companions:
-        pairs = results[["L", name]].drop_duplicates().sort_values("L")
-        parts.append(f"{name}(L)=" + ",".join(_value(v) for v in pairs[name]))
-    if disorder:
-        per_curve = results.groupby(scaling.group_columns(results) + ["L"], dropna=False)
-        counts = sorted({int(n) for n in per_curve[disorder].nunique().max(axis=1)})
-        span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
-        parts.append(f"disorder mean over {span} realizations of {', '.join(disorder)} "
-                     f"(band: error of the mean)")
-    elif "realizations" in results and results["realizations"].max() > 1:
-        counts = sorted({int(n) for n in results["realizations"]})
-        span = str(counts[0]) if len(counts) == 1 else f"{counts[0]}-{counts[-1]}"
-        parts.append(f"disorder mean over {span} realizations")
-    return _text("\n".join(textwrap.wrap("; ".join(parts), CAPTION_WIDTH)))
-
-
-def _averaged(results: pd.DataFrame) -> pd.DataFrame:
-    """Disorder means when the rows have disorder labels, else the rows."""
-    return scaling.disorder_average(results) if scaling.disorder_columns(results) else results
-
-
-def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None,
-                  shown: Sequence[str] | None, draw: Draw, ylabel: str, styles: list[Line2D],
+def _panel_figure(results: pd.DataFrame, data: pd.DataFrame,
+                  colors: Mapping[int, tuple] | None, shown: Sequence[str] | None,
+                  draw: Draw, ylabel: str, styles: list,
                   decorate: Callable[[object], None] | None = None,
-                  diagnostics: bool = False) -> Figure:
-    """One panel per coarse-graining and value of the ``shown`` parameters (default
-    :func:`figure_parameters`), with ``draw(ax, curve, L, colour)`` per chain length,
-    then ``decorate(ax)``; a caption line (:func:`caption`) on top; with
-    ``diagnostics`` two small panels below: S_ent/L and the discarded weight."""
+                  diagnostics: bool = False, per_site: bool = True) -> Figure:
+    """One panel per coarse-graining (spec order) and value of the ``shown`` parameters
+    (default :func:`figure_parameters`), with ``draw(ax, curve, L, colour)`` per chain
+    length of ``data`` (:func:`figure_data`), then ``decorate(ax)``; the caption
+    (:func:`caption` of ``results``) on top; with ``diagnostics`` two small panels
+    below: the half-chain entanglement and the discarded weight."""
     colors = dict(colors) if colors is not None else length_colors(results["L"])
     shown = list(shown) if shown is not None else figure_parameters(results)
     text = caption(results, shown)
-    data = _averaged(results)
-    panels = scaling.split(data, ["coarse_graining", *shown])
+    panels = _panels(data, shown, coarse_order(results))
     extra = 2 if diagnostics else 0
     heights = [PANEL_HEIGHT] * len(panels) + [SMALL_PANEL_HEIGHT] * extra
     with matplotlib.rc_context(PAPER_STYLE):
@@ -215,7 +458,7 @@ def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None,
             ax.set_title(_title(key, shown))
             ax.set_ylabel(ylabel)
         if diagnostics:
-            _diagnostics(axes[-2], axes[-1], data, colors)
+            _diagnostics(axes[-2], axes[-1], data, colors, per_site)
         axes[-1].set_xlim(data["t"].min(), data["t"].max())
         axes[-1].set_xlabel(TIME_LABEL)
         _legend(fig, {L: colors[L] for L in sorted(colors) if L in set(data["L"])}, styles,
@@ -223,21 +466,22 @@ def _panel_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None,
     return fig
 
 
-def _diagnostics(ent_ax, weight_ax, data: pd.DataFrame, colors: Mapping[int, tuple]) -> None:
-    """Half-chain entanglement per site and cumulative discarded weight against time,
-    per L (state properties: taken from the first coarse-graining's rows)."""
+def _diagnostics(ent_ax, weight_ax, data: pd.DataFrame, colors: Mapping[int, tuple],
+                 per_site: bool) -> None:
+    """Half-chain entanglement (per site or total) and cumulative discarded weight
+    against time, per L (state properties: taken from the first coarse-graining's
+    rows)."""
     first = data[data["coarse_graining"] == data["coarse_graining"].iloc[0]]
     weights = False
     for (L,), curve in first.groupby(["L"], sort=True):
         curve = curve.sort_values("t")
         t = curve["t"].to_numpy(dtype=float)
-        ent_ax.plot(t, curve["S_ent_half"].to_numpy(dtype=float) / L, color=colors[int(L)])
-        if "discarded_weight" in curve:
-            w = curve["discarded_weight"].to_numpy(dtype=float)
-            if np.any(w > 0):
-                weight_ax.plot(t, np.where(w > 0, w, np.nan), color=colors[int(L)])
-                weights = True
-    ent_ax.set_ylabel(r"$S_\mathrm{ent}^{L/2}/L$")
+        ent_ax.plot(t, _column(curve, "S_ent_half", per_site), color=colors[int(L)])
+        w = _column(curve, "discarded_weight", per_site)
+        if w is not None and np.any(w > 0):
+            weight_ax.plot(t, np.where(w > 0, w, np.nan), color=colors[int(L)])
+            weights = True
+    ent_ax.set_ylabel(r"$S_\mathrm{ent}^{L/2}" + ("/L$" if per_site else "$"))
     weight_ax.set_ylabel("discarded\nweight")
     if weights:
         weight_ax.set_yscale("log")
@@ -246,112 +490,172 @@ def _diagnostics(ent_ax, weight_ax, data: pd.DataFrame, colors: Mapping[int, tup
                        va="center", transform=weight_ax.transAxes, color="0.4")
 
 
-def _has_equilibrium(results: pd.DataFrame) -> bool:
-    """Whether the rows carry an equilibrium value S_obs_eq (some finite)."""
-    return col.EQUILIBRIUM in results and bool(
-        np.isfinite(results[col.EQUILIBRIUM].to_numpy(dtype=float)).any())
+def _name_references(ax, values: Mapping[str, float]) -> None:
+    """Name each reference line at the right edge of ``ax`` at its value (data units);
+    names closer than NAME_GAP (axes fraction) are pushed apart, with a thin leader to
+    the line's true height; the lines themselves are not moved."""
+    low, high = ax.get_ylim()
+    items = sorted(((v - low) / (high - low), name, v) for name, v in values.items()
+                   if np.isfinite(v))
+    places: list[float] = []
+    for fraction, _, _ in items:
+        places.append(fraction if not places else max(fraction, places[-1] + NAME_GAP))
+    overflow = places[-1] - 1.0 if places else 0.0
+    if overflow > 0:
+        places = [p - overflow for p in places]
+    for (_, name, value), place in zip(items, places, strict=True):
+        ax.annotate(name, xy=(1.0, value), xycoords=("axes fraction", "data"),
+                    xytext=(1.04, place), textcoords="axes fraction", fontsize=NAME_SIZE,
+                    color="0.25", va="center", ha="left", annotation_clip=False,
+                    arrowprops={"arrowstyle": "-", "color": "0.6", "linewidth": 0.4,
+                                "shrinkA": 0, "shrinkB": 0})
 
 
-def _style(label: str, **line) -> Line2D:
-    return Line2D([], [], color=line.pop("color", "0.2"), label=label, **line)
+def _trusted_time(curve: pd.DataFrame) -> float | None:
+    if col.TRUSTED_TIME not in curve:
+        return None
+    limits = curve[col.TRUSTED_TIME].to_numpy(dtype=float)
+    return float(np.min(np.where(np.isnan(limits), np.inf, limits)))
+
+
+#: Names of the reference lines at the right edge of the entropy panels.
+THERMO_NAME = r"$S_\mathrm{thermo}$"
+EQUILIBRIUM_NAME = r"$S_\mathrm{obs}^\mathrm{eq}$"
+MAX_NAME = r"$\ln 2$"
+TOTAL_MAX_NAME = r"$L \ln 2$"
 
 
 def entropy_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
-                   shown: Sequence[str] | None = None) -> Figure:
-    """S_obs(t)/L per L with error bands, S_thermo/L (dashed), S_obs_eq/L (dash-dot,
-    where present), the truncation error (light band, faint curve past t_trusted) and
-    the maximum ln 2 per site (dotted); one panel per coarse-graining, then the
-    half-chain entanglement and the discarded weight."""
-    scaling.require_columns(results, ENTROPY_COLUMNS, "entropy figure")
-    has_eq = _has_equilibrium(results)
-    has_trunc = col.TRUNCATION_ERROR in results
-    trusted_range: dict[int, list[float]] = {}  # per panel: values on trusted times
+                   shown: Sequence[str] | None = None, *, per_site: bool = True,
+                   diagnostics: bool = True) -> Figure:
+    """S_obs(t) per L with its total-error band, S_thermo (dashed), S_obs_eq (dash-dot,
+    where present), curves faint past t_trusted, and the maximum (ln 2 per site, dotted;
+    L ln 2 per L for total entropies), references named at the right edge; one panel
+    per coarse-graining, then (``diagnostics``) the half-chain entanglement and the
+    discarded weight."""
+    shown = list(shown) if shown is not None else figure_parameters(results)
+    data = figure_data(results, "entropy", per_site=per_site, shown=shown)
+    has_eq = _column(data, col.EQUILIBRIUM, per_site) is not None and bool(
+        np.isfinite(_column(data, col.EQUILIBRIUM, per_site)).any())
+    faint = col.TRUSTED_TIME in data and bool(
+        (data["t"] > data[col.TRUSTED_TIME].fillna(np.inf)).any())
+    shown_range: dict[int, list[float]] = {}  # per panel: values on trusted times
+    names: dict[int, dict[str, float]] = {}   # per panel: reference -> value, largest L
 
     def draw(ax, curve, L, color):
         t = curve["t"].to_numpy(dtype=float)
-        y = curve["S_obs"].to_numpy(dtype=float) / L
-        trusted = None
-        if col.TRUSTED_TIME in curve:
-            limits = curve[col.TRUSTED_TIME].to_numpy(dtype=float)
-            trusted = float(np.min(np.where(np.isnan(limits), np.inf, limits)))
-        if has_trunc:
-            trunc = np.nan_to_num(curve[col.TRUNCATION_ERROR].to_numpy(dtype=float)) / L
-            ax.fill_between(t, y - trunc, y + trunc, color=color, alpha=TRUNCATION_ALPHA,
-                            linewidth=0)
-        err = curve["S_obs_err"].to_numpy(dtype=float) / L
+        y = _column(curve, "S_obs", per_site)
+        err = _column(curve, uncertainty.TOTAL, per_site)
+        trusted = _trusted_time(curve)
         _band(ax, t, y, err, color, trusted=trusted)
-        thermo = curve["S_thermo"].to_numpy(dtype=float) / L
-        ax.plot(t, thermo, color=color, linestyle="--", linewidth=0.8)
+        thermo = _column(curve, "S_thermo", per_site)
+        ax.plot(t, thermo, color=color, **THERMO_STYLE)
         inside = t <= (np.inf if trusted is None else trusted)
-        shown_values = [y[inside] - err[inside], y[inside] + err[inside], thermo]
+        values = [y[inside] - err[inside], y[inside] + err[inside], thermo]
+        refs = names.setdefault(id(ax), {})
+        refs[THERMO_NAME] = float(thermo[-1])
         if has_eq:
-            eq = curve[col.EQUILIBRIUM].to_numpy(dtype=float) / L
+            eq = _column(curve, col.EQUILIBRIUM, per_site)
             ax.plot(t, eq, color=color, **EQUILIBRIUM_STYLE)
-            shown_values.append(eq)
-        trusted_range.setdefault(id(ax), []).extend(
-            float(v) for v in np.concatenate(shown_values) if np.isfinite(v))
+            values.append(eq)
+            refs[EQUILIBRIUM_NAME] = float(eq[-1])
+        if not per_site:
+            top = _column(curve, "S_max", per_site)
+            ax.plot(t, top, color=color, **{k: v for k, v in LN2_STYLE.items()
+                                             if k != "color"})
+            values.append(top)
+            refs[TOTAL_MAX_NAME] = float(top[-1])
+        shown_range.setdefault(id(ax), []).extend(
+            float(v) for v in np.concatenate(values) if np.isfinite(v))
 
-    def ln2(ax):
-        ax.axhline(np.log(2.0), **LN2_STYLE)
-        values = [*trusted_range.get(id(ax), []), np.log(2.0)]
+    def decorate(ax):
+        values = shown_range.get(id(ax), [])
+        if per_site:
+            ax.axhline(np.log(2.0), **LN2_STYLE)
+            names.setdefault(id(ax), {})[MAX_NAME] = float(np.log(2.0))
+            values = [*values, np.log(2.0)]
         low, high = min(values), max(values)
         margin = 0.05 * (high - low or 1.0)
         ax.set_ylim(low - margin, high + margin)  # what goes wrong past t_trusted may leave
+        _name_references(ax, names.get(id(ax), {}))
 
-    styles = [_style(r"$S_\mathrm{obs}/L$"), _style(r"$S_\mathrm{thermo}/L$", linestyle="--")]
+    per = "/L" if per_site else ""
+    styles = [_style(rf"$S_\mathrm{{obs}}{per}$"),
+              _band_style(r"$\pm$ total error"),
+              _style(rf"$S_\mathrm{{thermo}}{per}$ (Gibbs)", **THERMO_STYLE)]
     if has_eq:
-        styles.append(_style(r"$S_\mathrm{obs}^\mathrm{eq}/L$ (Gibbs state)",
+        styles.append(_style(rf"$S_\mathrm{{obs}}^\mathrm{{eq}}{per}$ (Gibbs state)",
                              **EQUILIBRIUM_STYLE))
-    if has_trunc:
-        styles.append(_style("truncation error (light band;\nfaint beyond trusted time)",
-                             linewidth=5, alpha=0.3))
-    styles.append(_style(r"$\ln 2$", **LN2_STYLE))
-    return _panel_figure(results, colors, shown, draw, "entropy per site [nats]", styles,
-                         ln2, diagnostics=True)
+    if faint:
+        styles.append(_style(r"past $t_\mathrm{trusted}$ (truncation)",
+                             alpha=UNTRUSTED_ALPHA))
+    styles.append(_style(r"max. $\ln 2$" if per_site else r"max. $L \ln 2$", **LN2_STYLE))
+    ylabel = "entropy per site [nats]" if per_site else "entropy [nats]"
+    return _panel_figure(results, data, colors, shown, draw, ylabel, styles, decorate,
+                         diagnostics=diagnostics, per_site=per_site)
 
 
 def parts_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
-                 shown: Sequence[str] | None = None) -> Figure:
-    """Shannon part H(p)/L (solid) and mean Boltzmann entropy sum p ln V / L (dashed)
-    per L, with error bands where S_shannon_err / S_boltzmann_err are present."""
-    scaling.require_columns(results, PARTS_COLUMNS, "parts figure")
+                 shown: Sequence[str] | None = None, *, per_site: bool = True) -> Figure:
+    """Shannon part H(p) (solid) and mean Boltzmann entropy sum p ln V (dashed) per L,
+    per site or total, with error bands where S_shannon_err / S_boltzmann_err are
+    present."""
+    shown = list(shown) if shown is not None else figure_parameters(results)
+    data = figure_data(results, "parts", per_site=per_site, shown=shown)
+    banded = False
 
     def draw(ax, curve, L, color):
+        nonlocal banded
         t = curve["t"].to_numpy(dtype=float)
         for name, linestyle in (("S_shannon", "-"), ("S_boltzmann", "--")):
-            err = _column(curve, f"{name}_err")
-            _band(ax, t, curve[name].to_numpy(dtype=float) / L,
-                  None if err is None else err / L, color, linestyle)
+            err = _column(curve, f"{name}_err", per_site)
+            banded |= err is not None and bool(np.any(err > 0))
+            _band(ax, t, _column(curve, name, per_site), err, color, linestyle)
 
-    styles = [_style(r"Shannon $H(p)/L$"),
-              _style(r"Boltzmann $\sum p_i \ln V_i/L$", linestyle="--")]
-    return _panel_figure(results, colors, shown, draw, "entropy per site [nats]", styles)
+    per = "/L" if per_site else ""
+    # the band entry depends on the data: drawn first, legend made after the panels
+    fig = _panel_figure(results, data, colors, shown, draw,
+                        "entropy per site [nats]" if per_site else "entropy [nats]", [],
+                        per_site=per_site)
+    styles = [_style(rf"Shannon $H(p){per}$"),
+              _style(rf"Boltzmann $\sum p_i \ln V_i{per}$", linestyle="--")]
+    if banded:
+        styles.append(_band_style(r"$\pm$ standard error"))
+    with matplotlib.rc_context(PAPER_STYLE):
+        fig.legend(handles=styles, loc="outside lower center", ncols=2, handlelength=2.2,
+                   columnspacing=1.2)
+    return fig
 
 
 def knowledge_figure(results: pd.DataFrame, colors: Mapping[int, tuple] | None = None,
-                     shown: Sequence[str] | None = None) -> Figure:
-    """Knowledge K/L = (S_max - S_obs)/L per L with error bands (error S_obs_err/L), its
-    thermodynamic value (S_max - S_thermo)/L (dashed) and, where present, its
-    equilibrium value (S_max - S_obs_eq)/L (dash-dot)."""
-    scaling.require_columns(results, KNOWLEDGE_COLUMNS, "knowledge figure")
-    has_eq = _has_equilibrium(results)
+                     shown: Sequence[str] | None = None, *, per_site: bool = True) -> Figure:
+    """Knowledge K = S_max - S_obs per L with its total-error band, its thermodynamic
+    value S_max - S_thermo (dashed) and, where present, its equilibrium value
+    S_max - S_obs_eq (dash-dot); per site or total."""
+    shown = list(shown) if shown is not None else figure_parameters(results)
+    data = figure_data(results, "knowledge", per_site=per_site, shown=shown)
+    has_eq = _column(data, col.EQUILIBRIUM, per_site) is not None and bool(
+        np.isfinite(_column(data, col.EQUILIBRIUM, per_site)).any())
 
     def draw(ax, curve, L, color):
         t = curve["t"].to_numpy(dtype=float)
-        _band(ax, t, curve["knowledge"].to_numpy(dtype=float) / L,
-              curve["S_obs_err"].to_numpy(dtype=float) / L, color)
-        thermal = (curve["S_max"] - curve["S_thermo"]).to_numpy(dtype=float) / L
-        ax.plot(t, thermal, color=color, linestyle="--", linewidth=0.8)
+        top = _column(curve, "S_max", per_site)
+        _band(ax, t, _column(curve, "knowledge", per_site),
+              _column(curve, uncertainty.TOTAL, per_site), color)
+        ax.plot(t, top - _column(curve, "S_thermo", per_site), color=color, **THERMO_STYLE)
         if has_eq:
-            eq = (curve["S_max"] - curve[col.EQUILIBRIUM]).to_numpy(dtype=float) / L
-            ax.plot(t, eq, color=color, **EQUILIBRIUM_STYLE)
+            ax.plot(t, top - _column(curve, col.EQUILIBRIUM, per_site), color=color,
+                    **EQUILIBRIUM_STYLE)
 
-    styles = [_style(r"$K/L$"),
-              _style(r"$(S_\mathrm{max}-S_\mathrm{thermo})/L$", linestyle="--")]
+    per = "/L" if per_site else ""
+    styles = [_style(rf"$K{per}$"), _band_style(r"$\pm$ total error"),
+              _style(rf"$(S_\mathrm{{max}}-S_\mathrm{{thermo}}){per}$", **THERMO_STYLE)]
     if has_eq:
-        styles.append(_style(r"$(S_\mathrm{max}-S_\mathrm{obs}^\mathrm{eq})/L$",
+        styles.append(_style(rf"$(S_\mathrm{{max}}-S_\mathrm{{obs}}^\mathrm{{eq}}){per}$",
                              **EQUILIBRIUM_STYLE))
-    return _panel_figure(results, colors, shown, draw, "knowledge per site [nats]", styles)
+    ylabel = "knowledge per site [nats]" if per_site else "knowledge [nats]"
+    return _panel_figure(results, data, colors, shown, draw, ylabel, styles,
+                         per_site=per_site)
 
 
 def _log_time_axis(ax) -> None:
@@ -375,7 +679,15 @@ def collapse_figure(collapse: pd.DataFrame,
     keys = scaling.key_columns(collapse)
     shown = scaling.varying_columns(collapse, [k for k in keys if k != "coarse_graining"],
                                     within="coarse_graining")
-    panels = scaling.split(collapse, keys)
+    panels = scaling.split(collapse, keys) if not collapse.empty else []
+    if not panels:
+        with matplotlib.rc_context(PAPER_STYLE):
+            fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT), layout="constrained")
+            FigureCanvasAgg(fig)
+            ax = fig.subplots()
+            ax.set_axis_off()
+            ax.text(0.5, 0.5, "no saturated curve to collapse", ha="center", va="center")
+        return fig
     ncols = 1 if len(panels) <= 3 else 2
     nrows = -(-len(panels) // ncols)
     with matplotlib.rc_context(PAPER_STYLE):
@@ -407,44 +719,109 @@ def collapse_figure(collapse: pd.DataFrame,
     return fig
 
 
-def save_figure(fig: Figure, stem: str | os.PathLike) -> list[Path]:
-    """Write ``stem``.png and ``stem``.pdf (creating the directory); return the paths."""
+def figure_files(stem: str | os.PathLike) -> list[Path]:
+    """The image files :func:`save_figure` writes for ``stem``: ``stem``.png and .pdf."""
     stem = Path(stem)
-    stem.parent.mkdir(parents=True, exist_ok=True)
-    paths = [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
+    return [stem.with_name(stem.name + suffix) for suffix in (".png", ".pdf")]
+
+
+def _file_metadata(metadata: Mapping[str, str], suffix: str) -> dict[str, str]:
+    """:func:`figure_metadata` as the keys of a PNG (text chunks) or a PDF (info
+    dictionary: standard keys only)."""
+    creator = f"mpsobs {__version__}"
+    if suffix == ".png":
+        return {"Title": metadata["title"], "Description": metadata["caption"],
+                "Software": creator, "mpsobs-settings": metadata["settings"]}
+    return {"Title": metadata["title"], "Subject": metadata["caption"],
+            "Keywords": metadata["settings"], "Creator": creator}
+
+
+def save_figure(fig: Figure, stem: str | os.PathLike, *,
+                metadata: Mapping[str, str] | None = None,
+                data: pd.DataFrame | None = None) -> list[Path]:
+    """Write ``stem``.png and ``stem``.pdf (creating the directory), with ``metadata``
+    (:func:`figure_metadata`) in the files, and ``data`` as ``stem``.csv; return the
+    paths written."""
+    paths = figure_files(stem)
+    paths[0].parent.mkdir(parents=True, exist_ok=True)
     with matplotlib.rc_context(PAPER_STYLE):
         for path in paths:
             with atomic_write(path) as tmp:
-                fig.savefig(tmp, format=path.suffix[1:])
+                fig.savefig(tmp, format=path.suffix[1:],
+                            metadata=None if metadata is None
+                            else _file_metadata(metadata, path.suffix))
+    if data is not None:
+        path = paths[0].with_suffix(".csv")
+        with atomic_write(path) as tmp:
+            data.to_csv(tmp, index=False)
+        paths.append(path)
     return paths
+
+
+def _slug(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9.=+-]+", "-", str(text)).strip("-")
 
 
 def _suffix(key: Mapping[str, object]) -> str:
     """File-name part naming the parameter values, e.g. '_Delta=0.5_h=1'."""
-    parts = [f"{name}={value}" for name, value in key.items()]
-    return "".join("_" + re.sub(r"[^A-Za-z0-9.=+-]+", "-", p) for p in parts)
+    return "".join("_" + _slug(f"{name}={value}") for name, value in key.items())
 
 
-def plot_results(results: pd.DataFrame, directory: str | os.PathLike,
+def _figure_title(kind: str, rows: pd.DataFrame, key: Mapping[str, object]) -> str:
+    what = {"entropy": "Observational entropy", "parts": "Shannon and Boltzmann parts",
+            "knowledge": "Knowledge"}[kind]
+    labels = ", ".join(coarse_graining_title(c) for c in coarse_order(rows))
+    values = "".join(f", {k} = {_value(v)}" for k, v in key.items())
+    return f"{what} after the quench: {labels}{values}"
+
+
+def plot_results(results: pd.DataFrame, directory: str | os.PathLike, *,
+                 coarse: Sequence[str] | None = None,
+                 where: Mapping[str, Sequence] | None = None, per_site: bool = True,
+                 diagnostics: bool = False, separate: bool = False,
                  trust_rtol: float | None = None) -> list[Path]:
     """Write the entropy, parts and knowledge figures of a results table to ``directory``.
 
-    One set per combination of the parameters other than L (file names
-    ``entropy_<name>=<value>_....png`` etc., just ``entropy.png`` when L is the only
-    parameter), PNG and PDF each. Colours per L are shared by all figures.
-    ``trust_rtol``: tolerance of the trusted times (:func:`mpsobs.analysis.trust.trusted`:
-    None keeps a ``t_trusted`` column the table has, else uses the default tolerance).
+    Parameters
+    ----------
+    results : results table.
+    directory : where the files go (created).
+    coarse, where : draw only these coarse-grainings and parameter values
+        (:func:`select_rows`).
+    per_site : entropies per site (default) or total.
+    diagnostics : add the half-chain entanglement and discarded-weight panels to the
+        entropy figure.
+    separate : one figure per coarse-graining (file names carry its label) instead of
+        one panel per coarse-graining.
+    trust_rtol : tolerance of the trusted times (:func:`mpsobs.analysis.trust.trusted`:
+        None keeps a ``t_trusted`` column the table has, else uses the default).
+
+    One set per combination of the parameters other than L that vary
+    (``entropy_<name>=<value>_....png``; just ``entropy.png`` when L is the only one),
+    each as PNG and PDF with the settings in the metadata (:func:`figure_metadata`) and
+    the drawn numbers as CSV (:func:`figure_data`). Colours per L are shared by all
+    figures of the run. Returns the paths written. Bad choices raise InputError before
+    anything is written.
     """
     results = trust.trusted(results, trust_rtol)
-    scaling.require_columns(results, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
+    rows = select_rows(results, coarse=coarse, where=where)
+    scaling.require_columns(rows, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
                             "figures")
     colors = length_colors(results["L"])
-    shown = figure_parameters(results)
+    shown = figure_parameters(rows)
+    makers = {"entropy": lambda r: entropy_figure(r, colors, shown, per_site=per_site,
+                                                   diagnostics=diagnostics),
+              "parts": lambda r: parts_figure(r, colors, shown, per_site=per_site),
+              "knowledge": lambda r: knowledge_figure(r, colors, shown, per_site=per_site)}
     paths = []
-    for key, rows in scaling.split(results, shown):
-        suffix = _suffix(key)
-        for name, make in (("entropy", entropy_figure), ("parts", parts_figure),
-                           ("knowledge", knowledge_figure)):
-            paths += save_figure(make(rows, colors, shown),
-                                 Path(directory) / f"{name}{suffix}")
+    for key, part in scaling.split(rows, shown):
+        subsets = ([("_" + _slug(label),
+                     part[part["coarse_graining"] == label]) for label in coarse_order(part)]
+                   if separate else [("", part)])
+        for prefix, subset in subsets:
+            for kind in KINDS:
+                paths += save_figure(
+                    makers[kind](subset), Path(directory) / f"{kind}{prefix}{_suffix(key)}",
+                    metadata=figure_metadata(subset, _figure_title(kind, subset, key), shown),
+                    data=figure_data(subset, kind, per_site=per_site, shown=shown))
     return paths

@@ -40,7 +40,25 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
   max(s_w, rms(e)) * sqrt(1/n_1 + 1/n_2) with s_w the pooled scatter about the two
   half means. A drift beyond 4 errors is logged as a warning (no plateau yet) and then
   added in quadrature to plateau_err, as a systematic error of an unsaturated curve.
-- deficit: S_thermo / L - plateau, error sqrt(plateau_err**2 + thermo_err**2) with
+- status (``plateau_status``): ``rising`` when the least-squares slope of S_obs/L over
+  the window (``window_slope``, error max(s_r, rms(e)) / sqrt(sum (t - mean t)**2), s_r
+  the residual scatter) exceeds SLOPE_SIGMAS errors and changes S_obs/L by more than
+  RESOLUTION over the window: the window mean is then a lower (or upper) bound, not a
+  plateau, the curve gets no saturation time and is left out of the collapse;
+  ``below S_obs_eq`` when the slope is not significant but the plateau lies more than
+  SLOPE_SIGMAS combined errors sqrt(plateau_total_err**2 + eq_err**2) below the
+  equilibrium value S_obs_eq / L (``eq_distance_sigmas``): the curve rises too slowly
+  to see, or does not thermalize; ``saturated`` otherwise. Both flags are logged as
+  warnings. The slope test treats the window's points as independent, so slow
+  oscillations of a saturated curve can be flagged (a false alarm, never a silent
+  miss of a steady rise).
+- total error (``plateau_total_err``): plateau_err (statistical, with the drift) and
+  the window means of the truncation and method error estimates per site in
+  quadrature, plus the largest pruned-mass entropy bound per site of the window
+  (the rule of :mod:`mpsobs.analysis.uncertainty`, applied to the plateau: the
+  systematic parts do not average down over the window). It enters the deficits and
+  the 1/L extrapolation.
+- deficit: S_thermo / L - plateau, error sqrt(plateau_total_err**2 + thermo_err**2) with
   thermo_err = S_thermo_err / L (0 when the column is absent); likewise
   deficit_eq = S_obs_eq / L - plateau where the table has the equilibrium value S_obs_eq
   (the S_obs of the Gibbs state at the initial energy for that coarse-graining), NaN
@@ -66,9 +84,11 @@ Per curve (errors are standard errors, e_i = S_obs_err_i / L at time t_i):
 Per group:
 
 - extrapolation: weighted least squares plateau_per_site = a + b / L (weights
-  1 / plateau_err**2); extrapolated_per_site = a; the same fit of deficit_eq gives
+  1 / plateau_total_err**2); extrapolated_per_site = a; the same fit of deficit_eq gives
   deficit_eq_extrapolated where two or more lengths have it.
-- exponent: weighted least squares ln t_f = ln A + z ln L (errors t_f_err / t_f).
+- exponent: weighted least squares ln t_f = ln A + z ln L (errors t_f_err / t_f), from
+  MIN_EXPONENT_LENGTHS or more lengths with a saturation time; with fewer, z is NaN
+  and ``z_note`` says why (two points fix any power law and test none).
 
 Straight-line fits follow the weighted least-squares formulas of Press et al.,
 Numerical Recipes, 3rd ed. (2007), Sec. 15.2. Parameter errors come from the inverse
@@ -88,7 +108,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from mpsobs.analysis import trust
+from mpsobs.analysis import trust, uncertainty
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import with_error
 from mpsobs.pipeline.columns import (
@@ -97,6 +117,7 @@ from mpsobs.pipeline.columns import (
     EQUILIBRIUM,
     EQUILIBRIUM_ERR,
     LENGTH,
+    METHOD_ERROR,
     S_OBS,
     S_OBS_ERR,
     S_THERMO,
@@ -114,6 +135,7 @@ __all__ = [
     "plateaus", "extrapolate", "saturation_times", "fit_exponent", "scaling_table",
     "collapse_curves", "format_table",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 
@@ -125,6 +147,16 @@ BOOTSTRAP_SAMPLES = 256
 BOOTSTRAP_SEED = 20240601
 #: A curve has surely crossed a level at its first point beyond it by this many errors.
 CLEAR_MARGIN = 3.0
+#: A curve counts as rising when its window slope exceeds this many standard errors ...
+SLOPE_SIGMAS = 4.0
+#: ... and changes S_obs/L over the window by more than this (nats per site): the
+#: resolution below which a change is invisible in a figure and negligible in a table.
+RESOLUTION = 1e-4
+#: Fewest chain lengths from which a power law t_f = A L**z is fitted (two points fix
+#: any straight line; a third tests it).
+MIN_EXPONENT_LENGTHS = 3
+#: Values of ``plateau_status``.
+SATURATED, RISING, BELOW_EQUILIBRIUM = "saturated", "rising", "below S_obs_eq"
 #: Columns the scaling needs in the results table. Read when present (tables of older
 #: runs lack them): TRUNCATION_ERROR, TRUSTED_TIME, EQUILIBRIUM, EQUILIBRIUM_ERR and
 #: DISORDER_AXES (:mod:`mpsobs.pipeline.columns`).
@@ -150,7 +182,9 @@ _PLATEAU_OUT = (
     "plateau_trunc_err", "t_trusted", "trusted_only", "plateau_spread", "plateau_drift",
     "plateau_drift_err", "initial_per_site", "initial_err", "thermo_per_site", "thermo_err",
     "deficit_per_site", "deficit_err", "eq_per_site", "eq_err", "deficit_eq_per_site",
-    "deficit_eq_err", "discarded_weight_max", "pruned_mass_max",
+    "deficit_eq_err", "discarded_weight_max", "pruned_mass_max", "window_slope",
+    "window_slope_err", "eq_distance_sigmas", "plateau_status", "plateau_method_err",
+    "plateau_pruned_bound", "plateau_total_err",
 )
 _EXTRAPOLATION_OUT = (
     "extrapolated_per_site", "extrapolated_err", "finite_size_slope",
@@ -159,7 +193,7 @@ _EXTRAPOLATION_OUT = (
 )
 _SATURATION_OUT = ("saturation_fraction", "saturation_time", "saturation_time_err")
 _EXPONENT_OUT = ("z", "z_err", "z_chi2_red", "saturation_prefactor",
-                 "saturation_prefactor_err", "z_lengths")
+                 "saturation_prefactor_err", "z_lengths", "z_note")
 _COLLAPSE_OUT = ("t", "scaled_time", "rise", "rise_err", "realizations")
 _OUTPUT = frozenset(("L",) + _PLATEAU_OUT + _EXTRAPOLATION_OUT + _SATURATION_OUT
                     + _EXPONENT_OUT + _COLLAPSE_OUT)
@@ -495,6 +529,7 @@ def _window(frame: pd.DataFrame, L: int, window: float, name: str) -> dict:
     yw, ew = y[inside], e[inside]
     spread = float(np.std(yw, ddof=1))
     rms = float(np.sqrt(np.mean(ew**2)))
+    slope, slope_err = _slope(t[inside], yw, rms)
     first, second = yw[: n // 2], yw[n // 2:]
     if n >= 4:
         within = np.concatenate([first - first.mean(), second - second.mean()])
@@ -504,7 +539,21 @@ def _window(frame: pd.DataFrame, L: int, window: float, name: str) -> dict:
     return {"t": t, "y": y, "e": e, "start": start, "inside": inside, "n": n,
             "mean": float(np.mean(yw)), "err": max(spread, rms) / np.sqrt(n),
             "spread": spread, "drift": float(np.mean(second) - np.mean(first)),
-            "drift_err": max(scatter, rms) * np.sqrt(1 / first.size + 1 / second.size)}
+            "drift_err": max(scatter, rms) * np.sqrt(1 / first.size + 1 / second.size),
+            "slope": slope, "slope_err": slope_err}
+
+
+def _slope(t: np.ndarray, y: np.ndarray, rms: float) -> tuple[float, float]:
+    """Least-squares slope of y(t) over the window and its error
+    max(s_r, rms(e)) / sqrt(sum (t - mean t)**2), s_r the residual standard deviation
+    (ddof = 2; 0 for two points): the random-effects rule of the plateau error applied
+    to the straight line (Press et al., Numerical Recipes, 3rd ed. (2007), Sec. 15.2)."""
+    dt = t - t.mean()
+    sxx = float(np.sum(dt**2))
+    slope = float(np.sum(dt * (y - y.mean())) / sxx)
+    residual = y - y.mean() - slope * dt
+    s_r = float(np.sqrt(np.sum(residual**2) / (t.size - 2))) if t.size > 2 else 0.0
+    return slope, max(s_r, rms) / np.sqrt(sxx)
 
 
 def _window_mean(frame: pd.DataFrame, column: str, inside: np.ndarray, L: int) -> float:
@@ -530,9 +579,8 @@ def _plateau_row(curve: _Curve, window: float) -> dict:
         plateau_err = stats["err"]
     mean, drift, drift_err = stats["mean"], stats["drift"], stats["drift_err"]
     if abs(drift) > 4 * drift_err:
-        log.warning("plateau: S_obs/L still drifts by %s over the window for %s; the curve "
-                    "has not saturated (the drift is added to plateau_err)",
-                    with_error(drift, drift_err), name)
+        log.info("plateau: S_obs/L drifts by %s over the window for %s (added to "
+                 "plateau_err)", with_error(drift, drift_err), name)
         plateau_err = float(np.hypot(plateau_err, drift))
     frame = curve.mean
     thermo = _window_mean(frame, "S_thermo", inside, L)
@@ -543,28 +591,61 @@ def _plateau_row(curve: _Curve, window: float) -> dict:
     eq = _window_mean(frame, EQUILIBRIUM, inside, L)
     eq_err = _window_mean(frame, EQUILIBRIUM_ERR, inside, L) if EQUILIBRIUM_ERR in frame \
         else 0.0
+    trunc_err = _window_mean(frame, TRUNCATION_ERROR, inside, L)
+    method_err = _window_mean(frame, METHOD_ERROR, inside, L)
+    pruned = float(np.max(uncertainty.error_parts(frame)["pruned_bound"][inside])) / L
+    total_err = float(np.sqrt(plateau_err**2 + np.nan_to_num(trunc_err) ** 2
+                              + np.nan_to_num(method_err) ** 2)) + pruned
+    status, eq_sigmas = _status(stats, eq, eq_err, total_err, name)
     return {
         **key,
         "t_first": stats["t"][0], "t_last": stats["t"][-1], "window_start": stats["start"],
         "plateau_points": n, "realizations": count,
         "plateau_per_site": mean, "plateau_err": plateau_err,
         "plateau_disorder_err": disorder_err, "plateau_sampling_err": sampling_err,
-        "plateau_trunc_err": _window_mean(frame, TRUNCATION_ERROR, inside, L),
+        "plateau_trunc_err": trunc_err, "plateau_method_err": method_err,
+        "plateau_pruned_bound": pruned, "plateau_total_err": total_err,
+        "window_slope": stats["slope"], "window_slope_err": stats["slope_err"],
+        "plateau_status": status, "eq_distance_sigmas": eq_sigmas,
         "t_trusted": curve.t_trusted, "trusted_only": curve.trusted_only,
         "plateau_spread": stats["spread"],
         "plateau_drift": drift, "plateau_drift_err": drift_err,
         "initial_per_site": stats["y"][0], "initial_err": stats["e"][0],
         "thermo_per_site": thermo, "thermo_err": thermo_err,
-        "deficit_per_site": thermo - mean, "deficit_err": float(np.hypot(plateau_err,
+        "deficit_per_site": thermo - mean, "deficit_err": float(np.hypot(total_err,
                                                                           thermo_err)),
         "eq_per_site": eq, "eq_err": eq_err,
-        "deficit_eq_per_site": eq - mean, "deficit_eq_err": float(np.hypot(plateau_err,
+        "deficit_eq_per_site": eq - mean, "deficit_eq_err": float(np.hypot(total_err,
                                                                             eq_err)),
         "discarded_weight_max": float(frame["discarded_weight"].max())
         if "discarded_weight" in frame else float("nan"),
         "pruned_mass_max": float(frame["pruned_mass"].max())
         if "pruned_mass" in frame else float("nan"),
     }
+
+
+def _status(stats: dict, eq: float, eq_err: float, total_err: float, name: str
+            ) -> tuple[str, float]:
+    """(plateau_status, distance to S_obs_eq in combined errors) of one curve, logging a
+    warning for a curve that is not ``saturated`` (module docstring, "status")."""
+    span = stats["t"][-1] - stats["start"]
+    slope, slope_err = stats["slope"], stats["slope_err"]
+    sigmas = (eq - stats["mean"]) / np.hypot(total_err, eq_err) if np.isfinite(eq) \
+        else float("nan")
+    if abs(slope) > SLOPE_SIGMAS * slope_err and abs(slope) * span > RESOLUTION:
+        log.warning("plateau: %s has not saturated: S_obs/L still changes by %s per unit "
+                    "time over the window (%s over the window)%s; its plateau is a lower "
+                    "bound, its saturation time is NaN", name,
+                    with_error(slope, slope_err), f"{slope * span:+.3g}",
+                    f", S_obs_eq/L = {eq:.4g}" if np.isfinite(eq) else "")
+        return RISING, float(sigmas)
+    if np.isfinite(sigmas) and sigmas > SLOPE_SIGMAS and eq - stats["mean"] > RESOLUTION:
+        log.warning("plateau: %s levels off at %s per site, %.1f errors from its "
+                    "equilibrium value S_obs_eq/L = %.4g: still rising too slowly to "
+                    "see over the window, or not thermalizing", name,
+                    with_error(stats["mean"], total_err), sigmas, eq)
+        return BELOW_EQUILIBRIUM, float(sigmas)
+    return SATURATED, float(sigmas)
 
 
 def plateaus(results: pd.DataFrame, window: float = 0.3) -> pd.DataFrame:
@@ -626,10 +707,11 @@ def extrapolate(plateaus_df: pd.DataFrame) -> pd.DataFrame:
     keys = key_columns(plateaus_df)
     shown = varying_columns(plateaus_df, keys[1:])
     deficits = [c for c in ("deficit_eq_per_site", "deficit_eq_err") if c in plateaus_df]
-    for key, group in _groups(plateaus_df[keys + ["L", "plateau_per_site", "plateau_err",
+    error = "plateau_total_err" if "plateau_total_err" in plateaus_df else "plateau_err"
+    for key, group in _groups(plateaus_df[keys + ["L", "plateau_per_site", error,
                                                   *deficits]], "extrapolation"):
         L = group["L"].to_numpy(dtype=float)
-        fit = fit_line(1.0 / L, group["plateau_per_site"], group["plateau_err"])
+        fit = fit_line(1.0 / L, group["plateau_per_site"], group[error])
         if fit.dof == 0:
             log.warning("extrapolation: two lengths for %s; no chi-square test of a + b/L",
                         _describe(key, shown))
@@ -702,7 +784,9 @@ def _saturation_rows(curves: list[_Curve], plateau_df: pd.DataFrame, fraction: f
                                  frame["S_obs"].to_numpy(dtype=float) / L,
                                  frame["S_obs_err"].to_numpy(dtype=float) / L,
                                  plateau.plateau_per_site, plateau.plateau_err, fraction)
-        if not np.isfinite(t_f):
+        if plateau.plateau_status == RISING:
+            t_f = t_f_err = float("nan")  # a fraction of a rise that has not ended
+        elif not np.isfinite(t_f):
             log.warning("saturation: S_obs/L does not change significantly for %s; "
                         "its saturation time is NaN", curve.name)
         rows.append({**curve.key, "saturation_fraction": fraction, "saturation_time": t_f,
@@ -753,17 +837,15 @@ def fit_exponent(saturation_df: pd.DataFrame) -> pd.DataFrame:
         good = group[np.isfinite(group["saturation_time"]) & (group["saturation_time"] > 0)]
         row = {**key, "z": np.nan, "z_err": np.nan, "z_chi2_red": np.nan,
                "saturation_prefactor": np.nan, "saturation_prefactor_err": np.nan,
-               "z_lengths": len(good)}
-        if len(good) < 2:
-            log.warning("exponent: fewer than two lengths with a saturation time for %s; "
-                        "z is NaN", _describe(key, shown))
+               "z_lengths": len(good), "z_note": ""}
+        if len(good) < MIN_EXPONENT_LENGTHS:
+            row["z_note"] = (f"undetermined: {len(good)} length(s) with a saturation time, "
+                             f"a power law needs {MIN_EXPONENT_LENGTHS}")
+            log.warning("exponent: %s for %s; z is NaN", row["z_note"], _describe(key, shown))
         else:
             t_f = good["saturation_time"].to_numpy(dtype=float)
             fit = fit_line(np.log(good["L"].to_numpy(dtype=float)), np.log(t_f),
                            good["saturation_time_err"].to_numpy(dtype=float) / t_f)
-            if fit.dof == 0:
-                log.warning("exponent: two lengths for %s; no chi-square test of t_f ~ L^z",
-                            _describe(key, shown))
             prefactor = float(np.exp(fit.intercept))
             row.update(z=fit.slope, z_err=fit.slope_err, z_chi2_red=fit.chi2_red,
                        saturation_prefactor=prefactor,
@@ -806,18 +888,22 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
     t / L**z, ``rise`` = (S_obs/L - initial) / (plateau - initial) (= S_obs / S_plateau
     when S_obs(0) = 0) and ``rise_err`` (from S_obs_err only), plus ``z``, ``z_err`` and
     ``saturation_fraction`` of the group and the number of disorder ``realizations``
-    averaged (1 without disorder).
+    averaged (1 without disorder). Curves whose ``plateau_status`` is ``rising`` are
+    left out (their plateau is not reached); none left gives an empty table.
     """
     keys, curves = _curves(results, SCALING_COLUMNS, warn=False)  # warned by the table
     require_columns(table, keys + ["L", "plateau_per_site", "initial_per_site", "z", "z_err",
                                    "saturation_fraction"], "scaling table")
     fits = {_canonical(key): rows.iloc[0] for key, rows in split(table, keys + ["L"])}
-    parts = []
+    parts, matched = [], False
     for item in curves:
         key, curve = item.key, item.mean
         fit = fits.get(_canonical(key))
         if fit is None:
             continue
+        matched = True
+        if fit.get("plateau_status") == RISING:
+            continue  # normalised to a plateau it has not reached
         L = float(key["L"])
         change = fit["plateau_per_site"] - fit["initial_per_site"]
         t = curve["t"].to_numpy(dtype=float)
@@ -828,8 +914,11 @@ def collapse_curves(results: pd.DataFrame, table: pd.DataFrame) -> pd.DataFrame:
             "z": fit["z"], "z_err": fit["z_err"],
             "saturation_fraction": fit["saturation_fraction"],
             "realizations": len(item.members)}))
-    if not parts:
+    if not matched:
         raise InputError("scaling table: none of its rows matches a curve of the results")
+    if not parts:
+        return pd.DataFrame(columns=keys + ["L", *_COLLAPSE_OUT, "z", "z_err",
+                                            "saturation_fraction"])
     return pd.concat(parts, ignore_index=True)
 
 
@@ -854,10 +943,10 @@ def format_table(df: pd.DataFrame) -> str:
     """The scaling table as text: per-length plateaus, then the fits per group.
 
     Entropies per site in nats, times in 1/J; every value is followed by its error and
-    printed to the error's precision (:func:`format_value`). Of the parameter columns
-    only those that vary for a coarse-graining are shown. Disorder realizations (R),
-    the truncation error of the plateau and the equilibrium deficit appear where the
-    table has them.
+    printed to the error's precision (:func:`mpsobs.core.printing.with_error`). Of the
+    parameter columns only those that vary for a coarse-graining are shown. Disorder
+    realizations (R), the truncation error of the plateau and the equilibrium deficit
+    appear where the table has them.
     """
     if df.empty:
         return "(empty scaling table)"
@@ -867,7 +956,7 @@ def format_table(df: pd.DataFrame) -> str:
     per_length = df[keys + ["L"]].copy()
     if "realizations" in df and (df["realizations"] > 1).any():
         per_length["R"] = df["realizations"].to_numpy()
-    columns = [("plateau/L", "plateau_per_site", "plateau_err")]
+    columns = [("plateau/L", "plateau_per_site", "plateau_total_err")]
     if _known(df, "plateau_trunc_err"):
         per_length["trunc/L"] = [f"{v:.2g}" for v in df["plateau_trunc_err"]]
         per_length["t_trusted"] = [f"{v:g}" for v in df["t_trusted"]]
@@ -879,6 +968,7 @@ def format_table(df: pd.DataFrame) -> str:
     columns.append((f"t_{fraction:g}", "saturation_time", "saturation_time_err"))
     for label, value, err in columns:
         per_length[label] = [with_error(v, e) for v, e in zip(df[value], df[err], strict=True)]
+    per_length["status"] = df["plateau_status"].to_numpy()
     fits = df.drop_duplicates(keys)
     per_group = fits[keys].copy()
     per_group["L_count"] = fits["extrapolation_lengths"].to_numpy()
@@ -892,10 +982,18 @@ def format_table(df: pd.DataFrame) -> str:
                                                fits["deficit_eq_extrapolated_err"],
                                                strict=True)]
     per_group[f"z (t_{fraction:g} ~ L^z)"] = [
-        with_error(v, e) for v, e in zip(fits["z"], fits["z_err"], strict=True)]
+        with_error(v, e) if np.isfinite(v) else f"undetermined ({n} L)"
+        for v, e, n in zip(fits["z"], fits["z_err"], fits["z_lengths"], strict=True)]
     per_group["z chi2/dof"] = [f"{v:.2f}" for v in fits["z_chi2_red"]]
+    notes = []
+    if (df["plateau_status"] != SATURATED).any():
+        notes = ["", f"status '{RISING}': S_obs/L still changes over the window (the "
+                 "plateau is a bound; no t_f, left out of z and the collapse);",
+                 f"status '{BELOW_EQUILIBRIUM}': levelled off more than {SLOPE_SIGMAS:g} "
+                 "errors below the equilibrium value."]
     return "\n".join([
-        "Plateaus per chain length (entropy per site in nats, time in 1/J):",
+        "Plateaus per chain length (entropy per site in nats, time in 1/J; errors: total, "
+        "statistical and systematic):",
         per_length.to_string(index=False), "",
         "Fits over the chain lengths (plateau = a + b/L, weighted least squares):",
-        per_group.to_string(index=False)])
+        per_group.to_string(index=False), *notes])

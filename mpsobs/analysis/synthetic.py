@@ -36,6 +36,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = ["SaturationLaw", "saturating_results"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Share of S_obs given to the Shannon part (the rest is the Boltzmann part).
 SHANNON_SHARE = 0.6

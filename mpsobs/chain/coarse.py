@@ -39,6 +39,7 @@ __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",
     "blocks", "sequence", "projectors", "OBSERVABLES",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 OBSERVABLES = ("number", "energy", "fine")
 

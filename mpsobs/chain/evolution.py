@@ -40,6 +40,7 @@ from mpsobs.mps.tensors import MPS, as_mps, right_canonical
 from mpsobs.mps.truncation import Route
 
 __all__ = ["Snapshot", "evolve", "ORDERS", "Symmetry", "CHARGE_TOL", "BLOCKS_MIN_BOND"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 logger = logging.getLogger(__name__)
 

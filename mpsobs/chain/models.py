@@ -33,6 +33,7 @@ from mpsobs.mps.tensors import MPS, as_mps, from_quimb, norm, product_mps, right
 __all__ = ["Term", "Model", "xxz", "ising", "build", "MODELS", "field_values", "site_values",
            "FieldKind", "bond_hamiltonians", "mpo_tensors", "to_quimb_mpo", "expectation",
            "energy", "GroundState", "dmrg", "ground_state", "PAULI_X", "PAULI_Z", "SPIN_Z"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 logger = logging.getLogger(__name__)
 

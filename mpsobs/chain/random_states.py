@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["random_vector", "random_density_matrix", "random_hermitian"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
 def random_vector(L: int, seed=None) -> np.ndarray:

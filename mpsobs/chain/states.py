@@ -27,6 +27,7 @@ from mpsobs.mps.tensors import MPS, product_mps, right_canonical
 __all__ = ["product_state", "neel", "domain_wall", "gas_in_box", "check_gas_in_box",
            "random_product_state",
            "ground_state", "GasPreparation", "PATTERN_CHARACTERS"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 _SQRT_HALF = 1.0 / np.sqrt(2.0)
 #: Site states of a pattern string.

@@ -7,6 +7,9 @@ from collections.abc import Collection
 
 import numpy as np
 
+__all__ = ["InputError", "finite_number", "integer", "one_of", "seed_value"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
+
 
 class InputError(ValueError):
     """Bad input from a user: a spec, an argument, a state or an operator.

@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 
 __all__ = ["short", "number", "with_error", "size_range"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
 def short(text: str, limit: int = 80) -> str:

@@ -39,6 +39,7 @@ from mpsobs.core.errors import InputError
 __all__ = ["set_threads", "using_threads", "threads_setting", "threads_for",
            "kernel_threads", "limits_threads", "state_size", "SMALL_BOND", "ENV_VAR",
            "BLAS_ENV"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Environment variable of the library's own thread setting.
 ENV_VAR = "MPSOBS_THREADS"

@@ -44,6 +44,7 @@ from mpsobs.mps.tensors import MPS, PurifiedMPS
 __all__ = ["ReadoutBlock", "block_tensor", "readout_blocks", "number_definite_rows",
            "transfer", "transfer_flops", "outcome_weights", "conditional_probabilities",
            "WORK_BYTES"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Working memory of one :func:`transfer` chunk (bytes of the intermediate product).
 WORK_BYTES = 2**26

@@ -24,6 +24,7 @@ from mpsobs.estimators.result import EntropyResult, entropy_from_distribution
 
 __all__ = ["observational_entropy", "check_state", "von_neumann_entropy",
            "MAX_VECTOR_SITES", "MAX_DENSITY_SITES"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 MAX_VECTOR_SITES = 14
 MAX_DENSITY_SITES = 10

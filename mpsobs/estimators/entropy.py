@@ -12,6 +12,7 @@ from mpsobs.estimators import dense
 from mpsobs.estimators.result import EntropyResult
 
 __all__ = ["observational_entropy"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
 def _estimator_options() -> tuple[str, ...]:

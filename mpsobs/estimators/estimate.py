@@ -94,6 +94,7 @@ __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "Samp
            "check_seed", "Method", "METHODS", "SAMPLING_METHODS", "draw_conditional_charged",
            "baseline_algorithms", "PREVIOUS_METHODS", "Evaluator", "EVALUATORS",
            "draw_conditional_vectors", "single_rows"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 logger = logging.getLogger(__name__)
 

@@ -10,6 +10,7 @@ import numpy as np
 from mpsobs.core.printing import number, short, with_error
 
 __all__ = ["OutcomeDistribution", "EntropyResult", "entropy_from_distribution"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
 @dataclass(frozen=True, eq=False)

@@ -11,3 +11,4 @@ from mpsobs.mps import tensors
 from mpsobs.mps.tensors import *  # noqa: F403
 
 __all__ = list(tensors.__all__)
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports

@@ -23,6 +23,7 @@ from mpsobs.pipeline.spec import parameter_column_descriptions
 __all__ = ["Column", "RESULT_COLUMNS", "REQUIRED", "EXTRA", "ANALYSIS", "ROW_COLUMNS",
            "DESCRIPTIONS", "PARAMETER_DESCRIPTIONS", "describe", "parameter_columns",
            "columns_markdown"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 # --------------------------------------------------------------------------- names
 
@@ -67,6 +68,8 @@ N_OBSERVABLES = "n_observables"
 DISORDER_AXES = "disorder_axes"
 BLOCK_SIZE = "block_size"
 TRUSTED_TIME = "t_trusted"
+METHOD_ERROR = "S_obs_method_err"
+TOTAL_ERROR = "S_obs_total_err"
 #: The chain length: a parameter column every table has.
 LENGTH = "L"
 
@@ -146,6 +149,9 @@ RESULT_COLUMNS: tuple[Column, ...] = (
     Column(TRUSTED_TIME, "1/J", "end of the trusted time range of the point and "
                                 "coarse-graining at the analysis tolerance (inf: all "
                                 "trusted; -inf: none; NaN: no check)", "analysis"),
+    Column(TOTAL_ERROR, "nats", "total error of S_obs: its standard error, truncation and "
+                                "method error estimates in quadrature plus the pruned-mass "
+                                "bound (mpsobs.analysis.uncertainty)", "analysis"),
 )
 
 #: Fixed result columns (besides the point's parameters, among them ``L``).

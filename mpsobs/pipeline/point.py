@@ -79,6 +79,7 @@ from mpsobs.pipeline.store import SITE_FIELDS_ATTR
 from mpsobs.references import gaussian, thermo
 
 __all__ = ["compute_point", "check_point", "check_points", "total_number", "EQ_MAX_BOND"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

@@ -23,6 +23,7 @@ from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 
 __all__ = ["run_quench", "quench_spec"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
 def _model_table(model: Mapping | Model) -> dict:

@@ -47,6 +47,7 @@ from mpsobs.core.printing import short
 __all__ = ["Point", "RunSpec", "Key", "SCHEMA", "load", "parse", "default_spec_path",
            "DEFAULT_OUTPUT_ROOT", "fixed_settings", "DISORDER_AXES", "MODELS", "STATES",
            "OBSERVABLES", "FIELD_KINDS", "keys_markdown", "parameter_column_descriptions"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

@@ -71,6 +71,7 @@ from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
            "out_of_space", "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

@@ -49,6 +49,7 @@ from mpsobs.pipeline.store import LOG_FILE, RunStore, out_of_space
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
            "check_execution", "reach_scheduler", "plural",
            "WORKER_ENV", "PROGRESS_TOPIC"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

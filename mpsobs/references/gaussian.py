@@ -54,6 +54,7 @@ __all__ = [
     "energy", "number_variance", "mode_occupations", "NumberDistribution",
     "number_distribution", "number_entropy", "MAX_REGIONS",
 ]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 

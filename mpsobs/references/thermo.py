@@ -69,6 +69,7 @@ from mpsobs.references import gaussian
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
            "entropy_shift_bound", "Method", "Ensemble", "PURIFICATION_CUTOFF"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 
