@@ -69,6 +69,10 @@ DEFAULT_SUB_BINS = 8
 EXACT_VOLUME_SITES = 12
 #: Newton steps in beta towards a volume reference's target energy.
 NEWTON_STEPS = 4
+#: Largest |beta| delta of a volume reference (delta the kernel resolution in energy).
+MAX_BETA_RESOLUTION = 0.5
+#: Compression bond of the Gibbs states during the Newton steps.
+NEWTON_BOND = 8
 #: Target energies of the volume Gibbs states, in standard deviations of the state's
 #: regional energy around its mean.
 VOLUME_TARGETS = (-2.0, 0.0, 2.0)
@@ -227,18 +231,21 @@ class _RegionVolumes:
 def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
     """The region's Gibbs reference with <H_R> near ``target``: Newton steps in beta on
     <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, until <H_R> is within half a standard
-    deviation of the target (any beta gives exact volumes; a near one gives accurate
-    ones), at most NEWTON_STEPS of them."""
+    deviation of the target, at most NEWTON_STEPS of them, and |beta| at most
+    MAX_BETA_RESOLUTION / delta for the kernel resolution delta = pi a / N (the factor
+    e^(beta E) magnifies the smoothing by about e^(|beta| delta)). Any beta gives exact
+    volumes in the limit; a near one gives accurate ones."""
     mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
     a, c = region.half_width, region.centre
-    beta = 0.0
+    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
+    beta, search_bond = 0.0, min(bond, NEWTON_BOND)
     for _ in range(NEWTON_STEPS):
-        seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, bond)
-        m = chebyshev.moment_matrices(seg, mpo, 4, bond)[:3, 0, 0].real
+        seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, search_bond)
+        m = chebyshev.moment_matrices(seg, mpo, 4, search_bond)[:3, 0, 0].real
         mean, var = c + a * m[1], a**2 * ((m[2] + 1) / 2 - m[1] ** 2)
         if abs(mean - target) <= 0.5 * np.sqrt(max(var, 0.0)) or var <= 0:
             break
-        beta += (mean - target) / var
+        beta = float(np.clip(beta + (mean - target) / var, -beta_max, beta_max))
     runs = []
     for b in (bond, max(2, bond // 2)):
         seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
