@@ -49,6 +49,7 @@ EXTRA = (
     "S_obs_eq",          # S_obs of the Gibbs ensemble behind S_thermo (the equilibrium value)
     "S_obs_eq_err",      # its error: stderr + pruned-mass bound + Gibbs-state error bound
     "S_obs_gge",         # S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions)
+    "S_obs_method_err",  # method error of the wide-region energy estimator (in S_obs_err)
     # truncation check: the same point evolved at bond chi_check (evolution.chi_check),
     # estimated with the same seeds; all NaN when the check is off (chi_check = 0)
     "S_obs_trunc_err",         # |S_obs(chi_max) - S_obs(chi_check)|: an error estimate, not a bound
@@ -101,6 +102,10 @@ DESCRIPTIONS: dict[str, tuple[str, str]] = {
                              "error bound"),
     "S_obs_gge": ("nats", "S_obs of the XX generalised Gibbs ensemble (number, <= 3 regions); "
                           "NaN otherwise"),
+    "S_obs_method_err": ("nats", "estimated error of the approximation of the wide-region "
+                                 "energy estimator (moments, compression bond, volume "
+                                 "sub-bins halved), included in S_obs_err; an estimate, not "
+                                 "a bound; 0 for the other estimators"),
     "S_obs_trunc_err": ("nats", "|S_obs(chi_max) - S_obs(chi_check)|, a truncation error "
                                 "estimate (not a bound); NaN without the check"),
     "S_shannon_trunc_err": ("nats", "the same for the Shannon part"),

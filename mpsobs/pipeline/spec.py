@@ -717,10 +717,10 @@ def _check_coarse(entries: list[dict], L: int, method: str) -> None:
                         f"most {COUNT_MAX_REGIONS} regions; {path} asks "
                         f"{entry['observable']} in {n_blocks} blocks (model.L = {L}); use "
                         f"'auto' or another method")
-        if widest > MAX_BLOCK_SITES and entry["observable"] != ["number"]:
+        if widest > MAX_BLOCK_SITES and entry["observable"] not in (["number"], ["energy"]):
             raise _fail(f"{path}.block", f"blocks wider than {MAX_BLOCK_SITES} sites are "
-                        f"possible for the number observable alone; got {widest} sites for "
-                        f"{entry['observable']}")
+                        f"possible for the number or the energy observable alone; got "
+                        f"{widest} sites for {entry['observable']}")
 
 
 def _columns(params: dict) -> dict:
