@@ -37,6 +37,8 @@ __all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "jackson", "bin_w
 
 #: Relative margin added to the spectrum bounds so that Ht stays inside (-1, 1).
 SPECTRUM_MARGIN = 0.01
+#: Largest tau = beta half_width / 2 of one step of :func:`gibbs_segment`.
+MAX_STEP_TAU = 1.0
 #: Relative squared singular value below which the compression drops a state.
 COMPRESSION_CUTOFF = 1e-14
 
@@ -193,39 +195,52 @@ def bin_weights(edges: np.ndarray, centre: float, half_width: float,
     return out * jackson(n_moments)
 
 
-def gibbs_segment(mpo: Sequence[np.ndarray], beta: float, centre: float, half_width: float,
-                  max_bond: int) -> tuple[list[np.ndarray], float]:
-    """The Gibbs state of a region as a normalised purification segment (local dimension
-    4, index 2 s + a) and ln Z = ln Tr exp(-beta H), from the Chebyshev expansion of
-    exp(-beta H / 2) applied to the infinite-temperature state |I> = prod (|00> + |11>) /
-    sqrt(2) (so Tr_ancilla |psi><psi| = exp(-beta H) / Z and Z = 2^n <psi|psi> before
-    normalisation).
-
-    ``mpo`` is the scaled MPO of Ht = (H - centre) / half_width with the ancilla
-    (:func:`scaled_mpo` with d = 4). With tau = beta half_width / 2,
-    exp(-tau x) = I_0(tau) + 2 sum_k (-1)^k I_k(tau) T_k(x), I_k the modified Bessel
-    functions (Abramowitz and Stegun 9.6.34; Rev. Mod. Phys. 78, 275 (2006), sec. II.C);
-    terms are added until I_k(tau) / I_0(tau) < 1e-16, the running sum compressed to
-    ``max_bond`` after every term. Cost about 2 tau + 20 steps of two compressions.
-    """
-    n = len(mpo)
-    bell = np.zeros((1, 4, 1), dtype=complex)
-    bell[0, 0, 0] = bell[0, 3, 0] = 1 / np.sqrt(2)
-    start = [bell.copy() for _ in range(n)]
-    tau = beta * half_width / 2
-    scaled = ive(np.arange(2), abs(tau))  # I_k(|tau|) e^{-|tau|}
-    sign = -np.sign(tau)  # (-1)^k for tau > 0
-    total = [scaled[0] * start[0], *start[1:]]
-    prev, cur = start, _compress(_apply(mpo, start), max_bond)
+def _exp_step(seg: list[np.ndarray], mpo: Sequence[np.ndarray], tau: float,
+              max_bond: int) -> tuple[list[np.ndarray], float]:
+    """exp(-tau Ht) |seg>, normalised, and ln of its norm (Chebyshev series of the
+    exponential, terms until I_k(|tau|) / I_0(|tau|) < 1e-16, the running sum compressed
+    after every term)."""
+    scaled0 = ive(0, abs(tau))  # I_k(|tau|) e^{-|tau|}
+    sign = -np.sign(tau)        # exp(-tau x) has the coefficients (-1)^k I_k(tau), tau > 0
+    total = [scaled0 * seg[0], *seg[1:]]
+    prev, cur = seg, _compress(_apply(mpo, seg), max_bond)
     k = 1
     while True:
         coeff = 2 * ive(k, abs(tau)) * sign**k
-        if abs(coeff) < 1e-16 * scaled[0] or k > 10 * abs(tau) + 50:
+        if abs(coeff) < 1e-16 * scaled0:
             break
         total = _compress(_combine(total, cur, 1.0, coeff), max_bond)
         prev, cur, k = cur, _compress(_combine(_apply(mpo, cur), prev, 2.0, -1.0),
                                       max_bond), k + 1
     norm2 = float(_gram(total, total).real[0, 0])
-    log_z = n * np.log(2.0) - beta * centre + 2 * abs(tau) + np.log(norm2)
     total[0] = total[0] / np.sqrt(norm2)
-    return total, float(log_z)
+    return total, abs(tau) + 0.5 * np.log(norm2)
+
+
+def gibbs_segment(mpo: Sequence[np.ndarray], beta: float, centre: float, half_width: float,
+                  max_bond: int) -> tuple[list[np.ndarray], float]:
+    """The Gibbs state of a region as a normalised purification segment (local dimension
+    4, index 2 s + a) and ln Z = ln Tr exp(-beta H).
+
+    exp(-beta H / 2) is applied to the infinite-temperature state |I> = prod (|00> +
+    |11>) / sqrt(2) in steps of tau = beta half_width / 2 / m <= MAX_STEP_TAU, each by the
+    Chebyshev series exp(-tau x) = I_0(tau) + 2 sum_k (-1)^k I_k(tau) T_k(x), I_k the
+    modified Bessel functions (Abramowitz and Stegun 9.6.34; Rev. Mod. Phys. 78, 275
+    (2006), sec. II.C), compressed to ``max_bond`` (short steps keep the intermediate
+    vectors close to Gibbs states of growing beta, so little entangled). Then
+    Tr_ancilla |psi><psi| = exp(-beta H) / Z and Z = 2^n <psi|psi> before normalisation,
+    accumulated from the norms of the steps. ``mpo`` is the scaled MPO of
+    Ht = (H - centre) / half_width with the ancilla (:func:`scaled_mpo`, d = 4).
+    Cost about m (2 MAX_STEP_TAU + 15) steps of two compressions.
+    """
+    n = len(mpo)
+    bell = np.zeros((1, 4, 1), dtype=complex)
+    bell[0, 0, 0] = bell[0, 3, 0] = 1 / np.sqrt(2)
+    seg = [bell.copy() for _ in range(n)]
+    tau = beta * half_width / 2
+    steps = max(1, int(np.ceil(abs(tau) / MAX_STEP_TAU)))
+    log_norm = 0.0
+    for _ in range(steps):
+        seg, log_step = _exp_step(seg, mpo, tau / steps, max_bond)
+        log_norm += log_step
+    return seg, float(n * np.log(2.0) - beta * centre + 2 * log_norm)

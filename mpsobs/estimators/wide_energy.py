@@ -14,27 +14,34 @@ the right); then mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] and
 p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Negative values of
 the damped series (from the compression) are set to zero and p renormalised.
 
-Volumes. Regions of at most :data:`EXACT_VOLUME_SITES` sites: eigenvalues of H_R counted
-per bin (exact). Wider regions: reweighting from the region's own Gibbs state,
-Omega_R(b) = Z_R(beta) sum_{E in b} p_beta(E) e^{beta E}, with beta and
-ln Z_R = S - beta <H_R> from :func:`mpsobs.thermo.gibbs` at target energies around the
-state's regional energies (mean and mean +- 2 standard deviations), p_beta on sub-bins
-by the same Chebyshev machinery on the Gibbs purification of the region alone, and for
-each bin the beta whose energy lies closest to it.
+Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
+eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
+own Gibbs state, Omega_R(b) = Z_R(beta) sum_{E in b} p_beta(E) e^{beta E} (DESIGN 3c),
+with the Gibbs state built as a purification by the Chebyshev expansion of
+exp(-beta H_R / 2) (:func:`mpsobs.chebyshev.gibbs_segment`, which gives ln Z_R from its
+norm), p_beta on sub-bins from its Chebyshev moments, and beta found by Newton steps so
+that <H_R>_beta lies near the state's mean regional energy and the mean +- 2 standard
+deviations (three references; each bin uses the one whose energy is closest). |beta| is
+capped at MAX_BETA_RESOLUTION / delta (delta = pi a / N the kernel resolution): beyond,
+e^(beta E) would magnify the smoothing of p_beta.
 
 Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
 the sum of the changes of S_obs when (1) the number of moments is halved (state and
-volumes), (2) the compression bond is halved, (3) the volume sub-bins are halved, plus
-(4) the Gibbs references' ln Z errors. The same for the Shannon and Boltzmann parts.
+volumes), (2) the compression bond is halved (state, Gibbs references and their ln Z),
+(3) the volume sub-bins are halved, plus (4) the entropy bound of the probability that
+the smoothed series puts into bins without eigenvalues (exact-count regions only). The
+same for the Shannon and Boltzmann parts.
 The smoothing of the kernel (resolution about pi a / N for a spectrum half-width a) makes
 S_obs too large where the regional energies are sharper than the resolution (an
 eigenstate of H_A); the halved-moments change then is of order ln 2, so the error bar
 shows it.
 
 Cost: two Chebyshev runs per region (bond D and D / 2) of N / 2 compressions, each about
-3 n d ((w + 1) D)^3 flops for n sites, MPO bond w (Ising 3, XXZ 5); for each wide region
-three Gibbs purifications (:func:`mpsobs.thermo.gibbs`, ``gibbs_state``) and their
-Chebyshev runs.
+3 n d ((w + 1) D)^3 flops for n sites, MPO bond w (Ising 3, XXZ 5), d = 2 (4 for a
+purification); for each wide region three Gibbs references, each a few Newton builds at
+bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
+The references depend only on the region and the state's regional energies; they are
+recomputed at every call.
 """
 
 from __future__ import annotations
