@@ -27,7 +27,8 @@ e^(beta E) would magnify the smoothing of p_beta.
 
 Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
 the sum of the changes of S_obs when (1) the number of moments is halved (state and
-volumes), (2) the compression bond is halved (state, Gibbs references and their ln Z),
+volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
+least like N^(-1/2)), (2) the compression bond is halved (state, Gibbs references and their ln Z),
 (3) the volume sub-bins are halved, plus (4) the entropy bound of the probability that
 the smoothed series puts into bins without eigenvalues (exact-count regions only). The
 same for the Shannon and Boltzmann parts.
@@ -83,6 +84,10 @@ NEWTON_BOND = 8
 #: Target energies of the volume Gibbs states, in standard deviations of the state's
 #: regional energy around its mean.
 VOLUME_TARGETS = (-2.0, 0.0, 2.0)
+#: The change at half the moments, divided by this, is the moment part of the error:
+#: the remaining error if it falls at least like N^(-1/2) (sqrt(2) - 1; smoothing of a
+#: smooth density falls like N^-2, leakage of sharp peaks across bin edges like N^-1).
+RESOLUTION_ORDER_FACTOR = np.sqrt(2.0) - 1.0
 #: Bins whose probability is below this are left out of S_obs (their volume is not needed).
 PROBABILITY_FLOOR = 1e-14
 
@@ -370,7 +375,8 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     (half, _), _ = evaluate(_joint(mu, regions, moments // 2), moments // 2, sub_bins, False)
     (low, _), _ = evaluate(_joint(mu_low, regions, moments), moments, sub_bins, True)
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
-    err = (main.change(half) + main.change(low) + main.change(coarse_sub)
+    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
+           + main.change(coarse_sub)
            + pruned_entropy_bound(dropped, cg.max_entropy))
     live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_vols[0][:, None]
                                                              + log_vols[1][None, :]))
