@@ -37,6 +37,12 @@ coarse-graining, see :func:`trusted_time`) is the end of the time range where th
 truncation error stays within ``evolution.trust_rtol`` times S_obs or within the
 sampling error. Without the check all four error columns and ``t_trusted`` are NaN.
 
+Energy regions wider than the block limit (:class:`mpsobs.coarse.WideEnergyRegions`) are
+evaluated by the Chebyshev estimator with its defaults (no estimator settings); its
+error estimate is the column ``S_obs_method_err`` (part of ``S_obs_err``; 0 for the other
+estimators), and its truncation check repeats it on the check state; ``check_point``
+builds it (which checks its parameters) but does not evaluate it.
+
 Rows: one per (time, coarse-graining), with the columns of :mod:`mpsobs.columns`, the
 block size of the coarse-graining (``block_size``, 0 for explicit regions) and the
 point's parameters. Entropies in nats. The frame's ``attrs["site_fields"]`` holds the
