@@ -395,6 +395,9 @@ def blocks(L: int, size: int | None = None, observable="number", *,
         0..L in order.
 
     Cost: one dense eigendecomposition of size 2**b per block (b <= MAX_BLOCK_SITES).
+    Energy on a partition with a block wider than MAX_BLOCK_SITES gives instead a
+    :class:`WideEnergyRegions` (no eigendecomposition; two regions, ``bin_width``
+    required), evaluated by :mod:`mpsobs.wide_energy`.
     """
     spans = _resolve_regions(L, size, regions)
     widest = max(b - a for a, b in spans)
