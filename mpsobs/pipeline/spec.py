@@ -68,7 +68,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from mpsobs.chain.coarse import MAX_BLOCK_SITES
+from mpsobs.chain.coarse import MAX_BLOCK_SITES, MAX_WIDE_REGIONS
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import short
 from mpsobs.estimators.estimate import COUNT_MAX_REGIONS
@@ -717,6 +717,12 @@ def _check_coarse(entries: list[dict], L: int, method: str) -> None:
                         f"most {COUNT_MAX_REGIONS} regions; {path} asks "
                         f"{entry['observable']} in {n_blocks} blocks (model.L = {L}); use "
                         f"'auto' or another method")
+        if widest > MAX_BLOCK_SITES and entry["observable"] == ["energy"] and (
+                n_blocks != MAX_WIDE_REGIONS or entry["bin_width"] is None):
+            raise _fail(f"{path}.block", f"energy regions wider than {MAX_BLOCK_SITES} "
+                        f"sites are evaluated for exactly {MAX_WIDE_REGIONS} regions with a "
+                        f"bin_width; got {n_blocks} blocks (model.L = {L}), bin_width "
+                        f"{entry['bin_width']}")
         if widest > MAX_BLOCK_SITES and entry["observable"] not in (["number"], ["energy"]):
             raise _fail(f"{path}.block", f"blocks wider than {MAX_BLOCK_SITES} sites are "
                         f"possible for the number or the energy observable alone; got "
