@@ -215,9 +215,9 @@ def test_refusal_names_the_point_and_the_coarse_graining():
 
 
 def test_refusal_about_regions_names_the_regions_key():
-    # a 13-site energy region is too wide for block tensors: the message names the
-    # regions, not a block size
-    (p,) = _points({"kind": "neel"}, [{"observable": "energy",
+    # a 13-site region is too wide for the configuration observable: the message names
+    # the regions, not a block size
+    (p,) = _points({"kind": "neel"}, [{"observable": "fine",
                                        "regions": [[0, 13], [13, 26]]}], L=26)
     with pytest.raises(InputError, match=r"^coarse\[0\]\.regions: .*more than 12 sites"):
         check_point(p)

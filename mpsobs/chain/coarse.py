@@ -37,7 +37,7 @@ from mpsobs.core.printing import number, short, size_range
 
 __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",
-    "blocks", "sequence", "projectors", "OBSERVABLES",
+    "WideEnergyRegions", "blocks", "sequence", "projectors", "OBSERVABLES",
 ]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
@@ -49,6 +49,8 @@ DEGENERACY_TOL = 1e-9
 EMPTY_VOLUME = 1e-10
 #: Largest block handled (local dimension 2**MAX_BLOCK_SITES).
 MAX_BLOCK_SITES = 12
+#: Most regions of an energy coarse-graining with a region wider than MAX_BLOCK_SITES.
+MAX_WIDE_REGIONS = 2
 
 
 @dataclass(frozen=True, eq=False)
@@ -179,6 +181,38 @@ class ProjectorCoarseGraining:
         return (f"ProjectorCoarseGraining({short(self.label, 60)!r}, dim {self.dim}, "
                 f"{len(self.stages)} stage(s) of {size_range(len(s) for s in self.stages)} "
                 f"projectors)")
+
+
+@dataclass(frozen=True, eq=False)
+class WideEnergyRegions:
+    """The energies of contiguous regions of which one is wider than MAX_BLOCK_SITES.
+
+    No projector is built (2**n for n sites): the coarse-graining carries the chain
+    ``model`` (each region's Hamiltonian H_R is its terms lying wholly inside R, as
+    :meth:`mpsobs.models.Model.block_hamiltonian`), the ``regions`` (at most
+    MAX_WIDE_REGIONS, covering the chain) and the ``bin_width`` dE: outcome of region R is
+    the bin floor(E_R / dE). :func:`mpsobs.wide_energy.wide_energy_entropy` evaluates it.
+    """
+
+    L: int
+    regions: tuple[tuple[int, int], ...]
+    model: Model
+    bin_width: float
+    label: str
+
+    @property
+    def dim(self) -> int:
+        return 2**self.L
+
+    @property
+    def max_entropy(self) -> float:
+        """ln dim H = L ln 2."""
+        return self.L * np.log(2.0)
+
+    def __repr__(self) -> str:
+        return (f"WideEnergyRegions({short(self.label, 60)!r}, L={self.L}, "
+                f"{len(self.regions)} regions of {size_range(b - a for a, b in self.regions)} "
+                f"sites, bin width {number(self.bin_width)})")
 
 
 # --------------------------------------------------------------------------- regions
@@ -364,13 +398,17 @@ def blocks(L: int, size: int | None = None, observable="number", *,
         0..L in order.
 
     Cost: one dense eigendecomposition of size 2**b per block (b <= MAX_BLOCK_SITES).
+    Energy on a partition with a block wider than MAX_BLOCK_SITES gives instead a
+    :class:`WideEnergyRegions` (no eigendecomposition; two regions, ``bin_width``
+    required), evaluated by :mod:`mpsobs.wide_energy`.
     """
     spans = _resolve_regions(L, size, regions)
     widest = max(b - a for a, b in spans)
     if widest > MAX_BLOCK_SITES:
-        if not (isinstance(observable, str) and observable == "number"):
+        if not (isinstance(observable, str) and observable in ("number", "energy")):
             raise InputError(f"size: blocks of more than {MAX_BLOCK_SITES} sites are supported "
-                             f"only for the 'number' observable; got a block of {widest}")
+                             f"only for the 'number' and 'energy' observables; got a block "
+                             f"of {widest}")
     if bin_width is not None and finite_number(bin_width, "bin_width") <= 0:
         raise InputError(f"bin_width: expected a positive number, got {bin_width!r}")
     where = _region_label(size, spans)
@@ -398,6 +436,8 @@ def blocks(L: int, size: int | None = None, observable="number", *,
             raise InputError(f"model: expected an mpsobs.models.Model, got {type(model).__name__}")
         if model.L != L:
             raise InputError(f"model: it has L = {model.L} sites, the coarse-graining {L}")
+        if widest > MAX_BLOCK_SITES:
+            return _wide_energy(L, spans, model, bin_width, where)
         stage = _spectral_stage("energy", spans, model.block_hamiltonian, bin_width)
         suffix = "" if bin_width is None else f",dE{bin_width:g}"
         return _assemble(L, spans, (stage,), f"energy:{where}{suffix}")
@@ -421,6 +461,29 @@ def _wide_number(L: int, spans, where: str) -> BlockCoarseGraining:
     return BlockCoarseGraining(L, tuple(built), (stage,), f"number:{where}")
 
 
+def _wide_energy(L: int, spans, model: Model, bin_width: float | None,
+                 where: str) -> WideEnergyRegions:
+    """Energy regions of which one is wider than MAX_BLOCK_SITES (checked here)."""
+    if bin_width is None:
+        raise InputError(f"bin_width: energy regions wider than {MAX_BLOCK_SITES} sites need "
+                         f"a bin width (outcomes are bins floor(E / bin_width)); give a "
+                         f"positive number")
+    if len(spans) > MAX_WIDE_REGIONS:
+        raise InputError(f"regions: the energy of regions wider than {MAX_BLOCK_SITES} sites "
+                         f"is evaluated for at most {MAX_WIDE_REGIONS} regions; got "
+                         f"{len(spans)}")
+    if len(spans) < 2:
+        raise InputError(f"regions: the energy of a region wider than {MAX_BLOCK_SITES} sites "
+                         f"needs the chain cut into {MAX_WIDE_REGIONS} regions (the energy of "
+                         f"the whole chain is not a region energy); got one region")
+    thin = [(a, b) for a, b in spans if b - a < 2]
+    if thin:
+        raise InputError(f"regions: every region next to one wider than {MAX_BLOCK_SITES} "
+                         f"sites needs at least 2 sites; got {thin[0]}")
+    return WideEnergyRegions(L, tuple(spans), model, float(bin_width),
+                             f"energy:{where},dE{bin_width:g}")
+
+
 def sequence(first, second, *more):
     """Ask coarse-grainings in the given order: S_{first, second, ...}.
 
@@ -428,6 +491,9 @@ def sequence(first, second, *more):
     must share the dimension. The outcome labels are tuples with one value per stage.
     """
     parts = (first, second, *more)
+    if any(isinstance(p, WideEnergyRegions) for p in parts):
+        raise InputError(f"sequence: energy regions wider than {MAX_BLOCK_SITES} sites cannot "
+                         f"be part of a sequence (asked alone only)")
     if all(isinstance(p, BlockCoarseGraining) for p in parts):
         ref = parts[0]
         for i, p in enumerate(parts[1:], start=2):

@@ -6,6 +6,7 @@ import inspect
 
 import numpy as np
 
+from mpsobs.chain.coarse import WideEnergyRegions
 from mpsobs.core.errors import InputError
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import dense
@@ -47,7 +48,10 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
         :func:`mpsobs.thermo.gibbs_state`), evaluated by :mod:`mpsobs.estimate`.
         Every kind must be normalised (one rule for all: an unnormalised state
         raises InputError saying how to normalise it).
-    coarse_graining : from :mod:`mpsobs.coarse`.
+    coarse_graining : from :mod:`mpsobs.coarse`. Energy regions wider than
+        ``coarse.MAX_BLOCK_SITES`` (:class:`mpsobs.coarse.WideEnergyRegions`) go to
+        :func:`mpsobs.wide_energy.wide_energy_entropy` with its default settings (method
+        None or "approximate", no other setting; a dense vector is made an exact MPS).
     samples, seed, method, options : estimator settings for MPS states (see
         :func:`mpsobs.estimate.mps_observational_entropy`: ``method`` None, "sample",
         "sample_strings", "enumerate", "count" or "exact"). Dense states are always
@@ -69,6 +73,8 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
                          f"{', '.join(allowed)}")
     estimate.check_seed(seed)
     _refuse_plain_numbers(state)
+    if isinstance(coarse_graining, WideEnergyRegions):
+        return _wide(state, coarse_graining, samples, method, options)
     if isinstance(state, np.ndarray):
         given = [name for name, value in (("samples", samples), *options.items())
                  if value is not None]
@@ -79,3 +85,23 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
         return dense.observational_entropy(state, coarse_graining)
     return estimate.mps_observational_entropy(state, coarse_graining, samples=samples,
                                               seed=seed, method=method, **options)
+
+
+def _wide(state, cg: WideEnergyRegions, samples, method, options) -> EntropyResult:
+    """The wide-region energy estimator (no estimator settings)."""
+    from mpsobs.estimators.wide_energy import wide_energy_entropy
+    from mpsobs.mps.tensors import from_dense
+
+    given = [name for name, value in (("samples", samples), *options.items())
+             if value is not None]
+    if given or method not in (None, "approximate"):
+        name = given[0] if given else "method"
+        raise InputError(f"{name}: energy regions wider than the block limit are evaluated by "
+                         f"the Chebyshev estimator (method None or 'approximate') and take no "
+                         f"other setting here; tune it with mpsobs.wide_energy")
+    if isinstance(state, np.ndarray):
+        if state.ndim != 1:
+            raise InputError("state: wide energy regions take a state vector or an MPS, not "
+                             "a density matrix (give a purification, PurifiedMPS)")
+        state = from_dense(state)
+    return wide_energy_entropy(state, cg)

@@ -43,6 +43,10 @@ class EntropyResult:
     are standard errors of the sampled means (0 when exact); ``pruned_mass`` is the
     probability left out by exact enumeration below its floor (0 when nothing was pruned);
     the exact values then lie within the bounds that ``pruned_mass`` implies.
+    ``method`` "approximate" (the wide-region energy estimator): ``stderr`` is 0 and
+    ``method_err`` the estimated error of the approximation (an estimate, not a bound;
+    the parts' errors are the same estimates for the parts); the total error of a row
+    combines them (:mod:`mpsobs.analysis.uncertainty`).
     ``bond_entropies`` are the von Neumann entanglement entropies of every bond of an MPS
     (length L - 1; index i cuts between sites i and i + 1), None for dense states.
     """
@@ -54,13 +58,14 @@ class EntropyResult:
     boltzmann: float
     boltzmann_err: float
     max_entropy: float
-    method: Literal["exact", "sampled"]
+    method: Literal["exact", "sampled", "approximate"]
     label: str
     samples: int = 0
     pruned_mass: float = 0.0
     distribution: OutcomeDistribution | None = None
     bond_entropies: np.ndarray | None = None
     algorithm: str = ""
+    method_err: float = 0.0
 
     @property
     def knowledge(self) -> float:
@@ -70,6 +75,8 @@ class EntropyResult:
     def __repr__(self) -> str:
         if self.method == "sampled":
             how = f"sampled, {self.samples} samples"
+        elif self.method == "approximate":
+            how = f"approximate, method error {self.method_err:.2g}"
         else:
             how = "exact" + (f", pruned mass {self.pruned_mass:.2g}" if self.pruned_mass else "")
         label = f" [{short(self.label, 60)}]" if self.label else ""

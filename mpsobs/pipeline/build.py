@@ -237,11 +237,15 @@ def build_coarse_grainings(entries: Sequence[dict], model: models.Model,
                                            regions=entry["regions"]))
             cg = parts[0] if len(parts) == 1 else coarse.sequence(*parts)
         label = entry["label"] or cg.label
-        options = estimator_options(estimator)
-        with _at("estimator", {**_ESTIMATOR_ARGUMENTS,
-                               "coarse_graining": arguments["coarse_graining"]},
-                 f"coarse-graining {label!r}: "):
-            observational_entropy(blank, cg, seed=estimator_seed(point_seed, 0, j), **options)
+        if isinstance(cg, coarse.WideEnergyRegions):
+            options = {}  # the Chebyshev estimator takes no settings; checked when built
+        else:
+            options = estimator_options(estimator)
+            with _at("estimator", {**_ESTIMATOR_ARGUMENTS,
+                                   "coarse_graining": arguments["coarse_graining"]},
+                     f"coarse-graining {label!r}: "):
+                observational_entropy(blank, cg, seed=estimator_seed(point_seed, 0, j),
+                                      **options)
         out.append(BuiltCoarse(label, entry["block"] or 0, tuple(entry["observable"]), cg,
                                options, path))
     return tuple(out)

@@ -131,6 +131,9 @@ RESULT_COLUMNS: tuple[Column, ...] = (
                                     "Gibbs-state error bound"),
     Column(S_OBS_GGE, "nats", "S_obs of the XX generalised Gibbs ensemble (number, <= 3 "
                               "regions); NaN otherwise"),
+    Column(METHOD_ERROR, "nats", "error estimate of an approximate estimator (the energies "
+                                 "of wide regions: moments, compression bond and volume "
+                                 "sub-bins halved); an estimate, not a bound; 0 otherwise"),
     Column(TRUNCATION_ERROR, "nats", "|S_obs(chi_max) - S_obs(chi_check)|, a truncation "
                                      "error estimate (not a bound)" + _NO_CHECK),
     Column(SHANNON_TRUNCATION_ERROR, "nats", "the same for the Shannon part" + _NO_CHECK),

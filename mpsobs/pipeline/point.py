@@ -38,6 +38,12 @@ coarse-graining, see :func:`trusted_time`) is the end of the time range where th
 truncation error stays within ``evolution.trust_rtol`` times S_obs or within the
 sampling error. Without the check all four error columns and ``t_trusted`` are NaN.
 
+Energy regions wider than the block limit
+(:class:`mpsobs.chain.coarse.WideEnergyRegions`) are evaluated by the Chebyshev estimator
+with its defaults (no estimator settings); its error estimate is the column
+``S_obs_method_err`` (0 for the other estimators), and its truncation check repeats it on
+the check state.
+
 The model, initial state, coarse-grainings and estimator options come from the builder
 (:mod:`mpsobs.pipeline.build`) that :func:`check_point` uses too.
 
@@ -62,7 +68,7 @@ from mpsobs.chain import coarse, models
 from mpsobs.core.errors import InputError
 from mpsobs.core.version import __version__
 from mpsobs.estimators.entropy import observational_entropy
-from mpsobs.estimators.estimate import countable, pruned_entropy_bound
+from mpsobs.estimators.estimate import PREVIOUS_METHODS, countable, pruned_entropy_bound
 from mpsobs.estimators.result import EntropyResult
 from mpsobs.mps.tensors import MPS
 from mpsobs.pipeline import columns as col
@@ -187,7 +193,7 @@ def _gge_entropy(gge: thermo.GGEResult | None, cg: coarse.BlockCoarseGraining) -
     """S_obs of the XX generalised Gibbs ensemble (correlation matrix U diag(n) U^dagger in
     the single-particle eigenmodes U) by counting statistics, for number coarse-grainings
     of at most three regions; NaN otherwise."""
-    if gge is None or not countable(cg):
+    if gge is None or isinstance(cg, coarse.WideEnergyRegions) or not countable(cg):
         return math.nan
     return float(gaussian.number_entropy(gge.correlation, cg.regions).entropy)
 
@@ -228,6 +234,8 @@ def _paired_options(main: EntropyResult, estimator: dict) -> dict:
     """Estimator settings for the check state that repeat the main estimate: exact where
     it was exact, else sampling with the same number of samples (with the same seed the
     s-th sample then uses the same uniforms in both)."""
+    if main.method == "approximate":
+        return {}
     if main.method == "exact":
         return {"method": "exact", "prune": estimator["prune"]}
     sampler = "sample_strings" if main.algorithm == "mps-sample" else "sample"
@@ -340,7 +348,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
         pairs = zip(snapshots(state, evo["chi_max"]), snapshots(check_state, chi_check),
                     strict=True)
     # how each coarse-graining came out at the previous time (resumed rows included)
-    previous = {row[col.COARSE_GRAINING]: row[col.METHOD] for row in rows}
+    previous = {row[col.COARSE_GRAINING]: row[col.METHOD] for row in rows
+                if row[col.METHOD] in PREVIOUS_METHODS}
     for k, (snap, check_snap) in enumerate(pairs, start=done):
         discarded = discarded0 + snap.discarded_weight
         check_discarded = (check_discarded0 + check_snap.discarded_weight
@@ -350,7 +359,8 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
             seed = estimator_seed(point.seed, k, j)
             res = observational_entropy(snap.state, c.coarse_graining, seed=seed, **c.options,
                                         previous_method=previous.get(c.label))
-            previous[c.label] = res.method
+            if res.method in PREVIOUS_METHODS:   # not the wide-region estimator's
+                previous[c.label] = res.method
             check = (None if check_snap is None else
                      _check_estimate(check_snap.state, c.coarse_graining, res, seed, est,
                                      c.options))
@@ -361,6 +371,7 @@ def compute_point(point: Point, *, progress: Callable[[int, int], None] | None =
                 col.ENERGY: snap.energy, col.ENERGY_DRIFT: snap.energy - energy0,
                 col.NORM: norm, col.EQUILIBRIUM: ref.S_obs_eq[j],
                 col.EQUILIBRIUM_ERR: ref.S_obs_eq_err[j], col.S_OBS_GGE: ref.S_obs_gge[j],
+                col.METHOD_ERROR: res.method_err,
                 **_truncation_columns(res, check, check_discarded),
                 col.OBSERVABLES: ",".join(c.observables),
                 col.N_OBSERVABLES: len(c.observables), col.BLOCK_SIZE: c.block_size})

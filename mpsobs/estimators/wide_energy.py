@@ -1,0 +1,397 @@
+"""Observational entropy of the energies of two large regions of an MPS.
+
+The coarse-graining (:class:`mpsobs.coarse.WideEnergyRegions`) asks the energy of the
+left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1, binned by
+floor(E / dE); H_A and H_B are the model's terms wholly inside each part. Outcomes
+(b_A, b_B) have p(b) = <psi| P_A(b_A) P_B(b_B) |psi> and V(b) = Omega_A(b_A) Omega_B(b_B),
+Omega_R(b) the number of eigenvalues of H_R in bin b.
+
+Probabilities (kernel polynomial method, :mod:`mpsobs.chebyshev`). In mixed-canonical
+form at the cut, psi = sum_a lambda_a |L_a> |R_a>; M^A_n[a, b] = <L_a| T_n(Ht_A) |L_b>
+from the Chebyshev recursion on the left half with its right bond open (all chi Schmidt
+vectors at once), the same for B (the right half mirrored, so that its open bond is on
+the right); then mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] and
+p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Negative values of
+the damped series (from the compression) are set to zero and p renormalised.
+
+Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
+eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
+own Gibbs state, Omega_R(b) = Z_R(beta) sum_{E in b} p_beta(E) e^{beta E} (DESIGN 3c),
+with the Gibbs state built as a purification by the Chebyshev expansion of
+exp(-beta H_R / 2) (:func:`mpsobs.chebyshev.gibbs_segment`, which gives ln Z_R from its
+norm), p_beta on sub-bins from its Chebyshev moments, and beta found by Newton steps so
+that <H_R>_beta lies near the state's mean regional energy and the mean +- 2 standard
+deviations (three references; each bin uses the one whose energy is closest). |beta| is
+capped at MAX_BETA_RESOLUTION / delta (delta = pi a / N the kernel resolution): beyond,
+e^(beta E) would magnify the smoothing of p_beta.
+
+Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
+the sum of the changes of S_obs when (1) the number of moments is halved (state and
+volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
+least like N^(-1/2)), (2) the compression bond is halved (state, Gibbs references and their ln Z),
+(3) the volume sub-bins are halved; and, reported apart as ``pruned_mass``, (4) the
+probability that the smoothed series puts into bins without eigenvalues (exact-count
+regions only), whose entropy bound the total error adds. The
+same for the Shannon and Boltzmann parts.
+The smoothing of the kernel (resolution about pi a / N for a spectrum half-width a) makes
+S_obs too large where the regional energies are sharper than the resolution (an
+eigenstate of H_A); the halved-moments change then is of order ln 2, so the error bar
+shows it.
+
+Cost: two Chebyshev runs per region (bond D and D / 2) of N / 2 compressions, each about
+3 n d ((w + 1) D)^3 flops for n sites, MPO bond w (Ising 3, XXZ 5), d = 2 (4 for a
+purification); for each wide region three Gibbs references, each a few Newton builds at
+bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
+The references depend only on the region and the state's regional energies; they are
+recomputed at every call.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import logsumexp
+
+from mpsobs.chain.coarse import WideEnergyRegions
+from mpsobs.chain.models import Model, Term
+from mpsobs.core.errors import InputError
+from mpsobs.core.threads import limits_threads, state_size
+from mpsobs.estimators import chebyshev
+from mpsobs.estimators.estimate import canonical_state
+from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
+from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
+
+__all__ = ["wide_energy_entropy", "region_volumes", "DEFAULT_MOMENTS", "DEFAULT_BOND",
+           "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
+
+log = logging.getLogger(__name__)
+
+#: Chebyshev moments per region (resolution about pi a / N in energy).
+DEFAULT_MOMENTS = 256
+#: Compression bond of the Chebyshev vectors (at least the state's bond is sensible).
+DEFAULT_BOND = 64
+#: Sub-bins per bin for the reweighted volumes.
+DEFAULT_SUB_BINS = 8
+#: Regions up to this many sites get exact volumes by diagonalisation.
+EXACT_VOLUME_SITES = 12
+#: Newton steps in beta towards a volume reference's target energy.
+NEWTON_STEPS = 4
+#: Largest |beta| delta of a volume reference (delta the kernel resolution in energy).
+MAX_BETA_RESOLUTION = 0.5
+#: Compression bond of the Gibbs states during the Newton steps.
+NEWTON_BOND = 8
+#: Target energies of the volume Gibbs states, in standard deviations of the state's
+#: regional energy around its mean.
+VOLUME_TARGETS = (-2.0, 0.0, 2.0)
+#: The change at half the moments, divided by this, is the moment part of the error:
+#: the remaining error if it falls at least like N^(-1/2) (sqrt(2) - 1; smoothing of a
+#: smooth density falls like N^-2, leakage of sharp peaks across bin edges like N^-1).
+RESOLUTION_ORDER_FACTOR = np.sqrt(2.0) - 1.0
+#: Bins whose probability is below this are left out of S_obs (their volume is not needed).
+PROBABILITY_FLOOR = 1e-14
+
+
+@dataclass(frozen=True)
+class _Parts:
+    """S_obs and its parts of one evaluation."""
+
+    entropy: float
+    shannon: float
+    boltzmann: float
+
+    def change(self, other: _Parts) -> np.ndarray:
+        return np.abs(np.array([self.entropy - other.entropy, self.shannon - other.shannon,
+                                self.boltzmann - other.boltzmann]))
+
+
+# --------------------------------------------------------------------------- the state
+
+
+def _split(tensors, cut: int) -> tuple[list[np.ndarray], np.ndarray, list[np.ndarray]]:
+    """Mixed-canonical form at the bond before site ``cut`` of a normalised
+    right-canonical chain: left-canonical tensors of sites 0 .. cut - 1 (open right bond),
+    the Schmidt values, right-canonical tensors of cut .. L - 1 (open left bond)."""
+    left = []
+    carry = tensors[0]
+    for i in range(cut):
+        dl, d, dr = carry.shape
+        u, s, vh = robust_svd(carry.reshape(dl * d, dr))
+        left.append(u.reshape(dl, d, -1))
+        if i < cut - 1:
+            carry = np.tensordot(s[:, None] * vh, tensors[i + 1], axes=(1, 0))
+    right = [np.tensordot(vh, tensors[cut], axes=(1, 0)), *tensors[cut + 1:]]
+    return left, s, right
+
+
+def _mirror_segment(tensors) -> list[np.ndarray]:
+    """Site order reversed (each tensor's bonds swapped): an open left bond becomes an
+    open right bond."""
+    return [t.transpose(2, 1, 0) for t in reversed(tensors)]
+
+
+_SWAP = np.eye(4)[[0, 2, 1, 3]]
+
+
+def _mirror_model(model: Model) -> Model:
+    """The model with its site order reversed (two-site terms with their sites swapped)."""
+    terms = tuple(Term(model.L - t.stop, t.matrix if t.width == 1 else _SWAP @ t.matrix @ _SWAP)
+                  for t in model.terms)
+    return Model(model.name, model.L, model.params, terms, model.conserves_number,
+                 model.energy_scale)
+
+
+@dataclass(frozen=True, eq=False)
+class _Region:
+    """One region: its model (mirrored for the right part), spectrum scaling and bins."""
+
+    model: Model
+    centre: float
+    half_width: float
+    bins: np.ndarray   # integer bin indices k: [k dE, (k + 1) dE)
+    bin_width: float
+
+    @property
+    def edges(self) -> np.ndarray:
+        return np.append(self.bins, self.bins[-1] + 1) * self.bin_width
+
+
+def _region(model: Model, bin_width: float) -> _Region:
+    centre, half = chebyshev.spectrum_bounds(model)
+    first = int(np.floor((centre - half) / bin_width))
+    last = int(np.floor((centre + half) / bin_width))
+    return _Region(model, centre, half, np.arange(first, last + 1), bin_width)
+
+
+def _moments(segment, region: _Region, n_moments: int, bond: int) -> np.ndarray:
+    d = segment[0].shape[1]
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, d)
+    return chebyshev.moment_matrices(segment, mpo, n_moments, bond)
+
+
+def _joint(mu: np.ndarray, regions: tuple[_Region, _Region], n_moments: int) -> np.ndarray:
+    """Bin probabilities P[b_A, b_B] from the first ``n_moments`` of mu (clipped >= 0,
+    renormalised)."""
+    ca, cb = (chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
+              for r in regions)
+    p = np.clip(ca @ mu[:n_moments, :n_moments] @ cb.T, 0.0, None)
+    return p / p.sum()
+
+
+def _mixed_moments(ma: np.ndarray, mb: np.ndarray, lam: np.ndarray) -> np.ndarray:
+    """mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] (real)."""
+    n = ma.shape[0]
+    weighted = (ma * np.outer(lam, lam)).reshape(n, -1)
+    return (weighted @ mb.reshape(mb.shape[0], -1).T).real
+
+
+# --------------------------------------------------------------------------- volumes
+
+
+@dataclass(frozen=True)
+class _GibbsPoint:
+    """A Gibbs reference of a region: beta, <H_R>, and at the compression bond (and at
+    half of it, ``*_low``) ln Z_R and the Chebyshev moments of Ht_R in the Gibbs state."""
+
+    beta: float
+    energy: float
+    log_z: float
+    log_z_low: float
+    moments: np.ndarray       # (N,)
+    moments_low: np.ndarray   # (N,)
+
+
+class _RegionVolumes:
+    """ln Omega_R(b) of one region: exact counts up to EXACT_VOLUME_SITES sites, else
+    reweighted from Gibbs states near the target energies (module docstring)."""
+
+    def __init__(self, region: _Region, targets, n_moments: int, bond: int,
+                 exact_sites: int = EXACT_VOLUME_SITES):
+        self.region = region
+        self.exact = region.model.L <= exact_sites
+        self.points = ([] if self.exact else
+                       [_gibbs_point(region, float(e), n_moments, bond) for e in targets])
+
+    def log_volumes(self, bins: np.ndarray, n_moments: int, sub_bins: int,
+                    low: bool = False) -> np.ndarray:
+        """ln Omega(b) of the integer bins (N = ``n_moments`` of the stored moments;
+        ``low``: the references at half the bond)."""
+        width = self.region.bin_width
+        if self.exact:
+            evals = np.linalg.eigvalsh(self.region.model.block_hamiltonian(
+                0, self.region.model.L))
+            index = np.floor(evals / width).astype(np.int64)
+            counts = np.array([np.sum(index == k) for k in bins], dtype=float)
+            with np.errstate(divide="ignore"):
+                return np.log(counts)
+        energies = np.array([pt.energy for pt in self.points])
+        out = np.empty(len(bins))
+        for i, k in enumerate(bins):
+            pt = self.points[int(np.argmin(np.abs(energies - (k + 0.5) * width)))]
+            edges = (k + np.arange(sub_bins + 1) / sub_bins) * width
+            weights = chebyshev.bin_weights(edges, self.region.centre,
+                                            self.region.half_width, n_moments)
+            p_sub = weights @ (pt.moments_low if low else pt.moments)[:n_moments]
+            live = p_sub > 0
+            centres = (edges[:-1] + edges[1:]) / 2
+            log_z = pt.log_z_low if low else pt.log_z
+            out[i] = (log_z + logsumexp(np.log(p_sub[live]) + pt.beta * centres[live])
+                      if live.any() else -np.inf)
+        return out
+
+
+def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
+    """The region's Gibbs reference with <H_R> near ``target``: Newton steps in beta on
+    <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, until <H_R> is within half a standard
+    deviation of the target, at most NEWTON_STEPS of them, and |beta| at most
+    MAX_BETA_RESOLUTION / delta for the kernel resolution delta = pi a / N (the factor
+    e^(beta E) magnifies the smoothing by about e^(|beta| delta)). Any beta gives exact
+    volumes in the limit; a near one gives accurate ones."""
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+    a, c = region.half_width, region.centre
+    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
+    beta, search_bond = 0.0, min(bond, NEWTON_BOND)
+    for _ in range(NEWTON_STEPS):
+        seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, search_bond)
+        m = chebyshev.moment_matrices(seg, mpo, 4, search_bond)[:3, 0, 0].real
+        mean, var = c + a * m[1], a**2 * ((m[2] + 1) / 2 - m[1] ** 2)
+        if abs(mean - target) <= 0.5 * np.sqrt(max(var, 0.0)) or var <= 0:
+            break
+        beta = float(np.clip(beta + (mean - target) / var, -beta_max, beta_max))
+    runs = []
+    for b in (bond, max(2, bond // 2)):
+        seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
+        runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
+    (log_z, mu), (log_z_low, mu_low) = runs
+    return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
+
+
+def _targets(region: _Region, marginal: np.ndarray) -> np.ndarray:
+    """Energies of the volume references: the mean of the state's regional energy and
+    the mean +- 2 standard deviations (only the mean when the spread is below a bin)."""
+    centres = (region.bins + 0.5) * region.bin_width
+    mean = float(marginal @ centres)
+    std = float(np.sqrt(max(float(marginal @ (centres - mean) ** 2), 0.0)))
+    if std <= region.bin_width / 2:
+        return np.array([mean])
+    return mean + std * np.array(VOLUME_TARGETS)
+
+
+def region_volumes(model: Model, bin_width: float, bins, *, targets=None,
+                   n_moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
+                   sub_bins: int = DEFAULT_SUB_BINS) -> np.ndarray:
+    """ln Omega(b) for the integer bins [k dE, (k + 1) dE) of the whole
+    ``model`` taken as a region: exact counts up to EXACT_VOLUME_SITES sites, else
+    reweighted from Gibbs states at the ``targets`` energies (default: the middle of
+    the given bins)."""
+    bins = np.asarray(bins, dtype=np.int64)
+    region = _region(model, bin_width)
+    if targets is None:
+        targets = [(bins.mean() + 0.5) * bin_width]
+    vol = _RegionVolumes(region, targets, n_moments, bond)
+    return vol.log_volumes(bins, n_moments, sub_bins)
+
+
+# --------------------------------------------------------------------------- entropy
+
+
+def _entropy(p: np.ndarray, log_va: np.ndarray, log_vb: np.ndarray) -> tuple[_Parts, float]:
+    """S_obs and its parts, and the probability the smoothed series put into bins
+    without eigenvalues (left out, the rest renormalised)."""
+    log_v = log_va[:, None] + log_vb[None, :]
+    live = (p > PROBABILITY_FLOOR) & np.isfinite(log_v)
+    dropped = float(p.sum() - p[live].sum())
+    pl = p[live] / p[live].sum()
+    shannon = float(-np.sum(pl * np.log(pl)))
+    boltzmann = float(np.sum(pl * log_v[live]))
+    return _Parts(shannon + boltzmann, shannon, boltzmann), dropped
+
+
+@limits_threads(lambda call: state_size(call.arguments["state"]))
+def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_MOMENTS,
+                        bond: int = DEFAULT_BOND, sub_bins: int = DEFAULT_SUB_BINS,
+                        exact_sites: int = EXACT_VOLUME_SITES) -> EntropyResult:
+    """S_obs of the energies of the two regions of ``cg`` in ``state`` (an MPS, or a
+    purification for a mixed state), with its method error (module docstring).
+
+    Parameters
+    ----------
+    state : normalised MPS or :class:`mpsobs.mps.PurifiedMPS` of cg.L sites.
+    cg : from :func:`mpsobs.coarse.blocks` with ``observable="energy"`` and a region
+        wider than :data:`mpsobs.coarse.MAX_BLOCK_SITES` sites.
+    moments : Chebyshev moments per region (even, >= 4).
+    bond : compression bond of the Chebyshev vectors (>= 2).
+    sub_bins : sub-bins per bin of the reweighted volumes (>= 2).
+    exact_sites : regions of at most this many sites get exact volumes (eigenvalue
+        counts); probability that the smoothed series puts into their empty bins is left
+        out and reported as ``pruned_mass`` (its entropy bound,
+        :func:`mpsobs.estimators.estimate.pruned_entropy_bound`, belongs to the total
+        error).
+
+    Returns
+    -------
+    EntropyResult with method "approximate": ``stderr`` 0 (nothing is sampled),
+    ``method_err`` (and the parts' errors) the error estimate (1)-(3) of the module
+    docstring, ``pruned_mass`` the probability of (4), whose entropy bound is added by
+    the total error (:mod:`mpsobs.analysis.uncertainty`); ``distribution`` the bins
+    (b_A, b_B) with p > 1e-14.
+    """
+    if not isinstance(cg, WideEnergyRegions):
+        raise InputError(f"coarse_graining: expected wide energy regions from "
+                         f"mpsobs.coarse.blocks, got {type(cg).__name__}")
+    for name, value, minimum in (("moments", moments, 4), ("bond", bond, 2),
+                                 ("sub_bins", sub_bins, 2), ("exact_sites", exact_sites, 0)):
+        if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
+            raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
+    if moments % 2:
+        raise InputError(f"moments: expected an even number (it is halved for the error "
+                         f"estimate), got {moments}")
+    mps = canonical_state(state, cg.L)
+    cut = cg.regions[0][1]
+    left, lam, right = _split(mps.tensors, cut)
+    segments = (left, _mirror_segment(right))
+    b0, b1 = cg.regions[1]
+    volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
+                           for x, y in cg.regions)
+    regions = (volume_regions[0], _region(_mirror_model(cg.model.restricted(b0, b1)),
+                                          cg.bin_width))
+    low_bond = max(2, bond // 2)
+    full = [_moments(seg, reg, moments, bond) for seg, reg in zip(segments, regions,
+                                                                  strict=True)]
+    mu = _mixed_moments(*full, lam)
+    mu_low = _mixed_moments(*(_moments(seg, reg, moments, low_bond)
+                              for seg, reg in zip(segments, regions, strict=True)), lam)
+    p = _joint(mu, regions, moments)
+    marginals = (p.sum(axis=1), p.sum(axis=0))
+    volumes = [_RegionVolumes(vreg, _targets(vreg, m), moments, bond, exact_sites)
+               for vreg, m in zip(volume_regions, marginals, strict=True)]
+
+    def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool) -> tuple:
+        live = [m > PROBABILITY_FLOOR for m in (probs.sum(axis=1), probs.sum(axis=0))]
+        log_v = []
+        for vol, reg, keep in zip(volumes, regions, live, strict=True):
+            values = np.full(len(reg.bins), -np.inf)
+            values[keep] = vol.log_volumes(reg.bins[keep], n_moments, sub, low)
+            log_v.append(values)
+        return _entropy(probs, *log_v), log_v
+
+    (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
+    (half, _), _ = evaluate(_joint(mu, regions, moments // 2), moments // 2, sub_bins, False)
+    (low, _), _ = evaluate(_joint(mu_low, regions, moments), moments, sub_bins, True)
+    (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
+    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
+           + main.change(coarse_sub))
+    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_vols[0][:, None]
+                                                             + log_vols[1][None, :]))
+    log_v = log_vols[0][live[:, 0]] + log_vols[1][live[:, 1]]
+    outcomes = np.column_stack([regions[0].bins[live[:, 0]], regions[1].bins[live[:, 1]]])
+    dist = OutcomeDistribution(outcomes, p[live[:, 0], live[:, 1]], np.exp(log_v))
+    bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
+    return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
+                         shannon_err=float(err[1]), boltzmann=main.boltzmann,
+                         boltzmann_err=float(err[2]), max_entropy=cg.max_entropy,
+                         method="approximate", label=cg.label, distribution=dist,
+                         bond_entropies=bonds, algorithm="mps-chebyshev",
+                         pruned_mass=dropped, method_err=float(err[0]))

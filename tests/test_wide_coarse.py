@@ -1,0 +1,51 @@
+"""The energy coarse-graining of regions wider than the block limit: what it carries and
+what it refuses."""
+
+import numpy as np
+import pytest
+
+from mpsobs.chain import coarse, models
+from mpsobs.core.errors import InputError
+
+
+def test_wide_energy_regions_carry_model_and_bins_not_projectors():
+    model = models.ising(40, g=1.05, h=0.25)
+    cg = coarse.blocks(40, None, "energy", model=model, bin_width=0.5,
+                       regions=[[0, 20], [20, 40]])
+    assert isinstance(cg, coarse.WideEnergyRegions)
+    assert cg.regions == ((0, 20), (20, 40))
+    assert cg.bin_width == 0.5 and cg.model is model
+    assert cg.max_entropy == pytest.approx(40 * np.log(2))
+    assert "energy" in cg.label and len(repr(cg)) < 300
+
+
+def test_equal_blocks_wider_than_the_limit_give_wide_regions():
+    model = models.xxz(30, delta=0.5)
+    cg = coarse.blocks(30, 15, "energy", model=model, bin_width=1.0)
+    assert cg.regions == ((0, 15), (15, 30))
+
+
+def test_narrow_energy_regions_keep_the_exact_block_path():
+    model = models.xxz(12, delta=0.5)
+    cg = coarse.blocks(12, 6, "energy", model=model, bin_width=1.0)
+    assert isinstance(cg, coarse.BlockCoarseGraining)
+
+
+@pytest.mark.parametrize("kwargs, field", [
+    ({"regions": [[0, 20], [20, 40]]}, "bin_width"),                      # no bin width
+    ({"regions": [[0, 14], [14, 28], [28, 40]], "bin_width": 1.0}, "regions"),  # three
+    ({"regions": [[0, 39], [39, 40]], "bin_width": 1.0}, "regions"),      # one-site region
+    ({"regions": [[0, 40]], "bin_width": 1.0}, "regions"),                # whole chain
+])
+def test_wide_energy_refusals_name_the_field(kwargs, field):
+    model = models.ising(40)
+    with pytest.raises(InputError, match=f"^{field}:"):
+        coarse.blocks(40, None, "energy", model=model, **kwargs)
+
+
+def test_wide_energy_regions_are_refused_in_a_sequence():
+    model = models.xxz(30, delta=0.5)
+    wide = coarse.blocks(30, 15, "energy", model=model, bin_width=1.0)
+    number = coarse.blocks(30, 15, "number")
+    with pytest.raises(InputError, match="^sequence:.*wider than"):
+        coarse.sequence(number, wide)

@@ -1,0 +1,224 @@
+"""The energy of wide regions: Chebyshev moments, Gibbs states and volumes, and S_obs
+against exact diagonalisation done here."""
+
+import numpy as np
+import pytest
+from scipy.integrate import quad
+
+from mpsobs.chain import coarse, models, states
+from mpsobs.chain import evolution as tebd
+from mpsobs.core.errors import InputError
+from mpsobs.estimators import chebyshev
+from mpsobs.estimators import wide_energy as we
+from mpsobs.estimators.entropy import observational_entropy
+from mpsobs.estimators.estimate import pruned_entropy_bound
+from mpsobs.mps.tensors import random_mps, to_dense
+from mpsobs.references import thermo
+
+
+def _total_error(res) -> float:
+    """The row's total error by the rule of mpsobs.analysis.uncertainty: the method error
+    estimate (no sampling error) plus the entropy bound of the pruned mass."""
+    return res.method_err + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
+
+
+def _dense_vectors(segment):
+    """(d^n, chi) matrix of the vectors of a segment with an open right bond."""
+    v = segment[0].reshape(-1, segment[0].shape[2])
+    for t in segment[1:]:
+        v = np.tensordot(v, t, axes=(1, 0)).reshape(-1, t.shape[2])
+    return v
+
+
+def _chebyshev_matrices(h, centre, half_width, n):
+    x = (h - centre * np.eye(len(h))) / half_width
+    out = [np.eye(len(h)), x]
+    for _ in range(2, n):
+        out.append(2 * x @ out[-1] - out[-2])
+    return out
+
+
+def test_moment_matrices_match_dense_chebyshev_polynomials():
+    # Dense twin: T_n(Ht) by the three-term recursion (handbook: Abramowitz and Stegun
+    # 22.7.4) on the exact Schmidt vectors of both halves (the right one mirrored).
+    L, cut = 10, 5
+    model = models.xxz(L, delta=0.5, h=0.3, field="staggered")
+    psi = random_mps(L, 8, seed=1)
+    left, _, right = we._split(psi.tensors, cut)
+    cases = [(left, model.restricted(0, cut)),
+             (we._mirror_segment(right), we._mirror_model(model.restricted(cut, L)))]
+    for segment, region_model in cases:
+        region = we._region(region_model, 1.0)
+        got = we._moments(segment, region, 12, 64)
+        vecs = _dense_vectors(segment)
+        h = region_model.block_hamiltonian(0, region_model.L)
+        want = [vecs.conj().T @ t @ vecs
+                for t in _chebyshev_matrices(h, region.centre, region.half_width, 12)]
+        np.testing.assert_allclose(got, want, atol=1e-10)
+    # the mirrored right half and model give the same expectation as the original
+    vr = _dense_vectors(cases[1][0])
+    n = L - cut
+    vr_orig = vr.reshape([2] * n + [-1]).transpose([*range(n - 1, -1, -1), n]).reshape(2**n, -1)
+    np.testing.assert_allclose(vr.conj().T @ cases[1][1].block_hamiltonian(0, n) @ vr,
+                               vr_orig.conj().T @ model.block_hamiltonian(cut, L) @ vr_orig,
+                               atol=1e-12)
+
+
+def test_spectrum_bounds_contain_the_spectrum():
+    model = models.ising(10, g=1.05, h=0.25)
+    centre, half = chebyshev.spectrum_bounds(model)
+    w = np.linalg.eigvalsh(model.dense_hamiltonian())
+    assert centre - half < w[0] and w[-1] < centre + half
+
+
+def test_bin_weights_are_the_integrals_of_the_damped_series():
+    # int over a bin of g_n T_n(x) / (pi sqrt(1 - x^2)) (x2 for n >= 1) by quadrature
+    edges = np.array([-1.0, -0.7, -0.1, 0.35, 0.9, 1.0])
+    n_moments = 9
+    got = chebyshev.bin_weights(edges, 0.0, 1.0, n_moments)
+    g = chebyshev.jackson(n_moments)
+    for b in range(len(edges) - 1):
+        lo, hi = edges[b], edges[b + 1]
+        # the end bins carry the 1 / sqrt(1 -+ x) singularity as a quadrature weight
+        wvar = (-0.5 if lo == -1 else 0.0, -0.5 if hi == 1 else 0.0)
+        for n in range(n_moments):
+            def smooth(x, n=n, wvar=wvar):
+                rest = (1 - x if wvar[1] == 0 else 1.0) * (1 + x if wvar[0] == 0 else 1.0)
+                return np.cos(n * np.arccos(x)) / (np.pi * np.sqrt(rest))
+            val, _ = quad(smooth, lo, hi, weight="alg", wvar=wvar)
+            assert got[b, n] == pytest.approx(g[n] * (1 if n == 0 else 2) * val, abs=1e-10)
+    # the bins cover the spectrum: the probabilities sum to mu_0
+    np.testing.assert_allclose(got.sum(axis=0), np.eye(n_moments)[0], atol=1e-12)
+
+
+@pytest.mark.parametrize("beta", [0.0, 0.6, -0.8])
+def test_gibbs_segment_gives_log_z_and_energy(beta):
+    # ln Z = ln sum exp(-beta E) and <H> against exact eigenvalues (dense diagonalisation)
+    model = models.ising(7, g=1.05, h=0.25)
+    centre, half = chebyshev.spectrum_bounds(model)
+    mpo = chebyshev.scaled_mpo(model, centre, half, 4)
+    segment, log_z = chebyshev.gibbs_segment(mpo, beta, centre, half, 256)
+    w = np.linalg.eigvalsh(model.dense_hamiltonian())
+    weights = np.exp(-beta * (w - w.min()))
+    # tolerance: the compression drops relative weights below 1e-14 (amplitudes 1e-7)
+    assert log_z == pytest.approx(np.log(weights.sum()) - beta * w.min(), abs=1e-6)
+    mu1 = chebyshev.moment_matrices(segment, mpo, 2, 256)[1, 0, 0].real
+    assert centre + half * mu1 == pytest.approx(weights @ w / weights.sum(), abs=1e-6)
+
+
+def _sector_eigenvalues(model):
+    """Eigenvalues of a number-conserving model, sector by sector."""
+    h = model.sparse_hamiltonian().tocsr()
+    count = np.array([bin(s).count("1") for s in range(2**model.L)])
+    return np.concatenate([np.linalg.eigvalsh(h[idx][:, idx].toarray())
+                           for idx in (np.flatnonzero(count == k) for k in range(model.L + 1))])
+
+
+def test_reweighted_volumes_of_13_sites_match_exact_counts():
+    # exact counts by diagonalising each number sector of H_R (13 sites)
+    model = models.xxz(13, delta=0.5, h=0.1, field="staggered")
+    width = 1.0
+    w = _sector_eigenvalues(model)
+    bins = np.arange(-4, 1)
+    exact = np.array([np.sum(np.floor(w / width) == k) for k in bins])
+    log_v = we.region_volumes(model, width, bins, targets=[-1.5], n_moments=64, bond=16,
+                              sub_bins=8)
+    # the accuracy goal of the method, 0.1 nats, on the bins near the reference energy
+    np.testing.assert_allclose(log_v, np.log(exact), atol=0.1)
+
+
+def _exact_regions_entropy(psi, model, cut, width):
+    """S_obs of the two regions' binned energies of a dense state, by diagonalisation."""
+    L = model.L
+    wa, ua = np.linalg.eigh(model.block_hamiltonian(0, cut))
+    wb, ub = np.linalg.eigh(model.block_hamiltonian(cut, L))
+    amp = ua.T @ psi.reshape(2**cut, -1) @ ub
+    ka, kb = np.floor(wa / width).astype(int), np.floor(wb / width).astype(int)
+    sa, ia = np.unique(ka, return_inverse=True)
+    sb, ib = np.unique(kb, return_inverse=True)
+    p = np.zeros((len(sa), len(sb)))
+    np.add.at(p, (ia[:, None], ib[None, :]), np.abs(amp) ** 2)
+    v = np.outer(np.bincount(ia), np.bincount(ib))
+    live = p > 0
+    return float(-np.sum(p[live] * np.log(p[live] / v[live])))
+
+
+def test_two_halves_against_dense_definition():
+    # L = 12, halves of 6 sites forced through the Chebyshev and reweighting path
+    # (exact_sites = 0); exact S_obs from the definition on the dense state.
+    L, cut, width = 12, 6, 1.0
+    model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
+    cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, width, "test")
+    for snap in tebd.evolve(states.neel(L), model, [1.5], max_bond=32, cutoff=1e-12,
+                            dt=0.05, order=4):
+        exact = _exact_regions_entropy(to_dense(snap.state), model, cut, width)
+        res = we.wide_energy_entropy(snap.state, cg, moments=128, bond=32, exact_sites=0)
+        assert res.method == "approximate" and res.stderr == 0.0
+        assert abs(res.entropy - exact) <= _total_error(res), (snap.t, res, exact)
+
+
+def test_infinite_temperature_gives_the_maximal_entropy():
+    # beta = 0: p(b) = V(b) / 2^L exactly, so S_obs = L ln 2 (definition, DESIGN 3c)
+    L = 64
+    model = models.ising(L, g=1.05, h=0.25)
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=4.0,
+                       regions=[[0, 32], [32, L]])
+    rho = thermo.gibbs_state(model, 0.0, max_bond=4)
+    res = we.wide_energy_entropy(rho, cg, moments=16, bond=8)
+    assert abs(res.entropy - L * np.log(2)) <= max(_total_error(res), 1e-8)
+    assert res.bond_entropies is None
+
+
+def test_entry_point_dispatches_and_refuses_sampling_settings():
+    L = 28
+    model = models.xxz(L, delta=0.5)
+    cg = coarse.blocks(L, 14, "energy", model=model, bin_width=2.0)
+    with pytest.raises(InputError, match="^samples:"):
+        observational_entropy(states.neel(L), cg, samples=100)
+    with pytest.raises(InputError, match="^moments:"):
+        we.wide_energy_entropy(states.neel(L), cg, moments=7)
+
+
+def _sector_eigh(model):
+    """Eigenvalues and eigenvectors (columns) of a number-conserving model, sector by
+    sector (exact diagonalisation)."""
+    h = model.sparse_hamiltonian().tocsr()
+    dim = 2**model.L
+    count = np.array([bin(s).count("1") for s in range(dim)])
+    values, vectors = np.empty(dim), np.zeros((dim, dim))
+    for k in range(model.L + 1):
+        idx = np.flatnonzero(count == k)
+        values[idx], vectors[np.ix_(idx, idx)] = np.linalg.eigh(h[idx][:, idx].toarray())
+    return values, vectors
+
+
+def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
+    # L = 26: exact p from the Schmidt vectors of the evolved MPS and the eigenvectors of
+    # H_A and H_B (13 sites each, diagonalised sector by sector); exact counts likewise.
+    L, cut, width = 26, 13, 1.0
+    model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
+    snap = next(iter(tebd.evolve(states.neel(L), model, [1.0], max_bond=8, cutoff=1e-12,
+                                 dt=0.05, order=4)))
+    left, lam, right = we._split(we.canonical_state(snap.state).tensors, cut)
+    vl = _dense_vectors(left)
+    vr = _dense_vectors(we._mirror_segment(right))
+    vr = vr.reshape([2] * cut + [-1]).transpose([*range(cut - 1, -1, -1), cut]).reshape(
+        2**cut, -1)
+    q, counts = [], []
+    # p(b_A, b_B) = sum_ab lambda_a lambda_b <L_a|P_A|L_b> <R_a|P_B|R_b>
+    for region, vecs, scale in ((model.restricted(0, cut), vl, lam),
+                                (model.restricted(cut, L), vr, np.ones_like(lam))):
+        values, eig = _sector_eigh(region)
+        amp = eig.T @ vecs * scale
+        k = np.floor(values / width).astype(int)
+        labels = np.unique(k)
+        q.append(np.array([amp[k == b].conj().T @ amp[k == b] for b in labels]))
+        counts.append(np.array([np.sum(k == b) for b in labels]))
+    p = np.einsum("iab,jab->ij", q[0], q[1]).real
+    v = np.outer(*counts)
+    live = p > 1e-15
+    exact = float(-np.sum(p[live] * np.log(p[live] / v[live])))
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=width,
+                       regions=[[0, cut], [cut, L]])
+    res = we.wide_energy_entropy(snap.state, cg, moments=64, bond=16)
+    assert abs(res.entropy - exact) <= _total_error(res), (res, exact)
