@@ -26,7 +26,7 @@ from mpsobs.estimators.blocktensors import (
     readout_blocks,
     transfer,
 )
-from mpsobs.estimators.charges import bond_charges, charged_blocks
+from mpsobs.estimators.charges import charged_blocks
 from mpsobs.estimators.estimate import (
     baseline_algorithms,
     canonical_state,
@@ -40,6 +40,7 @@ from mpsobs.estimators.estimate import (
     single_rows,
 )
 from mpsobs.mps import tensors as mpsmod
+from mpsobs.mps.charges import bond_charges
 
 # --------------------------------------------------------------------------- builders
 

@@ -2,11 +2,11 @@
 
 Conventions as :mod:`mpsobs.estimators.blocktensors`. A right-canonical MPS has
 *definite bond charges* when every bond basis state a has a definite number q_a of sites
-in |1> to its left: then A[a, s, b] != 0 only if q_b = q_a + s (:func:`bond_charges`
-reads them off the tensors). With readout rows of definite number c_r
-(:func:`mpsobs.estimators.blocktensors.number_definite_rows`) a block's row matrix A_r
-maps charge q to q + c_r only, so a left environment, built from sums of
-A_r^dagger E A_r starting from the 1 x 1 environment of charge 0, is block diagonal in the
+in |1> to its left: then A[a, s, b] != 0 only if q_b = q_a + s
+(:func:`mpsobs.mps.charges.bond_charges` reads them off the tensors). With readout rows
+of definite number c_r (:func:`mpsobs.estimators.blocktensors.number_definite_rows`) a
+block's row matrix A_r maps charge q to q + c_r only, so a left environment, built from
+sums of A_r^dagger E A_r starting from the 1 x 1 environment of charge 0, is block diagonal in the
 bond charge, E = sum_q E[q], and
 
     E'[q + c] += A_{r}[q, q + c]^dagger E[q] A_{r}[q, q + c]     (rows r of count c),
@@ -33,34 +33,9 @@ import numpy as np
 
 from mpsobs.core.printing import short
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock, transfer, transfer_flops
-from mpsobs.mps.tensors import MPS
 
-__all__ = ["bond_charges", "ChargedBlock", "charged_blocks", "Group", "start_group", "merge",
-           "work_buffer", "CHARGE_TOL"]
-
-#: Entries of a site tensor below this, relative to its largest, may break the charge
-#: rule (round-off of the canonical form); larger ones make the state not charge-definite.
-CHARGE_TOL = 1e-10
-
-
-def bond_charges(mps: MPS) -> list[np.ndarray] | None:
-    """Charges q_0 .. q_L of the bonds (q_i[a]: sites in |1> left of bond i's basis state
-    a; q_0 = [0]) if every bond basis state has one, else None. A bond basis state
-    without weight gets charge 0. Cost: one pass over the tensors."""
-    charges = [np.zeros(1, dtype=np.int64)]
-    for t in mps.tensors:
-        mag = np.abs(t)
-        big = mag > CHARGE_TOL * mag.max()
-        count = np.broadcast_to((charges[-1][:, None] + np.arange(2))[:, :, None], t.shape)
-        low = np.where(big, count, np.iinfo(np.int64).max).min(axis=(0, 1))
-        high = np.where(big, count, np.iinfo(np.int64).min).max(axis=(0, 1))
-        empty = ~big.any(axis=(0, 1))
-        low[empty] = high[empty] = 0
-        if np.any(low != high):
-            return None
-        charges.append(low)
-    return charges
-
+__all__ = ["ChargedBlock", "charged_blocks", "Group", "start_group", "merge",
+           "work_buffer"]
 
 @dataclass(frozen=True, eq=False)
 class ChargedBlock:

@@ -69,7 +69,7 @@ from mpsobs.chain.coarse import MAX_BLOCK_SITES, BlockCoarseGraining, ProjectorC
 from mpsobs.core.errors import InputError, check_seed
 from mpsobs.estimators import counting, enumeration
 from mpsobs.estimators.blocktensors import ReadoutBlock, outcome_weights, readout_blocks, transfer
-from mpsobs.estimators.charges import ChargedBlock, bond_charges, charged_blocks
+from mpsobs.estimators.charges import ChargedBlock, charged_blocks
 from mpsobs.estimators.counting import COUNT_MAX_REGIONS, countable
 from mpsobs.estimators.dense import NORM_TOL
 from mpsobs.estimators.enumeration import progress_bar
@@ -86,6 +86,7 @@ from mpsobs.estimators.sampling import (
     draw_samples,
     single_rows,
 )
+from mpsobs.mps.charges import bond_charges
 from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm
 
 __all__ = ["mps_observational_entropy", "canonical_state", "draw_samples", "SampleBatch",

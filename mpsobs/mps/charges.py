@@ -31,11 +31,15 @@ from mpsobs.mps.truncation import (
 )
 
 __all__ = ["local_charges", "row_charges", "col_charges", "block_qr", "block_split",
-           "definite_charges", "CHARGE_TOL"]
+           "definite_charges", "bond_charges", "CHARGE_TOL", "READ_CHARGE_TOL"]
 
 #: Largest squared-norm fraction that :func:`definite_charges` may discard to give every
 #: bond vector a definite charge (states beyond it take the dense path).
 CHARGE_TOL = 1e-12
+#: Entries of a site tensor below this, relative to its largest, may break the charge
+#: rule in :func:`bond_charges` (round-off of the canonical form); larger ones make the
+#: state not charge-definite in its present basis.
+READ_CHARGE_TOL = 1e-10
 
 
 def local_charges(local_dim: int) -> np.ndarray:
@@ -188,3 +192,25 @@ def definite_charges(tensors: list[np.ndarray],
     out[-1] = last / np.linalg.norm(last)
     charges.append(np.array([top], dtype=np.int64))
     return out, charges
+
+
+def bond_charges(mps) -> list[np.ndarray] | None:
+    """Charges q_0 .. q_L of the bonds of ``mps`` in its present basis (q_i[a]: charge of
+    the sites left of bond i's basis vector a, :func:`local_charges`; q_0 = [0]) if every
+    bond basis vector has one, else None; the state is not changed (for a change of
+    basis that gives it charges, :func:`definite_charges`). A bond basis vector without
+    weight gets charge 0. Cost: one pass over the tensors."""
+    charges = [np.zeros(1, dtype=np.int64)]
+    for t in mps.tensors:
+        mag = np.abs(t)
+        big = mag > READ_CHARGE_TOL * mag.max()
+        count = np.broadcast_to((charges[-1][:, None] + local_charges(t.shape[1]))[:, :, None],
+                                t.shape)
+        low = np.where(big, count, np.iinfo(np.int64).max).min(axis=(0, 1))
+        high = np.where(big, count, np.iinfo(np.int64).min).max(axis=(0, 1))
+        empty = ~big.any(axis=(0, 1))
+        low[empty] = high[empty] = 0
+        if np.any(low != high):
+            return None
+        charges.append(low)
+    return charges
