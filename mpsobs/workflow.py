@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from mpsobs.analysis import plots, scaling, trust
+from mpsobs.analysis import curves, plots, scaling, trust
 from mpsobs.core.errors import InputError
 from mpsobs.pipeline import build, columns, cost, store, sweep
 from mpsobs.pipeline import point as points
@@ -111,7 +111,7 @@ class _RunLog(logging.FileHandler):
 def _results(run_dir: str | os.PathLike, trust_rtol: float) -> pd.DataFrame:
     """RUN_DIR/results.parquet with its trusted times at ``trust_rtol``."""
     rtol = trust.check_rtol(trust_rtol, "--trust-rtol")
-    return trust.with_trusted_times(scaling.read_results(run_dir), rtol)
+    return trust.with_trusted_times(curves.read_results(run_dir), rtol)
 
 
 def plot(run_dir: str | os.PathLike, *, coarse: Sequence[str] | None = None,

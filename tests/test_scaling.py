@@ -323,7 +323,7 @@ def test_only_trusted_times_enter_plateau_and_saturation(caplog):
     law = DISORDER_LAW["number@b2"]
     results = saturating_results((8, 12, 16), DISORDER_TIMES, DISORDER_LAW, stderr=STDERR,
                                  seed=2, trusted_until=70.0)
-    with caplog.at_level("INFO", logger="mpsobs.analysis.scaling"):
+    with caplog.at_level("INFO", logger="mpsobs.analysis.curves"):
         table = scaling.scaling_table(results)
     assert "up to t_trusted = 70" in caplog.text
     assert (table.t_last == 70.0).all() and table.trusted_only.all()

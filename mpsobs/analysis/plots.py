@@ -10,7 +10,7 @@ units of 1/J. Panel titles describe the coarse-graining in words
 number"); a label given in the spec is shown as written.
 
 Errors. Where the table marks disorder realizations the curves are disorder means
-(:func:`mpsobs.analysis.scaling.disorder_average`). The shaded band is +- the total
+(:func:`mpsobs.analysis.curves.disorder_average`). The shaded band is +- the total
 error S_obs_total_err (:mod:`mpsobs.analysis.uncertainty`: sampling, truncation and
 method errors in quadrature plus the pruning bound); past t_trusted a curve is faint.
 
@@ -54,7 +54,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 from matplotlib.ticker import FuncFormatter, LogLocator, NullLocator
 
-from mpsobs.analysis import scaling, trust, uncertainty
+from mpsobs.analysis import curves, trust, uncertainty
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import with_error
 from mpsobs.core.version import __version__
@@ -200,8 +200,8 @@ def _title(key: Mapping[str, object], shown: Iterable[str]) -> str:
 def figure_parameters(results: pd.DataFrame) -> list[str]:
     """Parameters that get figures of their own: those other than L (its companions and
     the disorder labels) that vary within a coarse-graining."""
-    others = scaling.group_columns(results)[1:]
-    return scaling.varying_columns(results, others, within="coarse_graining")
+    others = curves.group_columns(results)[1:]
+    return curves.varying_columns(results, others, within="coarse_graining")
 
 
 def _value(value) -> str:
@@ -235,14 +235,14 @@ def caption(results: pd.DataFrame, shown: Sequence[str] = (),
     the chain-length companions as ``name(L)`` lists and the disorder average. L, the
     ``shown`` parameters (in panel titles) and the numerical settings (in the metadata,
     :func:`figure_metadata`) are left out. ``parameters``: the columns to consider
-    (default :func:`mpsobs.analysis.scaling.group_columns`)."""
-    disorder = scaling.disorder_columns(results)
+    (default :func:`mpsobs.analysis.curves.group_columns`)."""
+    disorder = curves.disorder_columns(results)
     skip = {"L", "coarse_graining", *shown, *disorder}
-    companions = scaling.length_companions(results) if parameters is None else []
+    companions = curves.length_companions(results) if parameters is None else []
     if parameters is None:
-        parameters = scaling.group_columns(results)
+        parameters = curves.group_columns(results)
     candidates = [c for c in parameters if c not in skip and _in_caption(c)]
-    varying = scaling.varying_columns(results, candidates)
+    varying = curves.varying_columns(results, candidates)
     fixed = {c: results[c].iloc[0] for c in candidates if c not in varying}
     parts = [f"{c}={_value(v)}" for c, v in fixed.items() if not _irrelevant(c, fixed)]
     for name in companions:
@@ -250,7 +250,7 @@ def caption(results: pd.DataFrame, shown: Sequence[str] = (),
         parts.append(f"{name}(L)=" + ",".join(_value(v) for v in pairs[name]))
     counts = None
     if disorder:
-        per_curve = results.groupby(scaling.group_columns(results) + ["L"], dropna=False)
+        per_curve = results.groupby(curves.group_columns(results) + ["L"], dropna=False)
         counts = sorted({int(n) for n in per_curve[disorder].nunique().max(axis=1)})
     elif "realizations" in results and results["realizations"].max() > 1:
         counts = sorted({int(n) for n in results["realizations"]})
@@ -295,7 +295,7 @@ def figure_metadata(results: pd.DataFrame, title: str, shown: Sequence[str] = ()
 
 def _averaged(results: pd.DataFrame) -> pd.DataFrame:
     """Disorder means when the rows have disorder labels, else the rows."""
-    return scaling.disorder_average(results) if scaling.disorder_columns(results) else results
+    return curves.disorder_average(results) if curves.disorder_columns(results) else results
 
 
 def _check_kind(kind: str) -> None:
@@ -316,10 +316,10 @@ def figure_data(results: pd.DataFrame, kind: str = "entropy", *, per_site: bool 
     named ``<column>_per_site``.
     """
     _check_kind(kind)
-    scaling.require_columns(results, _NEEDED[kind], f"{kind} figure")
+    curves.require_columns(results, _NEEDED[kind], f"{kind} figure")
     data = uncertainty.with_total_error(_averaged(results))
-    params = [c for c in scaling.group_columns(results)[1:] if c in data]
-    varying = [c for c in params if c in shown or c in scaling.varying_columns(data, params)]
+    params = [c for c in curves.group_columns(results)[1:] if c in data]
+    varying = [c for c in params if c in shown or c in curves.varying_columns(data, params)]
     drawn = [c for c in _DRAWN[kind] if c in data]
     out = data[["coarse_graining", *varying, "L", "t", *drawn]].copy()
     if per_site:
@@ -424,7 +424,7 @@ def _panels(data: pd.DataFrame, shown: Sequence[str], order: Sequence[str]
             ) -> list[tuple[dict, pd.DataFrame]]:
     """(key, rows) per panel: coarse-grainings in ``order``, then the ``shown`` values."""
     rank = {label: i for i, label in enumerate(order)}
-    panels = scaling.split(data, ["coarse_graining", *shown])
+    panels = curves.split(data, ["coarse_graining", *shown])
     return sorted(panels, key=lambda item: rank.get(item[0]["coarse_graining"], len(rank)))
 
 
@@ -676,10 +676,10 @@ def collapse_figure(collapse: pd.DataFrame,
     is not available); the dotted lines mark 1 and the fraction f used for t_f.
     """
     colors = dict(colors) if colors is not None else length_colors(collapse["L"])
-    keys = scaling.key_columns(collapse)
-    shown = scaling.varying_columns(collapse, [k for k in keys if k != "coarse_graining"],
+    keys = curves.key_columns(collapse)
+    shown = curves.varying_columns(collapse, [k for k in keys if k != "coarse_graining"],
                                     within="coarse_graining")
-    panels = scaling.split(collapse, keys) if not collapse.empty else []
+    panels = curves.split(collapse, keys) if not collapse.empty else []
     if not panels:
         with matplotlib.rc_context(PAPER_STYLE):
             fig = Figure(figsize=(PANEL_WIDTH, PANEL_HEIGHT), layout="constrained")
@@ -805,7 +805,7 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike, *,
     """
     results = trust.trusted(results, trust_rtol)
     rows = select_rows(results, coarse=coarse, where=where)
-    scaling.require_columns(rows, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
+    curves.require_columns(rows, ENTROPY_COLUMNS + PARTS_COLUMNS + KNOWLEDGE_COLUMNS,
                             "figures")
     colors = length_colors(results["L"])
     shown = figure_parameters(rows)
@@ -814,7 +814,7 @@ def plot_results(results: pd.DataFrame, directory: str | os.PathLike, *,
               "parts": lambda r: parts_figure(r, colors, shown, per_site=per_site),
               "knowledge": lambda r: knowledge_figure(r, colors, shown, per_site=per_site)}
     paths = []
-    for key, part in scaling.split(rows, shown):
+    for key, part in curves.split(rows, shown):
         subsets = ([("_" + _slug(label),
                      part[part["coarse_graining"] == label]) for label in coarse_order(part)]
                    if separate else [("", part)])
