@@ -1,4 +1,5 @@
-"""Thermodynamic references: Gibbs and generalised Gibbs entropies of a chain.
+"""Thermodynamic references: Gibbs entropies and Gibbs states of a chain, by purification
+where free fermions do not give them exactly.
 
 The Gibbs reference of a state is the Gibbs ensemble rho = exp(-beta H + alpha N) / Z
 whose energy <H> (the total energy, the same H as :mod:`mpsobs.models`, constants of the
@@ -10,13 +11,9 @@ Energies above the infinite-temperature energy give negative beta.
 
 Two ways to compute it:
 
-- "free-fermion", exact at any L: XX chains (delta = 0, any fields) from the
-  single-particle energies of :func:`mpsobs.gaussian.quadratic_hamiltonian`, and Ising
-  chains with h = 0 from the Bogoliubov quasiparticle energies (Ann. Phys. 16, 407
-  (1961); Ann. Phys. 57, 79 (1970)). With ``ensemble="canonical"`` (XX, integer
-  number) the ensemble is restricted to the sector N = number exactly: the right
-  reference for a closed chain of definite N (the grand ensemble's entropy is larger by
-  about (1/2) ln(2 pi e Var N)).
+- "free-fermion", exact at any L, for XX chains and Ising chains with h = 0
+  (:mod:`mpsobs.references.free_fermion_gibbs`, with the canonical ensemble of a
+  definite number for XX chains);
 - "purification", for everything else: the infinite-temperature state of the chain
   and one ancilla per site, |I> = prod_i (|00> + e^{alpha/2} |11>), evolved in
   imaginary time, |psi(beta)> = exp(-beta H / 2) |I> as an MPS of local dimension 4
@@ -42,6 +39,9 @@ was 5e-9 against a reported 1e-6). When the bond limit ``max_bond`` is reached, 
 is repeated at half the bond and |S(chi) - S(chi / 2)| is added.
 Cost per step O(L (4 chi)^3) for the splits, measurements O(L 16 chi^3), memory
 O(L 4 chi^2); see scripts/bench_thermo.py for timings.
+
+The generalised Gibbs ensemble of XX chains is in :mod:`mpsobs.references.gge`,
+:class:`GibbsResult` in :mod:`mpsobs.references.gibbs_result`; this module re-exports both.
 """
 
 from __future__ import annotations
@@ -49,23 +49,32 @@ from __future__ import annotations
 import logging
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from math import comb
-from typing import Literal
 
 import numpy as np
 import scipy.linalg as sla
 from scipy.interpolate import CubicHermiteSpline, CubicSpline
 from scipy.optimize import brentq
-from scipy.special import expit
 
 from mpsobs.chain.models import Model, bond_hamiltonians
 from mpsobs.core.errors import InputError, finite_number, integer
-from mpsobs.core.printing import number, with_error
 from mpsobs.core.threads import limits_threads
 from mpsobs.mps.charges import definite_charges
 from mpsobs.mps.evolution import GateChain, Gates, layer_schedule, on_physical
-from mpsobs.mps.tensors import MPS, PurifiedMPS, as_mps, right_canonical_log_norm
-from mpsobs.references import gaussian
+from mpsobs.mps.tensors import MPS, PurifiedMPS, right_canonical_log_norm
+from mpsobs.references.free_fermion_gibbs import (
+    FreeModes,
+    free_gibbs,
+    free_modes,
+    grand_ensemble,
+)
+from mpsobs.references.gge import GGEResult, gge
+from mpsobs.references.gibbs_result import (
+    Ensemble,
+    GibbsResult,
+    Method,
+    check_energy_range,
+    chemical_potential,
+)
 
 __all__ = ["GibbsResult", "GGEResult", "gibbs", "gibbs_at", "gibbs_state", "gge",
            "entropy_shift_bound", "Method", "Ensemble", "PURIFICATION_CUTOFF"]
@@ -73,286 +82,14 @@ __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
 
-Method = Literal["auto", "free-fermion", "purification"]
-Ensemble = Literal["grand", "canonical"]
-
 #: Default truncation cutoff of the purification (meaning: :mod:`mpsobs.mps.truncation`).
 PURIFICATION_CUTOFF = 1e-18
-#: Bracket doublings before a root search gives up.
-_MAX_DOUBLINGS = 200
 #: Largest ancilla reweighting |alpha' - alpha| * sqrt(L) / 2 kept without a new sweep.
 _REWEIGHT_MAX = 1.0
 #: Sweeps tried to bring the simulated alpha close to the target's.
 _MAX_SWEEPS = 3
 
 
-@dataclass(frozen=True, eq=False)
-class GibbsResult:
-    """A Gibbs ensemble exp(-beta H + beta mu N) / Z matched to an energy (and number).
-
-    ``entropy`` is the von Neumann entropy (total, nats) with error ``entropy_err``
-    (0 when exact; Trotter and truncation estimate for the purification); ``beta`` with
-    ``beta_err``; ``mu`` the chemical potential (None without a number; +-inf at
-    beta = 0 with a number away from half filling; for the canonical ensemble the mu of the
-    grand ensemble with the same beta and <N>); ``energy`` and ``number`` the
-    achieved <H> and <N> (``number`` None for models that do not conserve it);
-    ``discarded_weight`` the summed truncation weight, ``max_bond`` the largest bond
-    reached and ``steps`` the imaginary-time steps of the purification (0 otherwise).
-    """
-
-    entropy: float
-    entropy_err: float
-    beta: float
-    beta_err: float
-    mu: float | None
-    energy: float
-    number: float | None
-    method: Literal["free-fermion", "purification"]
-    ensemble: Ensemble
-    discarded_weight: float = 0.0
-    max_bond: int = 0
-    steps: int = 0
-
-    def __repr__(self) -> str:
-        extra = (f"; bond {self.max_bond}, {self.steps} steps, discarded weight "
-                 f"{self.discarded_weight:.2g}" if self.method == "purification" else "")
-        return (f"GibbsResult(S = {with_error(self.entropy, self.entropy_err)} nats, beta = "
-                f"{with_error(self.beta, self.beta_err)}, mu = {number(self.mu)}, "
-                f"E = {number(self.energy)}, N = {number(self.number)}; {self.method}, "
-                f"{self.ensemble}{extra})")
-
-
-@dataclass(frozen=True, eq=False)
-class GGEResult:
-    """Generalised Gibbs ensemble of a free-fermion chain fixed by the conserved mode
-    occupations of a state: ``entropy`` = sum_k h(occupations_k), h(x) = -x ln x -
-    (1 - x) ln(1 - x) (nats, exact: ``entropy_err`` = 0); ``energies`` the
-    single-particle energies of the modes; ``energy`` and ``number`` of the ensemble
-    (equal to the state's); ``correlation`` its correlation matrix C_ij = <c_i^dagger c_j>,
-    the state's with the coherences between modes of different energies removed (its
-    infinite-time average)."""
-
-    entropy: float
-    entropy_err: float
-    occupations: np.ndarray
-    energies: np.ndarray
-    energy: float
-    number: float
-    correlation: np.ndarray
-
-    def __repr__(self) -> str:
-        return (f"GGEResult(S = {number(self.entropy)} nats (exact), {len(self.occupations)} "
-                f"modes, E = {number(self.energy)}, N = {number(self.number)})")
-
-
-# --------------------------------------------------------------------------- free fermions
-
-
-@dataclass(frozen=True, eq=False)
-class _Modes:
-    """H = sum_k energies_k n_k + offset with independent fermion modes; ``charged``
-    when every mode carries one particle of the chain (XX), not for Bogoliubov modes."""
-
-    energies: np.ndarray
-    offset: float
-    charged: bool
-
-
-def _free_modes(model: Model) -> _Modes | None:
-    try:
-        ham = gaussian.quadratic_hamiltonian(model)
-        return _Modes(ham.energies, ham.offset, True)
-    except InputError:
-        pass
-    try:
-        eps = gaussian.quasiparticle_energies(model)
-        return _Modes(eps, -float(eps.sum()) / 2, False)
-    except InputError:
-        return None
-
-
-def _binary_entropy(x: np.ndarray) -> np.ndarray:
-    """h(f) for f = expit(x), without cancellation at large |x|."""
-    a = -np.abs(x)
-    return np.logaddexp(0.0, a) - a * expit(a)
-
-
-def _grand(modes: _Modes, beta: float, alpha: float) -> tuple[float, float, float]:
-    """(E, N, S) of exp(-beta H + alpha N); N counts mode occupations."""
-    x = alpha * modes.charged - beta * modes.energies
-    f = expit(x)
-    return (float(modes.offset + np.dot(modes.energies, f)), float(f.sum()),
-            float(_binary_entropy(x).sum()))
-
-
-def _alpha_for_number(modes: _Modes, beta: float, number: float) -> float:
-    """alpha with sum_k expit(alpha - beta eps_k) = number (monotone in alpha)."""
-    be = beta * modes.energies
-    base = np.log(number / (modes.energies.size - number))
-    lo, hi = base + be.min() - 1.0, base + be.max() + 1.0
-    return brentq(lambda a: expit(a - be).sum() - number, lo, hi, xtol=1e-14, rtol=1e-15)
-
-
-def _canonical(modes: _Modes, beta: float, number: int) -> tuple[float, float, float]:
-    """(E, ln Z_N, alpha*) of the N = number sector of exp(-beta H), exact.
-
-    Z_N = e^{-alpha N} prod_k (1 + e^{alpha - beta eps_k}) P_f(N), P_f the distribution
-    of the number of successes of trials with probabilities f_k = expit(alpha - beta
-    eps_k), for any alpha; alpha* is the grand-canonical saddle (so P_f(N) is not small).
-    E = -d ln Z_N / d beta follows by carrying the beta-derivative through the
-    convolution. Cost O(L^2).
-    """
-    alpha = _alpha_for_number(modes, beta, number)
-    eps = modes.energies
-    x = alpha - beta * eps
-    f = expit(x)
-    df = -eps * f * (1 - f)
-    p = np.zeros(eps.size + 1)
-    dp = np.zeros_like(p)
-    p[0] = 1.0
-    for k in range(eps.size):
-        shifted, dshifted = np.roll(p, 1), np.roll(dp, 1)
-        shifted[0] = dshifted[0] = 0.0
-        dp = dp * (1 - f[k]) + dshifted * f[k] + (shifted - p) * df[k]
-        p = p * (1 - f[k]) + shifted * f[k]
-    log_z = float(np.logaddexp(0.0, x).sum() - alpha * number + np.log(p[number]))
-    e = float(modes.offset + np.dot(eps, f) - dp[number] / p[number])
-    return e, log_z, alpha
-
-
-def _ground_filling(eps: np.ndarray, number: float, tol: float, sign: int):
-    """Occupations of the beta -> sign * inf limit at <N> = number: the lowest (highest
-    for sign < 0) modes filled, the Fermi level's degenerate modes sharing the rest.
-    Returns (f, Fermi energy, degeneracy g, particles r placed in the level)."""
-    order = np.argsort(sign * eps, kind="stable")
-    e_sorted = eps[order]
-    full = int(np.floor(number + 1e-12))
-    f_sorted = np.zeros(eps.size)
-    if full >= eps.size:
-        f_sorted[:] = 1.0
-        fermi = e_sorted[-1]
-    else:
-        fermi = e_sorted[full]
-        level = np.abs(e_sorted - fermi) <= tol
-        below = int(np.count_nonzero(level[:full]))
-        f_sorted[:full] = 1.0
-        g = int(np.count_nonzero(level))
-        r = number - full + below
-        f_sorted[level] = r / g
-    f = np.empty_like(f_sorted)
-    f[order] = f_sorted
-    if full >= eps.size:
-        return f, float(fermi), 1, 0.0
-    return f, float(fermi), g, r
-
-
-def _solve_decreasing(func: Callable[[float], float], target: float, scale: float) -> float:
-    """Root of the decreasing func(beta) = target, bracketed by doubling from beta = 0."""
-    f0 = func(0.0)
-    if f0 == target:
-        return 0.0
-    direction = 1.0 if target < f0 else -1.0
-    step = 1.0 / scale
-    lo = 0.0
-    for _ in range(_MAX_DOUBLINGS):
-        hi = direction * step
-        if (func(hi) - target) * direction < 0:
-            a, b = sorted((lo, hi))
-            return brentq(lambda b_: func(b_) - target, a, b, xtol=1e-15 / scale, rtol=1e-15)
-        lo, step = hi, 2 * step
-    raise InputError(f"energy: {target!r} could not be bracketed (it is within round-off of "
-                     f"the ground or ceiling energy)")
-
-
-def _free_gibbs(modes: _Modes, L: int, scale: float, target: float, number: float | None,
-                ensemble: Ensemble, beta: float | None = None) -> GibbsResult:
-    """The free-fermion Gibbs ensemble at ``target`` energy (or at ``beta``)."""
-    eps = modes.energies
-    tol = 1e-12 * max(1.0, scale * L)
-    if number is None:
-        if beta is None:
-            e_min = modes.offset + float(np.minimum(eps, 0).sum())
-            e_max = modes.offset + float(np.maximum(eps, 0).sum())
-            _check_range(target, e_min, e_max, tol)
-            if abs(target - e_min) <= tol or abs(target - e_max) <= tol:
-                sign = 1 if abs(target - e_min) <= tol else -1
-                zero = int(np.count_nonzero(np.abs(eps) <= tol))
-                n = float(np.sum(np.where(np.abs(eps) <= tol, 0.5, sign * eps < 0)))
-                return GibbsResult(zero * np.log(2.0), 0.0, sign * np.inf, 0.0, None, target,
-                                   n if modes.charged else None, "free-fermion", ensemble)
-            beta = _solve_decreasing(lambda b: _grand(modes, b, 0.0)[0], target, scale)
-        e, n, s = _grand(modes, beta, 0.0)
-        return GibbsResult(s, 0.0, beta, 0.0, None, e, n if modes.charged else None,
-                           "free-fermion", ensemble)
-    if ensemble == "canonical":
-        return _free_canonical(modes, L, scale, target, int(number), tol, beta)
-    if beta is None:
-        (f_lo, _, _, _), (f_hi, _, _, _) = (_ground_filling(eps, number, tol, s)
-                                            for s in (1, -1))
-        e_min = modes.offset + float(np.dot(eps, f_lo))
-        e_max = modes.offset + float(np.dot(eps, f_hi))
-        _check_range(target, e_min, e_max, tol, number)
-        if abs(target - e_min) <= tol or abs(target - e_max) <= tol:
-            sign = 1 if abs(target - e_min) <= tol else -1
-            f, fermi, _, _ = _ground_filling(eps, number, tol, sign)
-            s = float(np.sum(_entropy_of_occupations(f)))
-            return GibbsResult(s, 0.0, sign * np.inf, 0.0, fermi, target, number,
-                               "free-fermion", ensemble)
-
-        def energy_at(b: float) -> float:
-            return _grand(modes, b, _alpha_for_number(modes, b, number))[0]
-
-        beta = _solve_decreasing(energy_at, target, scale)
-    alpha = _alpha_for_number(modes, beta, number)
-    e, n, s = _grand(modes, beta, alpha)
-    return GibbsResult(s, 0.0, beta, 0.0, _mu(alpha, beta), e, n, "free-fermion", ensemble)
-
-
-def _free_canonical(modes: _Modes, L: int, scale: float, target: float, number: int,
-                    tol: float, beta: float | None) -> GibbsResult:
-    eps = np.sort(modes.energies)
-    e_min = modes.offset + float(eps[:number].sum())
-    e_max = modes.offset + float(eps[L - number:].sum())
-    if number in (0, L):
-        _check_range(target, e_min, e_max, tol, number)
-        return GibbsResult(0.0, 0.0, 0.0 if beta is None else beta, 0.0, None, e_min,
-                           float(number), "free-fermion", "canonical")
-    if beta is None:
-        _check_range(target, e_min, e_max, tol, number)
-        if abs(target - e_min) <= tol or abs(target - e_max) <= tol:
-            sign = 1 if abs(target - e_min) <= tol else -1
-            _, fermi, g, r = _ground_filling(modes.energies, number, tol, sign)
-            return GibbsResult(float(np.log(comb(g, int(round(r))))), 0.0, sign * np.inf, 0.0,
-                               fermi, target, float(number), "free-fermion", "canonical")
-        beta = _solve_decreasing(lambda b: _canonical(modes, b, number)[0], target, scale)
-    e, log_z, alpha = _canonical(modes, beta, number)
-    s = beta * (e - modes.offset) + log_z
-    return GibbsResult(float(s), 0.0, beta, 0.0, _mu(alpha, beta), e, float(number),
-                       "free-fermion", "canonical")
-
-
-def _entropy_of_occupations(f: np.ndarray) -> np.ndarray:
-    f = np.clip(f, 0.0, 1.0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out = -f * np.log(f) - (1 - f) * np.log1p(-f)
-    return np.nan_to_num(out, nan=0.0)
-
-
-def _mu(alpha: float, beta: float) -> float:
-    if beta != 0:
-        return float(alpha / beta)
-    return 0.0 if alpha == 0 else float(np.copysign(np.inf, alpha))
-
-
-def _check_range(target: float, e_min: float, e_max: float, tol: float,
-                 number: float | None = None) -> None:
-    if not e_min - tol <= target <= e_max + tol:
-        at = "" if number is None else f" at number {number:g}"
-        raise InputError(f"energy: {target:.12g} is outside the spectrum range{at}, "
-                         f"[{e_min:.12g}, {e_max:.12g}]")
-
-
-# --------------------------------------------------------------------------- purification
 
 
 def _infinite_temperature(model: Model, alpha: float,
@@ -528,7 +265,7 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
     if target is not None:
         e_lb = float(sum(sla.eigvalsh(h)[0] for h in bonds))
         e_ub = float(sum(sla.eigvalsh(h)[-1] for h in bonds))
-        _check_range(target, e_lb, e_ub, 1e-12 * max(1.0, model.energy_scale * L))
+        check_energy_range(target, e_lb, e_ub, 1e-12 * max(1.0, model.energy_scale * L))
         alpha0 = 0.0 if number is None else float(np.log(number / (L - number)))
     else:
         alpha0 = 0.0 if mu is None else float(beta * mu)
@@ -567,7 +304,7 @@ def _purification_gibbs(model: Model, target: float | None, beta: float | None,
     e1, n1 = e1 + (e1 - e2) / 3, n1 + (n1 - n2) / 3  # unchanged when matched to a target
     # alpha extrapolated like beta, so that (beta, mu) together name the matched ensemble
     alpha_out = a1 + (a1 - a2) / 3 if mu is None else a1
-    mu_out = None if (number is None and mu is None) else _mu(alpha_out, beta_out)
+    mu_out = None if (number is None and mu is None) else chemical_potential(alpha_out, beta_out)
     conserves = model.conserves_number
     beta_err = abs(b1 - b2) / 3 + (abs(b1 - b3) if truncation else 0.0)
     return GibbsResult(float(entropy), float(trotter + truncation), float(beta_out),
@@ -638,9 +375,9 @@ def _check_options(model, method, ensemble, max_bond, dbeta, cutoff) -> None:
 
 
 def _pick(model: Model, method: Method, ensemble: Ensemble,
-          number: float | None) -> _Modes | None:
+          number: float | None) -> FreeModes | None:
     """The free modes when the free-fermion route is taken, else None."""
-    modes = None if method == "purification" else _free_modes(model)
+    modes = None if method == "purification" else free_modes(model)
     if method == "free-fermion" and modes is None:
         raise InputError(f"method: 'free-fermion' needs an XX chain (xxz, delta = 0) or an "
                          f"Ising chain with h = 0, not this {model.name} chain")
@@ -684,7 +421,7 @@ def gibbs(model: Model, energy: float, number: float | None = None, *,
     value = _check_number(model, number, ensemble)
     modes = _pick(model, method, ensemble, value)
     if modes is not None:
-        return _free_gibbs(modes, model.L, model.energy_scale, target, value, ensemble)
+        return free_gibbs(modes, model.L, model.energy_scale, target, value, ensemble)
     beta_max = 20.0 / model.energy_scale if beta_max is None else finite_number(beta_max,
                                                                                  "beta_max")
     return _purification_gibbs(model, target, None, None, value, max_bond=max_bond,
@@ -706,7 +443,7 @@ def gibbs_at(model: Model, beta: float, mu: float | None = None, *, method: Meth
     modes = _pick(model, method, "grand", mu_value)
     if modes is not None:
         alpha = 0.0 if mu_value is None else beta * mu_value
-        e, n, s = _grand(modes, beta, alpha)
+        e, n, s = grand_ensemble(modes, beta, alpha)
         return GibbsResult(s, 0.0, beta, 0.0, mu_value, e, n if modes.charged else None,
                            "free-fermion", "grand")
     return _purification_gibbs(model, None, beta, mu_value, None, max_bond=max_bond,
@@ -821,39 +558,3 @@ def entropy_shift_bound(trace_distance: float, max_entropy: float) -> float:
         return float(max_entropy)
     log_dm1 = np.log(dim_minus_one) if np.isfinite(dim_minus_one) else max_entropy
     return float(t * log_dm1 - t * np.log(t) - (1 - t) * np.log1p(-t))
-
-
-def gge(model: Model, state) -> GGEResult:
-    """The generalised Gibbs ensemble of an XX chain fixed by a state's conserved mode
-    occupations, and its entropy sum_k h(n_k) (nats).
-
-    ``state`` is a correlation matrix C_ij = <c_i^dagger c_j> (an (L, L) array), an MPS
-    (mpsobs, quimb or a list of arrays; C is computed at O(L^2 chi^3)) or a 0/1 pattern of
-    a computational-basis product state (a sequence of L ints). Integrable free-fermion
-    chains relax to this ensemble rather than to Gibbs; its entropy is at most the grand
-    Gibbs entropy at the same energy and number (maximum entropy under more constraints).
-    Cost O(L^3) besides C.
-    """
-    ham = gaussian.quadratic_hamiltonian(model)
-    corr = _state_correlation(state, model.L)
-    occ = gaussian.mode_occupations(ham, corr)
-    eps = ham.energies
-    level = np.cumsum(np.concatenate([[0], np.diff(eps) > 1e-9 * max(1.0, np.abs(eps).max())]))
-    in_modes = ham.modes.T @ corr @ ham.modes.conj()
-    in_modes[level[:, None] != level[None, :]] = 0.0
-    dephased = ham.modes.conj() @ in_modes @ ham.modes.T
-    return GGEResult(float(np.sum(_entropy_of_occupations(occ))), 0.0, occ, eps,
-                     float(ham.offset + np.dot(eps, occ)), float(occ.sum()), dephased)
-
-
-def _state_correlation(state, L: int) -> np.ndarray:
-    if isinstance(state, np.ndarray) and state.ndim == 2:
-        corr = state
-    elif isinstance(state, MPS) or hasattr(state, "site_ind") or (
-            isinstance(state, list | tuple) and len(state) and np.ndim(state[0]) == 3):
-        corr = gaussian.correlation_matrix(as_mps(state))
-    else:
-        corr = gaussian.product_correlation(state)
-    if corr.shape != (L, L):
-        raise InputError(f"state: it has {corr.shape[0]} sites, the model L = {L}")
-    return corr
