@@ -10,7 +10,7 @@ import pytest
 
 from mpsobs import cli
 from mpsobs.core.errors import InputError
-from mpsobs.pipeline import build, spec
+from mpsobs.pipeline import build, spec, spec_points, spec_schema
 from mpsobs.pipeline.columns import EXTRA, REQUIRED
 from mpsobs.pipeline.point import check_points
 
@@ -343,17 +343,21 @@ def test_fixed_settings_ignore_sweep_values_only():
     assert spec.fixed_settings(run.body, axes) != spec.fixed_settings(other.body, axes)
 
 
-def test_spec_imports_nothing_numerical_from_the_package():
-    """The spec is schema and parsing only: of the package it imports the core alone."""
+@pytest.mark.parametrize("module", [spec, spec_schema, spec_points])
+def test_spec_imports_nothing_numerical_from_the_package(module):
+    """The spec is schema and parsing only: of the package its modules import the core
+    alone, and each other."""
     import ast
 
-    tree = ast.parse(Path(spec.__file__).read_text(encoding="utf-8"))
+    tree = ast.parse(Path(module.__file__).read_text(encoding="utf-8"))
     imported = {node.module for node in ast.walk(tree)
                 if isinstance(node, ast.ImportFrom) and node.module}
     imported |= {alias.name for node in ast.walk(tree) if isinstance(node, ast.Import)
                  for alias in node.names}
     ours = {name for name in imported if name.startswith("mpsobs")}
-    assert ours and all(name.startswith("mpsobs.core.") for name in ours), ours
+    spec_modules = {m.__name__ for m in (spec, spec_schema, spec_points)}
+    assert ours and all(name.startswith("mpsobs.core.") or name in spec_modules
+                        for name in ours), ours
 
 
 def test_retired_trust_rtol_leaves_body_and_run_identity(caplog):

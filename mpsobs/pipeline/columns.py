@@ -18,7 +18,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass
 
-from mpsobs.pipeline.spec import parameter_column_descriptions
+from mpsobs.pipeline.spec_schema import parameter_column_descriptions
 
 __all__ = ["Column", "RESULT_COLUMNS", "REQUIRED", "EXTRA", "ANALYSIS", "ROW_COLUMNS",
            "DESCRIPTIONS", "PARAMETER_DESCRIPTIONS", "describe", "parameter_columns",

@@ -64,7 +64,7 @@ from mpsobs.estimators import estimate
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline.build import build_point
-from mpsobs.pipeline.spec import Point
+from mpsobs.pipeline.spec_points import Point
 from mpsobs.references import gaussian
 
 __all__ = ["GEMM_RATE", "LAPACK_RATE", "CALL_SECONDS", "BASE_BYTES", "BETA_GUESS",

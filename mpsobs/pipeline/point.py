@@ -80,7 +80,7 @@ from mpsobs.pipeline.build import (
     evolve,
     initial_state,
 )
-from mpsobs.pipeline.spec import Point
+from mpsobs.pipeline.spec_points import Point
 from mpsobs.pipeline.store import SITE_FIELDS_ATTR
 from mpsobs.references import gaussian, thermo
 

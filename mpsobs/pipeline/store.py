@@ -67,7 +67,7 @@ from mpsobs.core.errors import InputError
 from mpsobs.core.printing import short
 from mpsobs.core.version import __version__
 from mpsobs.pipeline.columns import describe
-from mpsobs.pipeline.spec import Point, RunSpec, fixed_settings
+from mpsobs.pipeline.spec_points import Point, RunSpec, fixed_settings
 
 __all__ = ["RunDirError", "RunStore", "check_target", "open_run", "atomic_write",
            "out_of_space", "SPEC_FILE", "RESULTS_FILE", "LOCK_FILE", "LOG_FILE"]

@@ -43,7 +43,7 @@ import pandas as pd
 
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import short
-from mpsobs.pipeline.spec import Point, RunSpec
+from mpsobs.pipeline.spec_points import Point, RunSpec
 from mpsobs.pipeline.store import LOG_FILE, RunStore, out_of_space
 
 __all__ = ["Kernel", "Failure", "SweepReport", "run_sweep", "run_point_task", "local_cluster",
