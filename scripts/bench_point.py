@@ -54,7 +54,7 @@ import numpy as np
 
 from mpsobs.estimators import counting, enumeration, estimate
 from mpsobs.estimators.entropy import observational_entropy
-from mpsobs.pipeline import point, spec
+from mpsobs.pipeline import build, point, spec
 
 #: The clock of every figure: CPU seconds of this process. With one BLAS thread
 #: (OPENBLAS_NUM_THREADS=1) that is the work done, and much less sensitive than wall time
@@ -130,7 +130,7 @@ class Timers:
 def timed_point(p: spec.Point, baseline: bool) -> tuple[dict, object]:
     """(seconds per part, rows) of one compute_point run."""
     timers = Timers()
-    patches = [(point.tebd, "evolve", timers.wrap_generator("evolution", point.tebd.evolve)),
+    patches = [(build.tebd, "evolve", timers.wrap_generator("evolution", build.tebd.evolve)),
                (point, "_reference", timers.wrap("references", point._reference)),
                (estimate._Sampling, "draw", timers.wrap("sampling", estimate._Sampling.draw)),
                (enumeration, "enumerate_outcomes",
@@ -202,19 +202,18 @@ def best_of(repeat: int, func, *args, **kwargs) -> tuple[float, object]:
 
 def bench_final(name: str, L: int, bond: int, n_times: int, repeat: int) -> None:
     p = spec.parse(research_spec(name, L, bond, n_times)).points[0]
-    model, cgs, options = point._prepare(p)
+    built = build.build_point(p)
     evo, times = p.params["evolution"], p.params["times"]["values"]
-    state = point.initial_state(p.params["state"], model, evo)
     start = time.perf_counter()
-    *_, last = point.tebd.evolve(state, model, times, max_bond=evo["chi_max"],
-                                 cutoff=evo["cutoff"], dt=evo["dt"], order=evo["order"])
+    *_, last = build.evolve(built, built.state, times, evo["chi_max"])
     print(f"\n{name}: L = {L}, t = {times[-1]:g}, bond {last.max_bond} (evolved in "
           f"{time.perf_counter() - start:.0f} s wall); CPU seconds per estimate, best of "
           f"{repeat}")
     print(f"  {'coarse-graining':<16} {'estimator':<22} {'baseline':>11} {'new':>8} "
           f"{'ratio':>7}  agreement")
-    for (label, _, cg), opts in zip(cgs, options, strict=True):
-        runs = {"point's estimator": opts, "sample": {"method": "sample", "samples": 1000}}
+    for c in built.coarse:
+        label, cg = c.label, c.coarse_graining
+        runs = {"point's estimator": c.options, "sample": {"method": "sample", "samples": 1000}}
         for kind, kwargs in runs.items():
             with estimate.baseline_algorithms():
                 t_old, old = best_of(repeat, observational_entropy, last.state, cg, seed=3,

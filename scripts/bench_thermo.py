@@ -27,8 +27,9 @@ import time
 
 import numpy as np
 
-from mpsobs import evolve, observational_entropy
+from mpsobs import observational_entropy
 from mpsobs.chain import coarse, states
+from mpsobs.chain import evolution as tebd
 from mpsobs.chain.models import energy, ising, xxz
 from mpsobs.pipeline.point import EQ_MAX_BOND
 from mpsobs.references import gaussian, thermo
@@ -122,7 +123,7 @@ def equilibrium_cost(L: int, unit: float, pattern: str) -> None:
     for the product state of ``pattern`` quenched in the tilted-field Ising chain."""
     model = ising(L, J=1.0, g=1.0, h=0.5)
     psi0 = states.product_state(pattern * (L // len(pattern)))
-    (snap,) = evolve.evolve(psi0, model, [2.0], max_bond=32, cutoff=1e-10, dt=0.25,
+    (snap,) = tebd.evolve(psi0, model, [2.0], max_bond=32, cutoff=1e-10, dt=0.25,
                              order=4)
     cgs = [coarse.blocks(L, 4, "number"), coarse.blocks(L, 4, "energy", model=model,
                                                           bin_width=1.0)]

@@ -9,6 +9,8 @@ benchmark (scripts/bench_cost.py), not a test.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -20,6 +22,8 @@ from mpsobs.estimators.estimate import conditional_sample_flops
 from mpsobs.mps import evolution as kernel
 from mpsobs.mps.tensors import random_mps
 from mpsobs.pipeline import cost, spec
+
+SHIPPED = Path(__file__).resolve().parents[1] / "runs"
 
 
 @pytest.mark.parametrize(("L", "cap", "order"), [(8, 6, 2), (9, 5, 4), (10, 16, 4)])
@@ -100,3 +104,22 @@ def test_check_prints_the_cost(capsys):
     assert "estimated cost" in out and "core-" in out and "a worker needs" in out
     for p in spec.load(None).points:
         assert out.count(p.point_id) == 2  # listed, then costed
+
+
+def test_a_wide_region_spec_without_sample_count_is_costed():
+    # energies of two 16-site halves (the Chebyshev estimator) and no estimator.samples:
+    # the count follows the wide-region rule and grows with the region (n ((w+1) D)^3)
+    points = spec.load(SHIPPED / "two-halves.toml").points
+    (point,) = points
+    assert point.params["estimator"]["samples"] is None
+    costed = cost.point_cost(point)
+    assert costed.estimators.flops > 0 and costed.references.flops > 0
+    model = models.ising(32, g=1.05, h=0.25)
+    halves = coarse.blocks(32, 16, "energy", model=model, bin_width=1.0)
+    smaller = coarse.blocks(26, 13, "energy", model=models.ising(26, g=1.05, h=0.25),
+                            bin_width=1.0)
+    assert isinstance(halves, coarse.WideEnergyRegions)
+    assert isinstance(smaller, coarse.WideEnergyRegions)
+    wide, _ = cost.estimator_work(halves, 32, 16, "auto", 1000)
+    narrow, _ = cost.estimator_work(smaller, 26, 16, "auto", 1000)
+    assert wide.flops > narrow.flops > 0

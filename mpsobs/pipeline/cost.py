@@ -60,7 +60,7 @@ import numpy as np
 from mpsobs.chain import coarse
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import number
-from mpsobs.estimators import estimate
+from mpsobs.estimators import estimate, wide_energy
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline.build import build_point
@@ -253,6 +253,8 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     ``cap`` (a purification with ``ancilla``): canonical form, block tensors and the
     method's own work (module docstring)."""
     d = 4 if ancilla else 2
+    if isinstance(cg, coarse.WideEnergyRegions):
+        return _wide_energy_work(cg, d)
     chi = bond_caps(L, cap, d)
     canonical = Work(sum(8.0 * float(chi[i]) * d * float(chi[i + 1]) ** 2 for i in range(L)),
                      sum(qr_flops(int(d * chi[i + 1]), int(chi[i])) for i in range(L)), L)
@@ -280,6 +282,28 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     size = (sum(16.0 * np.prod(b.tensor.shape) for b in blocks) + batch * per_sample
             + WORK_BYTES)
     return canonical + setup + paths, size
+
+
+def _wide_energy_work(cg: coarse.WideEnergyRegions, d: int) -> tuple[Work, float]:
+    """(work, working-set bytes) of one wide-region energy estimate (module docstring)."""
+    moments, bond = wide_energy.DEFAULT_MOMENTS, wide_energy.DEFAULT_BOND
+    mpo = 3 if cg.model.name == "ising" else 5
+
+    def run(n: int, local: int, width: int) -> float:   # N / 2 compressed steps
+        return moments / 2 * 3.0 * n * local * ((mpo + 1) * width) ** 3
+
+    flops, calls = 0.0, 0.0
+    for start, stop in cg.regions:
+        n = stop - start
+        flops += run(n, d, bond) + run(n, d, bond // 2)
+        calls += moments * n
+        if n > wide_energy.EXACT_VOLUME_SITES:
+            flops += len(wide_energy.VOLUME_TARGETS) * 2 * (run(n, 4, bond)
+                                                            + run(n, 4, bond // 2))
+            calls += len(wide_energy.VOLUME_TARGETS) * 2 * moments * n
+    widest = max(stop - start for start, stop in cg.regions)
+    size = 16.0 * 4 * widest * 4 * ((mpo + 1) * bond) ** 2
+    return Work(0.0, flops, calls), size
 
 
 def _free_fermion(model) -> bool:
@@ -323,7 +347,7 @@ def point_cost(point: Point) -> PointCost:
     built = build_point(point, cheap_only=True)
     model, cgs = built.model, [c.coarse_graining for c in built.coarse]
     cap, check_cap = int(evo["chi_max"]), int(evo.get("chi_check") or 0)
-    samples = int(est["samples"])
+    samples = int(est["samples"] or estimate.DEFAULT_SAMPLES)
 
     def estimates(bond: int, *, ancilla: bool = False) -> tuple[Work, float]:
         parts = [estimator_work(cg, L, bond, est["method"], samples, ancilla=ancilla)

@@ -33,10 +33,9 @@ the Shannon and Boltzmann parts) is a heuristic error estimate of the truncation
 chi_max, not a bound: it assumes that the error at chi_max is smaller than the change
 from chi_check to chi_max. It does not see errors of the initial state (a ground state
 found at chi_max is the starting point of both). ``check_discarded_weight`` is the check
-evolution's own cumulative discarded weight. ``t_trusted`` (one value per
-coarse-graining, see :func:`trusted_time`) is the end of the time range where the
-truncation error stays within ``evolution.trust_rtol`` times S_obs or within the
-sampling error. Without the check all four error columns and ``t_trusted`` are NaN.
+evolution's own cumulative discarded weight. Without the check all four error columns
+are NaN. Trusted times are not a point's business: the analysis derives them from these
+columns at a tolerance chosen afterwards (:mod:`mpsobs.analysis.trust`).
 
 Energy regions wider than the block limit
 (:class:`mpsobs.chain.coarse.WideEnergyRegions`) are evaluated by the Chebyshev estimator
