@@ -212,30 +212,34 @@ def test_damaged_point_files_are_set_aside_and_recomputed(tmp_path, scheduler, c
     _assert_same_table(root, clean)
 
 
-def test_full_disk_stops_new_points_and_keeps_the_finished_ones(tmp_path, scheduler, clean,
-                                                               caplog, capfd):
+def test_full_disk_stops_new_points_and_keeps_the_finished_ones(tmp_path, clean, caplog,
+                                                               capfd):
+    # one single-threaded worker runs the points one after the other, so which point
+    # meets the full disk does not depend on timing: the first writes, the second fails,
+    # the other two are never started
     run = spec.parse(SPEC)
     root = tmp_path / "run"
     with store.open_run(root, run):
         pass
     (root / QUOTA).write_text("1")  # room for one point file
-    with caplog.at_level("INFO", logger="mpsobs"):
-        full = _sweep(run, root, scheduler, FullDisk())
-    assert full.out_of_space is not None and str(root) in full.out_of_space
-    assert full.computed >= 1 and full.failed
-    assert all(f.no_space and f.error == "OSError" for f in full.failed)
-    assert full.not_started >= 1  # no point started once the disk was full
-    assert full.computed + len(full.failed) + full.not_started == N_POINTS
-    finished = sorted(p.name for p in (root / store.POINTS_DIR).glob("*.parquet"))
-    assert len(finished) == full.computed
-    # the tracebacks are in the log records at INFO (run.log), none at WARNING or on stderr
-    assert any("Traceback" in r.getMessage() for r in caplog.records
-               if r.levelname == "INFO")
-    assert not any("Traceback" in r.getMessage() for r in caplog.records
-                   if r.levelno >= 30)
-    assert "Traceback" not in capfd.readouterr().err
-    (root / QUOTA).unlink()  # space freed
-    rerun = _sweep(run, root, scheduler, FullDisk())
+    with sweep.local_cluster(1) as client:
+        scheduler = client.scheduler.address
+        with caplog.at_level("INFO", logger="mpsobs"):
+            full = _sweep(run, root, scheduler, FullDisk())
+        assert full.out_of_space is not None and str(root) in full.out_of_space
+        assert (full.computed, len(full.failed), full.not_started) == (1, 1, N_POINTS - 2)
+        assert all(f.no_space and f.error == "OSError" for f in full.failed)
+        finished = sorted(p.name for p in (root / store.POINTS_DIR).glob("*.parquet"))
+        assert len(finished) == full.computed
+        # the tracebacks are in the log records at INFO (run.log), none at WARNING or on
+        # stderr
+        assert any("Traceback" in r.getMessage() for r in caplog.records
+                   if r.levelname == "INFO")
+        assert not any("Traceback" in r.getMessage() for r in caplog.records
+                       if r.levelno >= 30)
+        assert "Traceback" not in capfd.readouterr().err
+        (root / QUOTA).unlink()  # space freed
+        rerun = _sweep(run, root, scheduler, FullDisk())
     assert (rerun.skipped, rerun.failed, rerun.out_of_space) == (full.computed, (), None)
     _assert_same_table(root, clean)
 
