@@ -48,6 +48,7 @@ recomputed at every call.
 
 from __future__ import annotations
 
+import functools
 import logging
 from dataclasses import dataclass
 
@@ -165,26 +166,59 @@ def _region(model: Model, bin_width: float) -> _Region:
     return _Region(model, centre, half, np.arange(first, last + 1), bin_width)
 
 
+def _segments(mps, regions) -> tuple[list[list[np.ndarray]], np.ndarray]:
+    """The regions' segments of a normalised right-canonical chain and the Schmidt values
+    lambda at the first cut. Two regions: the left part (open right bond a) and the right
+    part mirrored (open right bond b), psi = sum_a lambda_a |L_a> |R_a>. Three: the same
+    outer parts at both cuts and the middle segment with its two open bonds, psi =
+    sum_ab |L_a> |X_ab> |R_b>, where X_ab = lambda_a Y_ab carries the Schmidt values of the
+    first cut and the weights of the second (L_a and R_b orthonormal)."""
+    left, lam, rest = _split(mps.tensors, regions[0][1])
+    if len(regions) == 2:
+        return [left, _mirror_segment(rest)], lam
+    width = regions[1][1] - regions[1][0]
+    middle = [lam[:, None, None] * rest[0], *rest[1:width]]
+    return [left, middle, _mirror_segment(rest[width:])], lam
+
+
 def _moments(segment, region: _Region, n_moments: int, bond: int) -> np.ndarray:
     d = segment[0].shape[1]
     mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, d)
     return chebyshev.moment_matrices(segment, mpo, n_moments, bond)
 
 
-def _joint(mu: np.ndarray, regions: tuple[_Region, _Region], n_moments: int) -> np.ndarray:
-    """Bin probabilities P[b_A, b_B] from the first ``n_moments`` of mu (clipped >= 0,
-    renormalised)."""
-    ca, cb = (chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
-              for r in regions)
-    p = np.clip(ca @ mu[:n_moments, :n_moments] @ cb.T, 0.0, None)
+def _state_moments(segments, lam: np.ndarray, regions, n_moments: int,
+                   bond: int) -> np.ndarray:
+    """The joint moments <psi| prod_R T_(n_R)(Ht_R) |psi> of two regions (N, N), mu_nm =
+    sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b], or of three (N, N, N), mu_jnm from
+    :func:`mpsobs.chebyshev.moment_tensor` with the outer regions' M^A_j and M^B_m."""
+    outer = (_moments(segments[0], regions[0], n_moments, bond),
+             _moments(segments[-1], regions[-1], n_moments, bond))
+    if len(segments) == 2:
+        ma, mb = outer
+        weighted = (ma * np.outer(lam, lam)).reshape(n_moments, -1)
+        return (weighted @ mb.reshape(mb.shape[0], -1).T).real
+    middle = regions[1]
+    mpo = chebyshev.scaled_mpo(middle.model, middle.centre, middle.half_width,
+                               segments[1][0].shape[1])
+    return chebyshev.moment_tensor(segments[1], mpo, n_moments, bond, *outer)
+
+
+def _joint(mu: np.ndarray, regions, n_moments: int) -> np.ndarray:
+    """Bin probabilities P[b_A, b_B] (or P[b_A, b_C, b_B]) from the first ``n_moments``
+    of mu along every axis (clipped >= 0, renormalised)."""
+    p = mu[(slice(n_moments),) * mu.ndim]
+    for axis, r in enumerate(regions):
+        c = chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
+        p = np.moveaxis(np.tensordot(c, p, axes=(1, axis)), 0, axis)
+    p = np.clip(p, 0.0, None)
     return p / p.sum()
 
 
-def _mixed_moments(ma: np.ndarray, mb: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] (real)."""
-    n = ma.shape[0]
-    weighted = (ma * np.outer(lam, lam)).reshape(n, -1)
-    return (weighted @ mb.reshape(mb.shape[0], -1).T).real
+def _marginals(p: np.ndarray) -> list[np.ndarray]:
+    """The distribution of each region's bin."""
+    return [p.sum(axis=tuple(i for i in range(p.ndim) if i != axis))
+            for axis in range(p.ndim)]
 
 
 # --------------------------------------------------------------------------- volumes
@@ -297,10 +331,15 @@ def region_volumes(model: Model, bin_width: float, bins, *, targets=None,
 # --------------------------------------------------------------------------- entropy
 
 
-def _entropy(p: np.ndarray, log_va: np.ndarray, log_vb: np.ndarray) -> tuple[_Parts, float]:
+def _log_volumes(log_vs) -> np.ndarray:
+    """ln V(b) = sum_R ln Omega_R(b_R) on the grid of the regions' bins."""
+    return functools.reduce(np.add.outer, log_vs)
+
+
+def _entropy(p: np.ndarray, log_vs) -> tuple[_Parts, float]:
     """S_obs and its parts, and the probability the smoothed series put into bins
     without eigenvalues (left out, the rest renormalised)."""
-    log_v = log_va[:, None] + log_vb[None, :]
+    log_v = _log_volumes(log_vs)
     live = (p > PROBABILITY_FLOOR) & np.isfinite(log_v)
     dropped = float(p.sum() - p[live].sum())
     pl = p[live] / p[live].sum()
@@ -349,33 +388,27 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
         raise InputError(f"moments: expected an even number (it is halved for the error "
                          f"estimate), got {moments}")
     mps = canonical_state(state, cg.L)
-    cut = cg.regions[0][1]
-    left, lam, right = _split(mps.tensors, cut)
-    segments = (left, _mirror_segment(right))
-    b0, b1 = cg.regions[1]
+    segments, lam = _segments(mps, cg.regions)
     volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
                            for x, y in cg.regions)
-    regions = (volume_regions[0], _region(_mirror_model(cg.model.restricted(b0, b1)),
-                                          cg.bin_width))
+    b0, b1 = cg.regions[-1]
+    regions = (*volume_regions[:-1], _region(_mirror_model(cg.model.restricted(b0, b1)),
+                                             cg.bin_width))
     low_bond = max(2, bond // 2)
-    full = [_moments(seg, reg, moments, bond) for seg, reg in zip(segments, regions,
-                                                                  strict=True)]
-    mu = _mixed_moments(*full, lam)
-    mu_low = _mixed_moments(*(_moments(seg, reg, moments, low_bond)
-                              for seg, reg in zip(segments, regions, strict=True)), lam)
+    mu = _state_moments(segments, lam, regions, moments, bond)
+    mu_low = _state_moments(segments, lam, regions, moments, low_bond)
     p = _joint(mu, regions, moments)
-    marginals = (p.sum(axis=1), p.sum(axis=0))
     volumes = [_RegionVolumes(vreg, _targets(vreg, m), moments, bond, exact_sites)
-               for vreg, m in zip(volume_regions, marginals, strict=True)]
+               for vreg, m in zip(volume_regions, _marginals(p), strict=True)]
 
     def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool) -> tuple:
-        live = [m > PROBABILITY_FLOOR for m in (probs.sum(axis=1), probs.sum(axis=0))]
         log_v = []
-        for vol, reg, keep in zip(volumes, regions, live, strict=True):
+        for vol, reg, marginal in zip(volumes, regions, _marginals(probs), strict=True):
+            keep = marginal > PROBABILITY_FLOOR
             values = np.full(len(reg.bins), -np.inf)
             values[keep] = vol.log_volumes(reg.bins[keep], n_moments, sub, low)
             log_v.append(values)
-        return _entropy(probs, *log_v), log_v
+        return _entropy(probs, log_v), log_v
 
     (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
     (half, _), _ = evaluate(_joint(mu, regions, moments // 2), moments // 2, sub_bins, False)
@@ -383,11 +416,10 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
     err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
            + main.change(coarse_sub))
-    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_vols[0][:, None]
-                                                             + log_vols[1][None, :]))
-    log_v = log_vols[0][live[:, 0]] + log_vols[1][live[:, 1]]
-    outcomes = np.column_stack([regions[0].bins[live[:, 0]], regions[1].bins[live[:, 1]]])
-    dist = OutcomeDistribution(outcomes, p[live[:, 0], live[:, 1]], np.exp(log_v))
+    log_v = _log_volumes(log_vols)
+    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    outcomes = np.column_stack([reg.bins[live[:, i]] for i, reg in enumerate(regions)])
+    dist = OutcomeDistribution(outcomes, p[tuple(live.T)], np.exp(log_v[tuple(live.T)]))
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
                          shannon_err=float(err[1]), boltzmann=main.boltzmann,
