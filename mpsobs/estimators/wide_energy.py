@@ -1,18 +1,26 @@
-"""Observational entropy of the energies of two large regions of an MPS.
+"""Observational entropy of the energies of two or three large regions of an MPS.
 
 The coarse-graining (:class:`mpsobs.coarse.WideEnergyRegions`) asks the energy of the
-left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1, binned by
-floor(E / dE); H_A and H_B are the model's terms wholly inside each part. Outcomes
-(b_A, b_B) have p(b) = <psi| P_A(b_A) P_B(b_B) |psi> and V(b) = Omega_A(b_A) Omega_B(b_B),
-Omega_R(b) the number of eigenvalues of H_R in bin b.
+left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1 (or of A = 0 .. c - 1,
+the middle C = c .. e - 1 and B = e .. L - 1), binned by floor(E / dE); H_R is the
+model's terms wholly inside R. Outcomes b = (b_A, b_B) (or (b_A, b_C, b_B)) have
+p(b) = <psi| prod_R P_R(b_R) |psi> and V(b) = prod_R Omega_R(b_R), Omega_R(b) the number
+of eigenvalues of H_R in bin b.
 
 Probabilities (kernel polynomial method, :mod:`mpsobs.chebyshev`). In mixed-canonical
 form at the cut, psi = sum_a lambda_a |L_a> |R_a>; M^A_n[a, b] = <L_a| T_n(Ht_A) |L_b>
 from the Chebyshev recursion on the left half with its right bond open (all chi Schmidt
 vectors at once), the same for B (the right half mirrored, so that its open bond is on
 the right); then mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] and
-p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Negative values of
-the damped series (from the compression) are set to zero and p renormalised.
+p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Three regions: in
+mixed-canonical form at both cuts, psi = sum_ab |L_a> |X_ab> |R_b> (X_ab = lambda_a Y_ab,
+the middle block with both bonds open, carrying the Schmidt values of the first cut and
+the weights of the second); the Chebyshev vectors T_n(Ht_C) |X_ab> of all chi_a chi_b
+middle vectors at once are the middle segment with both open bonds, compressed to bond D
+like the outer parts, and mu_jnm = sum M^A_j[a, a'] <X_ab| T_n(Ht_C) |X_a'b'> M^B_m[b, b']
+(:func:`mpsobs.chebyshev.moment_tensor`); p = mu contracted with C_A, C_C, C_B, the same
+3-D series and closed-form bin integrals. Negative values of the damped series (from the
+compression) are set to zero and p renormalised.
 
 Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
 eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
@@ -40,7 +48,10 @@ shows it.
 
 Cost: two Chebyshev runs per region (bond D and D / 2) of N / 2 compressions, each about
 3 n d ((w + 1) D)^3 flops for n sites, MPO bond w (Ising 3, XXZ 5), d = 2 (4 for a
-purification); for each wide region three Gibbs references, each a few Newton builds at
+purification). The middle region of three adds to each of its N overlaps a sweep of N
+stacked environments, about 2 N n d D^3, and a closing N^2 chi^2: in all about
+2 N^2 n_C d D^3 + N^3 chi^2 per run, and N^3 numbers for mu (N = 256: 134 MB). For each
+wide region three Gibbs references, each a few Newton builds at
 bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
 The references depend only on the region and the state's regional energies; they are
 recomputed at every call.
@@ -352,7 +363,7 @@ def _entropy(p: np.ndarray, log_vs) -> tuple[_Parts, float]:
 def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_MOMENTS,
                         bond: int = DEFAULT_BOND, sub_bins: int = DEFAULT_SUB_BINS,
                         exact_sites: int = EXACT_VOLUME_SITES) -> EntropyResult:
-    """S_obs of the energies of the two regions of ``cg`` in ``state`` (an MPS, or a
+    """S_obs of the energies of the two or three regions of ``cg`` in ``state`` (an MPS, or a
     purification for a mixed state), with its method error (module docstring).
 
     Parameters
@@ -375,7 +386,7 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     ``method_err`` (and the parts' errors) the error estimate (1)-(3) of the module
     docstring, ``pruned_mass`` the probability of (4), whose entropy bound is added by
     the total error (:mod:`mpsobs.analysis.uncertainty`); ``distribution`` the bins
-    (b_A, b_B) with p > 1e-14.
+    (b_A, b_B), or (b_A, b_C, b_B), with p > 1e-14.
     """
     if not isinstance(cg, WideEnergyRegions):
         raise InputError(f"coarse_graining: expected wide energy regions from "
