@@ -9,6 +9,8 @@ benchmark (scripts/bench_cost.py), not a test.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -100,3 +102,16 @@ def test_check_prints_the_cost(capsys):
     assert "estimated cost" in out and "core-" in out and "a worker needs" in out
     for p in spec.load(None).points:
         assert out.count(p.point_id) == 2  # listed, then costed
+
+
+def test_wide_energy_regions_are_costed():
+    # the shipped two-halves scenario (no estimator.samples) and three regions of it
+    points = spec.load(Path(__file__).parents[1] / "runs" / "two-halves.toml").points
+    costs = [cost.point_cost(p) for p in points]
+    assert all(c.estimators.flops > 0 for c in costs)
+    model = models.ising(48, g=1.05, h=0.25)
+    three = coarse.blocks(48, None, "energy", model=model, bin_width=1.0,
+                          regions=[[0, 14], [14, 34], [34, 48]])
+    small, _ = cost.estimator_work(three, 48, 8, "auto", 0)
+    large, size = cost.estimator_work(three, 48, 32, "auto", 0)
+    assert 0 < small.flops < large.flops and size > 0

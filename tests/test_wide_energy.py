@@ -12,7 +12,7 @@ from mpsobs.estimators import chebyshev
 from mpsobs.estimators import wide_energy as we
 from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.estimators.estimate import pruned_entropy_bound
-from mpsobs.mps.tensors import random_mps, to_dense
+from mpsobs.mps.tensors import random_mps, robust_svd, to_dense
 from mpsobs.references import thermo
 
 
@@ -272,3 +272,25 @@ def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
                        regions=[[0, cut], [cut, L]])
     res = we.wide_energy_entropy(snap.state, cg, moments=64, bond=16)
     assert abs(res.entropy - exact) <= _total_error(res), (res, exact)
+
+
+def test_kernel_counts_match_the_compressions_of_a_run(monkeypatch):
+    # the SVDs of the Chebyshev compressions, counted by wrapping them, against the count
+    # of the cost model (regions of at most EXACT_VOLUME_SITES: no Gibbs references)
+    L, n_moments, bond = 12, 8, 4
+    model = models.xxz(L, delta=0.5)
+    cg = coarse.WideEnergyRegions(L, ((0, 4), (4, 8), (8, L)), model, 1.0, "test")
+    calls = []
+
+    def counted(matrix):
+        calls.append(matrix.shape)
+        return robust_svd(matrix)
+
+    monkeypatch.setattr(chebyshev, "robust_svd", counted)
+    we.wide_energy_entropy(states.neel(L), cg, moments=n_moments, bond=bond)
+    counts = we.kernel_counts(cg, 1, moments=n_moments, bond=bond)
+    assert len(calls) == sum(k for _, _, k in counts.svds)
+    # each counted SVD is at least as large as the real one (summed bond (w + 1) D)
+    assert max(m * n for m, n in calls) <= min(m * n for m, n, _ in counts.svds)
+    wider = we.kernel_counts(cg, 1, moments=n_moments, bond=2 * bond)
+    assert wider.gemm > counts.gemm

@@ -67,7 +67,7 @@ import numpy as np
 from scipy.special import logsumexp
 
 from mpsobs.chain.coarse import WideEnergyRegions
-from mpsobs.chain.models import Model, Term
+from mpsobs.chain.models import Model, Term, mpo_tensors
 from mpsobs.core.errors import InputError
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import chebyshev
@@ -75,8 +75,8 @@ from mpsobs.estimators.estimate import canonical_state
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
 from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
 
-__all__ = ["wide_energy_entropy", "region_volumes", "DEFAULT_MOMENTS", "DEFAULT_BOND",
-           "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
+__all__ = ["wide_energy_entropy", "region_volumes", "kernel_counts", "KernelCounts",
+           "DEFAULT_MOMENTS", "DEFAULT_BOND", "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
@@ -337,6 +337,69 @@ def region_volumes(model: Model, bin_width: float, bins, *, targets=None,
         targets = [(bins.mean() + 0.5) * bin_width]
     vol = _RegionVolumes(region, targets, n_moments, bond)
     return vol.log_volumes(bins, n_moments, sub_bins)
+
+
+# --------------------------------------------------------------------------- cost
+
+
+@dataclass(frozen=True)
+class KernelCounts:
+    """The kernel calls of one :func:`wide_energy_entropy`, for a cost model: flops in
+    matrix products, the shapes (m, n) and counts of the SVDs and QRs, the number of
+    calls and the largest working set in bytes."""
+
+    gemm: float
+    svds: tuple[tuple[int, int, float], ...]
+    qrs: tuple[tuple[int, int, float], ...]
+    calls: float
+    size: float
+
+
+def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
+                  moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
+                  beta: float | None = None) -> KernelCounts:
+    """Counted work of :func:`wide_energy_entropy` on a state of bond ``state_bond``
+    (local dimension 2, or 4 for a purification): per region two Chebyshev runs (bonds D
+    and D / 2) of N / 2 compressions, each n - 1 QRs and SVDs at the summed bond
+    (w + 1) D and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
+    region, and a closing 8 N^2 chi^2); per region wider than EXACT_VOLUME_SITES three
+    Gibbs references, each NEWTON_STEPS builds at NEWTON_BOND and two builds and runs
+    (d = 4) at D and D / 2, a build at |``beta``| (default: the largest, MAX_BETA_RESOLUTION
+    N / (pi a)) taking beta a / (2 MAX_STEP_TAU) steps of (2 MAX_STEP_TAU + 15) terms, two
+    compressions each. An estimate of the order, not a count of the state's own bonds."""
+    n_moments, calls, gemm = moments, 0.0, 0.0
+    svds, qrs = [], []
+
+    def run(n: int, w: int, d: int, compress: int, steps: float, stacked: int = 1) -> None:
+        nonlocal gemm, calls
+        summed = (w + 1) * compress
+        svds.append((summed, d * summed, steps * (n - 1)))
+        qrs.append((d * summed, summed, steps * (n - 1)))
+        gemm += steps * (8.0 * n * w * w * d * d * compress**2
+                         + 2 * stacked * 16.0 * n * d * compress**3)
+        calls += steps * 6.0 * n
+
+    for i, (a, b) in enumerate(cg.regions):
+        region = cg.model.restricted(a, b)
+        n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
+        for compress in (bond, max(2, bond // 2)):
+            middle = 0 < i < len(cg.regions) - 1
+            run(n, w, local_dim, compress, n_moments / 2, n_moments if middle else 1)
+            if middle:
+                gemm += 8.0 * n_moments**3 * state_bond**2
+        if n > EXACT_VOLUME_SITES:
+            half = chebyshev.spectrum_bounds(region)[1]
+            largest = MAX_BETA_RESOLUTION * n_moments / (np.pi * half)
+            tau = min(largest, largest if beta is None else abs(beta)) * half / 2
+            build_steps = (max(1.0, np.ceil(tau / chebyshev.MAX_STEP_TAU))
+                           * (2 * chebyshev.MAX_STEP_TAU + 15) * 2)
+            for _ in VOLUME_TARGETS:
+                run(n, w, 4, min(bond, NEWTON_BOND), NEWTON_STEPS * (build_steps + 2))
+                for compress in (bond, max(2, bond // 2)):
+                    run(n, w, 4, compress, build_steps + n_moments / 2)
+    size = 16.0 * (2 * n_moments ** len(cg.regions) + n_moments * state_bond**2
+                   + n_moments * bond**2 * local_dim * (len(cg.regions) - 2))
+    return KernelCounts(gemm, tuple(svds), tuple(qrs), calls, size)
 
 
 # --------------------------------------------------------------------------- entropy

@@ -30,7 +30,10 @@ localization, low energy) costs less; an initial state that is already entangled
   first try an enumeration of at most that cost: up to twice this); counting ("count",
   and "auto" / "exact" where countable) 32 chi**3 sum_i K_i b_i**2 / 2 with K_i the
   counters carried into region i; "enumerate" and "exact" on other coarse-grainings
-  depend on the state and are counted like sampling with ``samples``.
+  depend on the state and are counted like sampling with ``samples`` (the estimator's
+  default where the spec leaves it out); energies of wide regions by
+  :func:`mpsobs.estimators.wide_energy.kernel_counts` (Chebyshev runs and Gibbs
+  references at the estimator's default moments and bond, the references at BETA_GUESS).
 - References once per point: Gibbs entropies of free-fermion models (XX, Ising at
   h = 0) are negligible; otherwise the purification in imaginary time
   (:mod:`mpsobs.references.thermo`) to BETA_GUESS (the target temperature is not known
@@ -60,7 +63,7 @@ import numpy as np
 from mpsobs.chain import coarse
 from mpsobs.core.errors import InputError
 from mpsobs.core.printing import number
-from mpsobs.estimators import estimate
+from mpsobs.estimators import estimate, wide_energy
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline.build import build_point
@@ -256,6 +259,11 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     chi = bond_caps(L, cap, d)
     canonical = Work(sum(8.0 * float(chi[i]) * d * float(chi[i + 1]) ** 2 for i in range(L)),
                      sum(qr_flops(int(d * chi[i + 1]), int(chi[i])) for i in range(L)), L)
+    if isinstance(cg, coarse.WideEnergyRegions):
+        counts = wide_energy.kernel_counts(cg, int(np.max(chi)), d, beta=BETA_GUESS)
+        lapack = (sum(svd_flops(m, n) * k for m, n, k in counts.svds)
+                  + sum(qr_flops(m, n) * k for m, n, k in counts.qrs))
+        return canonical + Work(counts.gemm, lapack, counts.calls), counts.size
     if _method(cg, method) == "count":
         carried, gemm = 1.0, 0.0
         for start, stop in cg.regions:
@@ -323,7 +331,7 @@ def point_cost(point: Point) -> PointCost:
     built = build_point(point, cheap_only=True)
     model, cgs = built.model, [c.coarse_graining for c in built.coarse]
     cap, check_cap = int(evo["chi_max"]), int(evo.get("chi_check") or 0)
-    samples = int(est["samples"])
+    samples = int(est["samples"] or estimate.DEFAULT_SAMPLES)
 
     def estimates(bond: int, *, ancilla: bool = False) -> tuple[Work, float]:
         parts = [estimator_work(cg, L, bond, est["method"], samples, ancilla=ancilla)
