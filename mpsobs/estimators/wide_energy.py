@@ -69,6 +69,7 @@ from scipy.special import logsumexp
 from mpsobs.chain.coarse import WideEnergyRegions
 from mpsobs.chain.models import Model, Term, mpo_tensors
 from mpsobs.core.errors import InputError
+from mpsobs.core.printing import number
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import chebyshev
 from mpsobs.estimators.estimate import canonical_state
@@ -353,6 +354,11 @@ class KernelCounts:
     qrs: tuple[tuple[int, int, float], ...]
     calls: float
     size: float
+
+    def __repr__(self) -> str:
+        return (f"KernelCounts(gemm {number(self.gemm)} flops, "
+                f"{number(sum(k for _, _, k in self.svds))} SVDs, "
+                f"{number(sum(k for _, _, k in self.qrs))} QRs, {number(self.size)} bytes)")
 
 
 def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
