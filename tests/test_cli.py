@@ -321,8 +321,8 @@ REFUSALS = {
     "energy blocks too wide": (
         "30", 'kind = "neel"', 'observable = "energy"\nblock = 13', "", "coarse[0].bin_width"),
     "too many wide energy blocks": (
-        "30", 'kind = "neel"', 'observable = "energy"\nblock = 13\nbin_width = 1.0', "",
-        "at most 2 regions"),
+        "60", 'kind = "neel"', 'observable = "energy"\nblock = 13\nbin_width = 1.0', "",
+        "at most 3 regions"),
     "gas box outside the chain at one L": (
         "[16, 10]", 'kind = "gas"\nbox = [0, 12]', 'observable = "number"\nblock = 2', "",
         "state.box"),

@@ -106,20 +106,14 @@ def test_check_prints_the_cost(capsys):
         assert out.count(p.point_id) == 2  # listed, then costed
 
 
-def test_a_wide_region_spec_without_sample_count_is_costed():
-    # energies of two 16-site halves (the Chebyshev estimator) and no estimator.samples:
-    # the count follows the wide-region rule and grows with the region (n ((w+1) D)^3)
+def test_wide_energy_regions_are_costed():
+    # the shipped two-halves scenario (no estimator.samples) and three regions of it
     points = spec.load(SHIPPED / "two-halves.toml").points
-    (point,) = points
-    assert point.params["estimator"]["samples"] is None
-    costed = cost.point_cost(point)
-    assert costed.estimators.flops > 0 and costed.references.flops > 0
-    model = models.ising(32, g=1.05, h=0.25)
-    halves = coarse.blocks(32, 16, "energy", model=model, bin_width=1.0)
-    smaller = coarse.blocks(26, 13, "energy", model=models.ising(26, g=1.05, h=0.25),
-                            bin_width=1.0)
-    assert isinstance(halves, coarse.WideEnergyRegions)
-    assert isinstance(smaller, coarse.WideEnergyRegions)
-    wide, _ = cost.estimator_work(halves, 32, 16, "auto", 1000)
-    narrow, _ = cost.estimator_work(smaller, 26, 16, "auto", 1000)
-    assert wide.flops > narrow.flops > 0
+    costs = [cost.point_cost(p) for p in points]
+    assert all(c.estimators.flops > 0 for c in costs)
+    model = models.ising(48, g=1.05, h=0.25)
+    three = coarse.blocks(48, None, "energy", model=model, bin_width=1.0,
+                          regions=[[0, 14], [14, 34], [34, 48]])
+    small, _ = cost.estimator_work(three, 48, 8, "auto", 0)
+    large, size = cost.estimator_work(three, 48, 32, "auto", 0)
+    assert 0 < small.flops < large.flops and size > 0

@@ -31,15 +31,30 @@ def test_narrow_energy_regions_keep_the_exact_block_path():
     assert isinstance(cg, coarse.BlockCoarseGraining)
 
 
-@pytest.mark.parametrize("kwargs, field", [
-    ({"regions": [[0, 20], [20, 40]]}, "bin_width"),                      # no bin width
-    ({"regions": [[0, 14], [14, 28], [28, 40]], "bin_width": 1.0}, "regions"),  # three
-    ({"regions": [[0, 39], [39, 40]], "bin_width": 1.0}, "regions"),      # one-site region
-    ({"regions": [[0, 40]], "bin_width": 1.0}, "regions"),                # whole chain
+def test_three_wide_energy_regions_are_accepted():
+    model = models.ising(40, g=1.05, h=0.25)
+    cg = coarse.blocks(40, None, "energy", model=model, bin_width=1.0,
+                       regions=[[0, 14], [14, 28], [28, 40]])
+    assert isinstance(cg, coarse.WideEnergyRegions)
+    assert cg.regions == ((0, 14), (14, 28), (28, 40))
+    assert coarse.blocks(30, 13, "energy", model=models.xxz(30, delta=0.5),
+                         bin_width=1.0).regions == ((0, 13), (13, 26), (26, 30))
+
+
+@pytest.mark.parametrize("kwargs, field, words", [
+    ({"regions": [[0, 20], [20, 40]]}, "bin_width", "need a bin width"),   # no bin width
+    ({"regions": [[0, 14], [14, 24], [24, 32], [32, 40]], "bin_width": 1.0}, "regions",
+     "at most 3 regions; got 4"),                                           # four regions
+    ({"regions": [[0, 39], [39, 40]], "bin_width": 1.0}, "regions", "at least 2 sites"),
+    ({"regions": [[0, 19], [19, 20], [20, 40]], "bin_width": 1.0}, "regions",
+     r"at least 2 sites; got \(19, 20\)"),                                # 1-site middle
+    ({"regions": [[0, 2], [2, 3], [3, 40]], "bin_width": 1.0}, "regions",
+     r"at least 2 sites; got \(2, 3\)"),                                  # 1-site middle
+    ({"regions": [[0, 40]], "bin_width": 1.0}, "regions", "one region"),   # whole chain
 ])
-def test_wide_energy_refusals_name_the_field(kwargs, field):
+def test_wide_energy_refusals_name_the_field(kwargs, field, words):
     model = models.ising(40)
-    with pytest.raises(InputError, match=f"^{field}:"):
+    with pytest.raises(InputError, match=f"^{field}:.*{words}"):
         coarse.blocks(40, None, "energy", model=model, **kwargs)
 
 

@@ -12,7 +12,7 @@ from mpsobs.estimators import chebyshev
 from mpsobs.estimators import wide_energy as we
 from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.estimators.estimate import pruned_entropy_bound
-from mpsobs.mps.tensors import random_mps, to_dense
+from mpsobs.mps.tensors import random_mps, robust_svd, to_dense
 from mpsobs.references import thermo
 
 
@@ -127,18 +127,20 @@ def test_reweighted_volumes_of_13_sites_match_exact_counts():
     np.testing.assert_allclose(log_v, np.log(exact), atol=0.1)
 
 
-def _exact_regions_entropy(psi, model, cut, width):
-    """S_obs of the two regions' binned energies of a dense state, by diagonalisation."""
-    L = model.L
-    wa, ua = np.linalg.eigh(model.block_hamiltonian(0, cut))
-    wb, ub = np.linalg.eigh(model.block_hamiltonian(cut, L))
-    amp = ua.T @ psi.reshape(2**cut, -1) @ ub
-    ka, kb = np.floor(wa / width).astype(int), np.floor(wb / width).astype(int)
-    sa, ia = np.unique(ka, return_inverse=True)
-    sb, ib = np.unique(kb, return_inverse=True)
-    p = np.zeros((len(sa), len(sb)))
-    np.add.at(p, (ia[:, None], ib[None, :]), np.abs(amp) ** 2)
-    v = np.outer(np.bincount(ia), np.bincount(ib))
+def _exact_regions_entropy(psi, model, regions, width):
+    """S_obs of the regions' binned energies of a dense state, by diagonalising each
+    region's Hamiltonian (the definition, DESIGN 3c)."""
+    amp = psi.reshape([2 ** (b - a) for a, b in regions])
+    groups = []
+    for axis, (a, b) in enumerate(regions):
+        w, u = np.linalg.eigh(model.block_hamiltonian(a, b))
+        amp = np.moveaxis(np.tensordot(u.conj().T, amp, axes=(1, axis)), 0, axis)
+        _, label = np.unique(np.floor(w / width).astype(int), return_inverse=True)
+        groups.append(np.eye(label.max() + 1)[label])   # eigenvalue -> bin, one-hot
+    p, v = np.abs(amp) ** 2, np.ones(())
+    for axis, g in enumerate(groups):
+        p = np.moveaxis(np.tensordot(g.T, p, axes=(1, axis)), 0, axis)
+        v = np.multiply.outer(v, g.sum(axis=0))
     live = p > 0
     return float(-np.sum(p[live] * np.log(p[live] / v[live])))
 
@@ -151,10 +153,46 @@ def test_two_halves_against_dense_definition():
     cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, width, "test")
     for snap in tebd.evolve(states.neel(L), model, [1.5], max_bond=32, cutoff=1e-12,
                             dt=0.05, order=4):
-        exact = _exact_regions_entropy(to_dense(snap.state), model, cut, width)
+        exact = _exact_regions_entropy(to_dense(snap.state), model, cg.regions, width)
         res = we.wide_energy_entropy(snap.state, cg, moments=128, bond=32, exact_sites=0)
         assert res.method == "approximate" and res.stderr == 0.0
         assert abs(res.entropy - exact) <= _total_error(res), (snap.t, res, exact)
+
+
+def test_three_region_moments_match_dense_chebyshev_polynomials():
+    # Dense twin: mu_jnm = <psi| T_j(Ht_A) T_n(Ht_C) T_m(Ht_B) |psi> with T_n by the
+    # three-term recursion (handbook: Abramowitz and Stegun 22.7.4) on each region's
+    # dense Hamiltonian; the bond is large enough that nothing is compressed away.
+    L, regions, n = 9, ((0, 3), (3, 6), (6, 9)), 6
+    model = models.xxz(L, delta=0.5, h=0.3, field="staggered")
+    psi = we.canonical_state(random_mps(L, 8, seed=3))
+    segments, lam = we._segments(psi, regions)
+    regs = [we._region(model.restricted(a, b), 1.0) for a, b in regions]
+    mirrored = we._region(we._mirror_model(model.restricted(6, 9)), 1.0)
+    got = we._state_moments(segments, lam, [*regs[:2], mirrored], n, 64)
+    polys = [_chebyshev_matrices(model.block_hamiltonian(a, b), r.centre, r.half_width, n)
+             for (a, b), r in zip(regions, regs, strict=True)]
+    vec = to_dense(psi).reshape(8, 8, 8)
+    want = np.einsum("xyz,jxa,nyb,mzc,abc->jnm", vec.conj(), polys[0], polys[1], polys[2],
+                     vec).real
+    np.testing.assert_allclose(got, want, atol=1e-10)
+
+
+def test_three_regions_against_dense_definition():
+    # L = 12, regions of 4 sites forced through the Chebyshev path, with reweighted
+    # volumes (exact_sites = 0) and with exact counts; exact S_obs from the definition
+    # on the dense state.
+    L, width = 12, 1.0
+    model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
+    cg = coarse.WideEnergyRegions(L, ((0, 4), (4, 8), (8, L)), model, width, "test")
+    snap = next(iter(tebd.evolve(states.neel(L), model, [1.5], max_bond=32, cutoff=1e-12,
+                                 dt=0.05, order=4)))
+    exact = _exact_regions_entropy(to_dense(snap.state), model, cg.regions, width)
+    for exact_sites in (0, we.EXACT_VOLUME_SITES):
+        res = we.wide_energy_entropy(snap.state, cg, moments=64, bond=16,
+                                     exact_sites=exact_sites)
+        assert res.distribution.outcomes.shape[1] == 3
+        assert abs(res.entropy - exact) <= _total_error(res), (exact_sites, res, exact)
 
 
 def test_infinite_temperature_gives_the_maximal_entropy():
@@ -167,6 +205,18 @@ def test_infinite_temperature_gives_the_maximal_entropy():
     res = we.wide_energy_entropy(rho, cg, moments=16, bond=8)
     assert abs(res.entropy - L * np.log(2)) <= max(_total_error(res), 1e-8)
     assert res.bond_entropies is None
+
+
+def test_three_regions_at_infinite_temperature_give_the_maximal_entropy():
+    # beta = 0: p(b) = V(b) / 2^L exactly, so S_obs = L ln 2 (definition, DESIGN 3c)
+    L = 48
+    model = models.ising(L, g=1.05, h=0.25)
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=4.0,
+                       regions=[[0, 14], [14, 34], [34, L]])
+    rho = thermo.gibbs_state(model, 0.0, max_bond=4)
+    res = we.wide_energy_entropy(rho, cg, moments=16, bond=8)
+    assert res.algorithm == "mps-chebyshev" and res.distribution.outcomes.shape[1] == 3
+    assert abs(res.entropy - L * np.log(2)) <= max(_total_error(res), 1e-8)
 
 
 def test_entry_point_dispatches_and_refuses_sampling_settings():
@@ -222,3 +272,25 @@ def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
                        regions=[[0, cut], [cut, L]])
     res = we.wide_energy_entropy(snap.state, cg, moments=64, bond=16)
     assert abs(res.entropy - exact) <= _total_error(res), (res, exact)
+
+
+def test_kernel_counts_match_the_compressions_of_a_run(monkeypatch):
+    # the SVDs of the Chebyshev compressions, counted by wrapping them, against the count
+    # of the cost model (regions of at most EXACT_VOLUME_SITES: no Gibbs references)
+    L, n_moments, bond = 12, 8, 4
+    model = models.xxz(L, delta=0.5)
+    cg = coarse.WideEnergyRegions(L, ((0, 4), (4, 8), (8, L)), model, 1.0, "test")
+    calls = []
+
+    def counted(matrix):
+        calls.append(matrix.shape)
+        return robust_svd(matrix)
+
+    monkeypatch.setattr(chebyshev, "robust_svd", counted)
+    we.wide_energy_entropy(states.neel(L), cg, moments=n_moments, bond=bond)
+    counts = we.kernel_counts(cg, 1, moments=n_moments, bond=bond)
+    assert len(calls) == sum(k for _, _, k in counts.svds)
+    # each counted SVD is at least as large as the real one (summed bond (w + 1) D)
+    assert max(m * n for m, n in calls) <= min(m * n for m, n, _ in counts.svds)
+    wider = we.kernel_counts(cg, 1, moments=n_moments, bond=2 * bond)
+    assert wider.gemm > counts.gemm

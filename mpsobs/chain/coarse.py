@@ -50,7 +50,7 @@ EMPTY_VOLUME = 1e-10
 #: Largest block handled (local dimension 2**MAX_BLOCK_SITES).
 MAX_BLOCK_SITES = 12
 #: Most regions of an energy coarse-graining with a region wider than MAX_BLOCK_SITES.
-MAX_WIDE_REGIONS = 2
+MAX_WIDE_REGIONS = 3
 
 
 @dataclass(frozen=True, eq=False)
@@ -399,8 +399,8 @@ def blocks(L: int, size: int | None = None, observable="number", *,
 
     Cost: one dense eigendecomposition of size 2**b per block (b <= MAX_BLOCK_SITES).
     Energy on a partition with a block wider than MAX_BLOCK_SITES gives instead a
-    :class:`WideEnergyRegions` (no eigendecomposition; two regions, ``bin_width``
-    required), evaluated by :mod:`mpsobs.wide_energy`.
+    :class:`WideEnergyRegions` (no eigendecomposition; two or three regions,
+    ``bin_width`` required), evaluated by :mod:`mpsobs.wide_energy`.
     """
     spans = _resolve_regions(L, size, regions)
     widest = max(b - a for a, b in spans)
@@ -474,7 +474,7 @@ def _wide_energy(L: int, spans, model: Model, bin_width: float | None,
                          f"{len(spans)}")
     if len(spans) < 2:
         raise InputError(f"regions: the energy of a region wider than {MAX_BLOCK_SITES} sites "
-                         f"needs the chain cut into {MAX_WIDE_REGIONS} regions (the energy of "
+                         f"needs the chain cut into 2 to {MAX_WIDE_REGIONS} regions (the energy of "
                          f"the whole chain is not a region energy); got one region")
     thin = [(a, b) for a, b in spans if b - a < 2]
     if thin:

@@ -6,6 +6,9 @@ holds chi vectors |v_a> at once, a = 0 .. chi - 1 (for the left half of a state 
 mixed-canonical form at a cut, the chi Schmidt vectors |L_a>). Local dimension d = 2
 (spins) or 4 (a spin and its ancilla, index 2 s + a; the Hamiltonian acts on the spin).
 
+A middle region's segment has its first left bond open too (chi_l chi_r vectors);
+:func:`moment_tensor` gives the three-region moments from it.
+
 :func:`moment_matrices` returns M_n[a, b] = <v_a| T_n(Ht) |v_b>, n = 0 .. N - 1, with
 Ht = (H - centre) / half_width and T_n the Chebyshev polynomials, from the recursion
 t_{n+1} = 2 Ht t_n - t_{n-1} on the segment (all chi vectors at once), each step an
@@ -32,8 +35,8 @@ from mpsobs.chain.models import Model, bond_hamiltonians, mpo_tensors
 from mpsobs.core.errors import InputError
 from mpsobs.mps.tensors import robust_svd
 
-__all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "jackson", "bin_weights",
-           "gibbs_segment", "SPECTRUM_MARGIN"]
+__all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "moment_tensor", "jackson",
+           "bin_weights", "gibbs_segment", "SPECTRUM_MARGIN"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Relative margin added to the spectrum bounds so that Ht stays inside (-1, 1).
@@ -94,8 +97,8 @@ def _apply(mpo: Sequence[np.ndarray], seg: Sequence[np.ndarray]) -> list[np.ndar
 
 def _combine(x: Sequence[np.ndarray], y: Sequence[np.ndarray], cx: float,
              cy: float) -> list[np.ndarray]:
-    """cx |x> + cy |y> for segments sharing the open right bond (direct sum of the inner
-    bonds; the first left bond is 1)."""
+    """cx |x> + cy |y> for segments sharing the open right bond and the first left bond
+    (1, or open as in :func:`moment_tensor`); the inner bonds are direct sums."""
     n = len(x)
     if n == 1:
         return [cx * x[0] + cy * y[0]]
@@ -154,21 +157,69 @@ def moment_matrices(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_mome
     Returns a complex array (n_moments, chi, chi). Cost n_moments / 2 compressions,
     each about 3 n d ((w + 1) max_bond)^3 for n sites and MPO bond w.
     """
+    return _chebyshev_overlaps(seg, mpo, n_moments, max_bond, _gram)
+
+
+def moment_tensor(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moments: int,
+                  max_bond: int, left: np.ndarray, right: np.ndarray) -> np.ndarray:
+    """mu[j, n, m] = sum_{a a' b b'} left[j, a, a'] <v_ab| T_n(Ht) |v_a'b'> right[m, b, b']
+    (real part), n = 0 .. n_moments - 1, for a segment with two open bonds.
+
+    ``seg`` holds chi_l chi_r vectors |v_ab> at once: its first left bond (chi_l, index a)
+    and its last right bond (chi_r, index b) are open; for the middle region C of a state
+    in mixed-canonical form at both ends of C, psi = sum_ab |L_a> |v_ab> |R_b>, and with
+    ``left`` = M^A_j[a, a'] and ``right`` = M^B_m[b, b'] of the outer regions (from
+    :func:`moment_matrices`) this is the three-region moment <psi| T_j(Ht_A) T_n(Ht_C)
+    T_m(Ht_B) |psi>. The Chebyshev vectors are compressed as in :func:`moment_matrices`
+    (the open left bond is kept whole, as the open right bond), and the chi_l^2 chi_r^2
+    matrix elements are never stored: every overlap is swept with the J matrices of
+    ``left`` as a stack of environments and closed with ``right``.
+    Returns (J, n_moments, M). Cost the n_moments / 2 compressions of
+    :func:`moment_matrices`, plus per overlap (n_moments of them) about
+    2 J n d max_bond^3 (the stacked sweep, J = len(left)) and J M chi_r^2 (the closing).
+    """
+    left, right = np.asarray(left), np.asarray(right)
+    shapes = (seg[0].shape[0], seg[-1].shape[2])
+    if left.ndim != 3 or left.shape[1:] != (shapes[0],) * 2 or right.ndim != 3 or \
+            right.shape[1:] != (shapes[1],) * 2:
+        raise InputError(f"moments: the outer regions' matrices have shapes {left.shape} and "
+                         f"{right.shape}; the segment's open bonds are {shapes}")
+    out = _chebyshev_overlaps(seg, mpo, n_moments, max_bond,
+                              lambda x, y: _sandwich(x, y, left, right))
+    return out.real.transpose(1, 0, 2)
+
+
+def _sandwich(x: Sequence[np.ndarray], y: Sequence[np.ndarray], left: np.ndarray,
+              right: np.ndarray) -> np.ndarray:
+    """O[j, m] = sum left[j, a, a'] <x_ab | y_a'b'> right[m, b, b'] over segments with
+    open left and right bonds: the sweep of :func:`_gram` on a stack of J environments
+    starting at ``left``. Cost J n d chi^3 (twice) + J M chi_r^2."""
+    env = left.astype(complex)
+    for a, b in zip(x, y, strict=True):
+        env = np.tensordot(np.tensordot(env, a.conj(), axes=(1, 0)), b,
+                           axes=([1, 2], [0, 1]))
+    return env.reshape(len(env), -1) @ right.reshape(len(right), -1).T
+
+
+def _chebyshev_overlaps(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moments: int,
+                        max_bond: int, overlap) -> np.ndarray:
+    """out[n] = overlap(|v>, T_n(Ht) |v>) for the segment's vectors v, n = 0 .. N - 1,
+    ``overlap`` linear in its second argument and antilinear in its first (module
+    docstring: moments 2k and 2k + 1 from the vectors of order k)."""
     if n_moments < 2:
         raise InputError(f"moments: expected at least 2, got {n_moments}")
-    chi = seg[-1].shape[2]
-    out = np.zeros((n_moments, chi, chi), dtype=complex)
     prev = list(seg)
     cur = _compress(_apply(mpo, prev), max_bond)
-    m0, m1 = _gram(prev, prev), _gram(prev, cur)
+    m0, m1 = overlap(prev, prev), overlap(prev, cur)
+    out = np.zeros((n_moments, *m0.shape), dtype=complex)
     out[0], out[1] = m0, m1
     k = 1
     while 2 * k < n_moments:
-        out[2 * k] = 2 * _gram(cur, cur) - m0
+        out[2 * k] = 2 * overlap(cur, cur) - m0
         if 2 * k + 1 >= n_moments:
             break
         nxt = _compress(_combine(_apply(mpo, cur), prev, 2.0, -1.0), max_bond)
-        out[2 * k + 1] = 2 * _gram(cur, nxt) - m1
+        out[2 * k + 1] = 2 * overlap(cur, nxt) - m1
         prev, cur, k = cur, nxt, k + 1
     return out
 

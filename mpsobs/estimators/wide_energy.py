@@ -1,18 +1,26 @@
-"""Observational entropy of the energies of two large regions of an MPS.
+"""Observational entropy of the energies of two or three large regions of an MPS.
 
 The coarse-graining (:class:`mpsobs.coarse.WideEnergyRegions`) asks the energy of the
-left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1, binned by
-floor(E / dE); H_A and H_B are the model's terms wholly inside each part. Outcomes
-(b_A, b_B) have p(b) = <psi| P_A(b_A) P_B(b_B) |psi> and V(b) = Omega_A(b_A) Omega_B(b_B),
-Omega_R(b) the number of eigenvalues of H_R in bin b.
+left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1 (or of A = 0 .. c - 1,
+the middle C = c .. e - 1 and B = e .. L - 1), binned by floor(E / dE); H_R is the
+model's terms wholly inside R. Outcomes b = (b_A, b_B) (or (b_A, b_C, b_B)) have
+p(b) = <psi| prod_R P_R(b_R) |psi> and V(b) = prod_R Omega_R(b_R), Omega_R(b) the number
+of eigenvalues of H_R in bin b.
 
 Probabilities (kernel polynomial method, :mod:`mpsobs.chebyshev`). In mixed-canonical
 form at the cut, psi = sum_a lambda_a |L_a> |R_a>; M^A_n[a, b] = <L_a| T_n(Ht_A) |L_b>
 from the Chebyshev recursion on the left half with its right bond open (all chi Schmidt
 vectors at once), the same for B (the right half mirrored, so that its open bond is on
 the right); then mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] and
-p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Negative values of
-the damped series (from the compression) are set to zero and p renormalised.
+p = C_A mu C_B^T with the Jackson-damped closed-form bin integrals C. Three regions: in
+mixed-canonical form at both cuts, psi = sum_ab |L_a> |X_ab> |R_b> (X_ab = lambda_a Y_ab,
+the middle block with both bonds open, carrying the Schmidt values of the first cut and
+the weights of the second); the Chebyshev vectors T_n(Ht_C) |X_ab> of all chi_a chi_b
+middle vectors at once are the middle segment with both open bonds, compressed to bond D
+like the outer parts, and mu_jnm = sum M^A_j[a, a'] <X_ab| T_n(Ht_C) |X_a'b'> M^B_m[b, b']
+(:func:`mpsobs.chebyshev.moment_tensor`); p = mu contracted with C_A, C_C, C_B, the same
+3-D series and closed-form bin integrals. Negative values of the damped series (from the
+compression) are set to zero and p renormalised.
 
 Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
 eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
@@ -40,7 +48,10 @@ shows it.
 
 Cost: two Chebyshev runs per region (bond D and D / 2) of N / 2 compressions, each about
 3 n d ((w + 1) D)^3 flops for n sites, MPO bond w (Ising 3, XXZ 5), d = 2 (4 for a
-purification); for each wide region three Gibbs references, each a few Newton builds at
+purification). The middle region of three adds to each of its N overlaps a sweep of N
+stacked environments, about 2 N n d D^3, and a closing N^2 chi^2: in all about
+2 N^2 n_C d D^3 + N^3 chi^2 per run, and N^3 numbers for mu (N = 256: 134 MB). For each
+wide region three Gibbs references, each a few Newton builds at
 bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
 The references depend only on the region and the state's regional energies; they are
 recomputed at every call.
@@ -48,6 +59,7 @@ recomputed at every call.
 
 from __future__ import annotations
 
+import functools
 import logging
 from dataclasses import dataclass
 
@@ -55,16 +67,17 @@ import numpy as np
 from scipy.special import logsumexp
 
 from mpsobs.chain.coarse import WideEnergyRegions
-from mpsobs.chain.models import Model, Term
+from mpsobs.chain.models import Model, Term, mpo_tensors
 from mpsobs.core.errors import InputError
+from mpsobs.core.printing import number
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import chebyshev
 from mpsobs.estimators.estimate import canonical_state
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
 from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
 
-__all__ = ["wide_energy_entropy", "region_volumes", "DEFAULT_MOMENTS", "DEFAULT_BOND",
-           "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
+__all__ = ["wide_energy_entropy", "region_volumes", "kernel_counts", "KernelCounts",
+           "DEFAULT_MOMENTS", "DEFAULT_BOND", "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
@@ -165,26 +178,59 @@ def _region(model: Model, bin_width: float) -> _Region:
     return _Region(model, centre, half, np.arange(first, last + 1), bin_width)
 
 
+def _segments(mps, regions) -> tuple[list[list[np.ndarray]], np.ndarray]:
+    """The regions' segments of a normalised right-canonical chain and the Schmidt values
+    lambda at the first cut. Two regions: the left part (open right bond a) and the right
+    part mirrored (open right bond b), psi = sum_a lambda_a |L_a> |R_a>. Three: the same
+    outer parts at both cuts and the middle segment with its two open bonds, psi =
+    sum_ab |L_a> |X_ab> |R_b>, where X_ab = lambda_a Y_ab carries the Schmidt values of the
+    first cut and the weights of the second (L_a and R_b orthonormal)."""
+    left, lam, rest = _split(mps.tensors, regions[0][1])
+    if len(regions) == 2:
+        return [left, _mirror_segment(rest)], lam
+    width = regions[1][1] - regions[1][0]
+    middle = [lam[:, None, None] * rest[0], *rest[1:width]]
+    return [left, middle, _mirror_segment(rest[width:])], lam
+
+
 def _moments(segment, region: _Region, n_moments: int, bond: int) -> np.ndarray:
     d = segment[0].shape[1]
     mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, d)
     return chebyshev.moment_matrices(segment, mpo, n_moments, bond)
 
 
-def _joint(mu: np.ndarray, regions: tuple[_Region, _Region], n_moments: int) -> np.ndarray:
-    """Bin probabilities P[b_A, b_B] from the first ``n_moments`` of mu (clipped >= 0,
-    renormalised)."""
-    ca, cb = (chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
-              for r in regions)
-    p = np.clip(ca @ mu[:n_moments, :n_moments] @ cb.T, 0.0, None)
+def _state_moments(segments, lam: np.ndarray, regions, n_moments: int,
+                   bond: int) -> np.ndarray:
+    """The joint moments <psi| prod_R T_(n_R)(Ht_R) |psi> of two regions (N, N), mu_nm =
+    sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b], or of three (N, N, N), mu_jnm from
+    :func:`mpsobs.chebyshev.moment_tensor` with the outer regions' M^A_j and M^B_m."""
+    outer = (_moments(segments[0], regions[0], n_moments, bond),
+             _moments(segments[-1], regions[-1], n_moments, bond))
+    if len(segments) == 2:
+        ma, mb = outer
+        weighted = (ma * np.outer(lam, lam)).reshape(n_moments, -1)
+        return (weighted @ mb.reshape(mb.shape[0], -1).T).real
+    middle = regions[1]
+    mpo = chebyshev.scaled_mpo(middle.model, middle.centre, middle.half_width,
+                               segments[1][0].shape[1])
+    return chebyshev.moment_tensor(segments[1], mpo, n_moments, bond, *outer)
+
+
+def _joint(mu: np.ndarray, regions, n_moments: int) -> np.ndarray:
+    """Bin probabilities P[b_A, b_B] (or P[b_A, b_C, b_B]) from the first ``n_moments``
+    of mu along every axis (clipped >= 0, renormalised)."""
+    p = mu[(slice(n_moments),) * mu.ndim]
+    for axis, r in enumerate(regions):
+        c = chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
+        p = np.moveaxis(np.tensordot(c, p, axes=(1, axis)), 0, axis)
+    p = np.clip(p, 0.0, None)
     return p / p.sum()
 
 
-def _mixed_moments(ma: np.ndarray, mb: np.ndarray, lam: np.ndarray) -> np.ndarray:
-    """mu_nm = sum_ab lambda_a lambda_b M^A_n[a, b] M^B_m[a, b] (real)."""
-    n = ma.shape[0]
-    weighted = (ma * np.outer(lam, lam)).reshape(n, -1)
-    return (weighted @ mb.reshape(mb.shape[0], -1).T).real
+def _marginals(p: np.ndarray) -> list[np.ndarray]:
+    """The distribution of each region's bin."""
+    return [p.sum(axis=tuple(i for i in range(p.ndim) if i != axis))
+            for axis in range(p.ndim)]
 
 
 # --------------------------------------------------------------------------- volumes
@@ -294,13 +340,86 @@ def region_volumes(model: Model, bin_width: float, bins, *, targets=None,
     return vol.log_volumes(bins, n_moments, sub_bins)
 
 
+# --------------------------------------------------------------------------- cost
+
+
+@dataclass(frozen=True)
+class KernelCounts:
+    """The kernel calls of one :func:`wide_energy_entropy`, for a cost model: flops in
+    matrix products, the shapes (m, n) and counts of the SVDs and QRs, the number of
+    calls and the largest working set in bytes."""
+
+    gemm: float
+    svds: tuple[tuple[int, int, float], ...]
+    qrs: tuple[tuple[int, int, float], ...]
+    calls: float
+    size: float
+
+    def __repr__(self) -> str:
+        return (f"KernelCounts(gemm {number(self.gemm)} flops, "
+                f"{number(sum(k for _, _, k in self.svds))} SVDs, "
+                f"{number(sum(k for _, _, k in self.qrs))} QRs, {number(self.size)} bytes)")
+
+
+def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
+                  moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
+                  beta: float | None = None) -> KernelCounts:
+    """Counted work of :func:`wide_energy_entropy` on a state of bond ``state_bond``
+    (local dimension 2, or 4 for a purification): per region two Chebyshev runs (bonds D
+    and D / 2) of N / 2 compressions, each n - 1 QRs and SVDs at the summed bond
+    (w + 1) D and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
+    region, and a closing 8 N^2 chi^2); per region wider than EXACT_VOLUME_SITES three
+    Gibbs references, each NEWTON_STEPS builds at NEWTON_BOND and two builds and runs
+    (d = 4) at D and D / 2, a build at |``beta``| (default: the largest, MAX_BETA_RESOLUTION
+    N / (pi a)) taking beta a / (2 MAX_STEP_TAU) steps of (2 MAX_STEP_TAU + 15) terms, two
+    compressions each. An estimate of the order, not a count of the state's own bonds."""
+    n_moments, calls, gemm = moments, 0.0, 0.0
+    svds, qrs = [], []
+
+    def run(n: int, w: int, d: int, compress: int, steps: float, stacked: int = 1) -> None:
+        nonlocal gemm, calls
+        summed = (w + 1) * compress
+        svds.append((summed, d * summed, steps * (n - 1)))
+        qrs.append((d * summed, summed, steps * (n - 1)))
+        gemm += steps * (8.0 * n * w * w * d * d * compress**2
+                         + 2 * stacked * 16.0 * n * d * compress**3)
+        calls += steps * 6.0 * n
+
+    for i, (a, b) in enumerate(cg.regions):
+        region = cg.model.restricted(a, b)
+        n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
+        for compress in (bond, max(2, bond // 2)):
+            middle = 0 < i < len(cg.regions) - 1
+            run(n, w, local_dim, compress, n_moments / 2, n_moments if middle else 1)
+            if middle:
+                gemm += 8.0 * n_moments**3 * state_bond**2
+        if n > EXACT_VOLUME_SITES:
+            half = chebyshev.spectrum_bounds(region)[1]
+            largest = MAX_BETA_RESOLUTION * n_moments / (np.pi * half)
+            tau = min(largest, largest if beta is None else abs(beta)) * half / 2
+            build_steps = (max(1.0, np.ceil(tau / chebyshev.MAX_STEP_TAU))
+                           * (2 * chebyshev.MAX_STEP_TAU + 15) * 2)
+            for _ in VOLUME_TARGETS:
+                run(n, w, 4, min(bond, NEWTON_BOND), NEWTON_STEPS * (build_steps + 2))
+                for compress in (bond, max(2, bond // 2)):
+                    run(n, w, 4, compress, build_steps + n_moments / 2)
+    size = 16.0 * (2 * n_moments ** len(cg.regions) + n_moments * state_bond**2
+                   + n_moments * bond**2 * local_dim * (len(cg.regions) - 2))
+    return KernelCounts(gemm, tuple(svds), tuple(qrs), calls, size)
+
+
 # --------------------------------------------------------------------------- entropy
 
 
-def _entropy(p: np.ndarray, log_va: np.ndarray, log_vb: np.ndarray) -> tuple[_Parts, float]:
+def _log_volumes(log_vs) -> np.ndarray:
+    """ln V(b) = sum_R ln Omega_R(b_R) on the grid of the regions' bins."""
+    return functools.reduce(np.add.outer, log_vs)
+
+
+def _entropy(p: np.ndarray, log_vs) -> tuple[_Parts, float]:
     """S_obs and its parts, and the probability the smoothed series put into bins
     without eigenvalues (left out, the rest renormalised)."""
-    log_v = log_va[:, None] + log_vb[None, :]
+    log_v = _log_volumes(log_vs)
     live = (p > PROBABILITY_FLOOR) & np.isfinite(log_v)
     dropped = float(p.sum() - p[live].sum())
     pl = p[live] / p[live].sum()
@@ -313,7 +432,7 @@ def _entropy(p: np.ndarray, log_va: np.ndarray, log_vb: np.ndarray) -> tuple[_Pa
 def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_MOMENTS,
                         bond: int = DEFAULT_BOND, sub_bins: int = DEFAULT_SUB_BINS,
                         exact_sites: int = EXACT_VOLUME_SITES) -> EntropyResult:
-    """S_obs of the energies of the two regions of ``cg`` in ``state`` (an MPS, or a
+    """S_obs of the energies of the two or three regions of ``cg`` in ``state`` (an MPS, or a
     purification for a mixed state), with its method error (module docstring).
 
     Parameters
@@ -336,7 +455,7 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     ``method_err`` (and the parts' errors) the error estimate (1)-(3) of the module
     docstring, ``pruned_mass`` the probability of (4), whose entropy bound is added by
     the total error (:mod:`mpsobs.analysis.uncertainty`); ``distribution`` the bins
-    (b_A, b_B) with p > 1e-14.
+    (b_A, b_B), or (b_A, b_C, b_B), with p > 1e-14.
     """
     if not isinstance(cg, WideEnergyRegions):
         raise InputError(f"coarse_graining: expected wide energy regions from "
@@ -349,33 +468,27 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
         raise InputError(f"moments: expected an even number (it is halved for the error "
                          f"estimate), got {moments}")
     mps = canonical_state(state, cg.L)
-    cut = cg.regions[0][1]
-    left, lam, right = _split(mps.tensors, cut)
-    segments = (left, _mirror_segment(right))
-    b0, b1 = cg.regions[1]
+    segments, lam = _segments(mps, cg.regions)
     volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
                            for x, y in cg.regions)
-    regions = (volume_regions[0], _region(_mirror_model(cg.model.restricted(b0, b1)),
-                                          cg.bin_width))
+    b0, b1 = cg.regions[-1]
+    regions = (*volume_regions[:-1], _region(_mirror_model(cg.model.restricted(b0, b1)),
+                                             cg.bin_width))
     low_bond = max(2, bond // 2)
-    full = [_moments(seg, reg, moments, bond) for seg, reg in zip(segments, regions,
-                                                                  strict=True)]
-    mu = _mixed_moments(*full, lam)
-    mu_low = _mixed_moments(*(_moments(seg, reg, moments, low_bond)
-                              for seg, reg in zip(segments, regions, strict=True)), lam)
+    mu = _state_moments(segments, lam, regions, moments, bond)
+    mu_low = _state_moments(segments, lam, regions, moments, low_bond)
     p = _joint(mu, regions, moments)
-    marginals = (p.sum(axis=1), p.sum(axis=0))
     volumes = [_RegionVolumes(vreg, _targets(vreg, m), moments, bond, exact_sites)
-               for vreg, m in zip(volume_regions, marginals, strict=True)]
+               for vreg, m in zip(volume_regions, _marginals(p), strict=True)]
 
     def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool) -> tuple:
-        live = [m > PROBABILITY_FLOOR for m in (probs.sum(axis=1), probs.sum(axis=0))]
         log_v = []
-        for vol, reg, keep in zip(volumes, regions, live, strict=True):
+        for vol, reg, marginal in zip(volumes, regions, _marginals(probs), strict=True):
+            keep = marginal > PROBABILITY_FLOOR
             values = np.full(len(reg.bins), -np.inf)
             values[keep] = vol.log_volumes(reg.bins[keep], n_moments, sub, low)
             log_v.append(values)
-        return _entropy(probs, *log_v), log_v
+        return _entropy(probs, log_v), log_v
 
     (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
     (half, _), _ = evaluate(_joint(mu, regions, moments // 2), moments // 2, sub_bins, False)
@@ -383,11 +496,10 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
     err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
            + main.change(coarse_sub))
-    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_vols[0][:, None]
-                                                             + log_vols[1][None, :]))
-    log_v = log_vols[0][live[:, 0]] + log_vols[1][live[:, 1]]
-    outcomes = np.column_stack([regions[0].bins[live[:, 0]], regions[1].bins[live[:, 1]]])
-    dist = OutcomeDistribution(outcomes, p[live[:, 0], live[:, 1]], np.exp(log_v))
+    log_v = _log_volumes(log_vols)
+    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    outcomes = np.column_stack([reg.bins[live[:, i]] for i, reg in enumerate(regions)])
+    dist = OutcomeDistribution(outcomes, p[tuple(live.T)], np.exp(log_v[tuple(live.T)]))
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
                          shannon_err=float(err[1]), boltzmann=main.boltzmann,

@@ -30,7 +30,10 @@ localization, low energy) costs less; an initial state that is already entangled
   first try an enumeration of at most that cost: up to twice this); counting ("count",
   and "auto" / "exact" where countable) 32 chi**3 sum_i K_i b_i**2 / 2 with K_i the
   counters carried into region i; "enumerate" and "exact" on other coarse-grainings
-  depend on the state and are counted like sampling with ``samples``.
+  depend on the state and are counted like sampling with ``samples`` (the estimator's
+  default where the spec leaves it out); energies of wide regions by
+  :func:`mpsobs.estimators.wide_energy.kernel_counts` (Chebyshev runs and Gibbs
+  references at the estimator's default moments and bond, the references at BETA_GUESS).
 - References once per point: Gibbs entropies of free-fermion models (XX, Ising at
   h = 0) are negligible; otherwise the purification in imaginary time
   (:mod:`mpsobs.references.thermo`) to BETA_GUESS (the target temperature is not known
@@ -253,11 +256,14 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     ``cap`` (a purification with ``ancilla``): canonical form, block tensors and the
     method's own work (module docstring)."""
     d = 4 if ancilla else 2
-    if isinstance(cg, coarse.WideEnergyRegions):
-        return _wide_energy_work(cg, d)
     chi = bond_caps(L, cap, d)
     canonical = Work(sum(8.0 * float(chi[i]) * d * float(chi[i + 1]) ** 2 for i in range(L)),
                      sum(qr_flops(int(d * chi[i + 1]), int(chi[i])) for i in range(L)), L)
+    if isinstance(cg, coarse.WideEnergyRegions):
+        counts = wide_energy.kernel_counts(cg, int(np.max(chi)), d, beta=BETA_GUESS)
+        lapack = (sum(svd_flops(m, n) * k for m, n, k in counts.svds)
+                  + sum(qr_flops(m, n) * k for m, n, k in counts.qrs))
+        return canonical + Work(counts.gemm, lapack, counts.calls), counts.size
     if _method(cg, method) == "count":
         carried, gemm = 1.0, 0.0
         for start, stop in cg.regions:
@@ -282,28 +288,6 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     size = (sum(16.0 * np.prod(b.tensor.shape) for b in blocks) + batch * per_sample
             + WORK_BYTES)
     return canonical + setup + paths, size
-
-
-def _wide_energy_work(cg: coarse.WideEnergyRegions, d: int) -> tuple[Work, float]:
-    """(work, working-set bytes) of one wide-region energy estimate (module docstring)."""
-    moments, bond = wide_energy.DEFAULT_MOMENTS, wide_energy.DEFAULT_BOND
-    mpo = 3 if cg.model.name == "ising" else 5
-
-    def run(n: int, local: int, width: int) -> float:   # N / 2 compressed steps
-        return moments / 2 * 3.0 * n * local * ((mpo + 1) * width) ** 3
-
-    flops, calls = 0.0, 0.0
-    for start, stop in cg.regions:
-        n = stop - start
-        flops += run(n, d, bond) + run(n, d, bond // 2)
-        calls += moments * n
-        if n > wide_energy.EXACT_VOLUME_SITES:
-            flops += len(wide_energy.VOLUME_TARGETS) * 2 * (run(n, 4, bond)
-                                                            + run(n, 4, bond // 2))
-            calls += len(wide_energy.VOLUME_TARGETS) * 2 * moments * n
-    widest = max(stop - start for start, stop in cg.regions)
-    size = 16.0 * 4 * widest * 4 * ((mpo + 1) * bond) ** 2
-    return Work(0.0, flops, calls), size
 
 
 def _free_fermion(model) -> bool:
