@@ -2,7 +2,8 @@
 
 XX chain (delta = 0, random fields of strength 0.6, seed 0), L = --L sites (halves of
 L / 2), Neel quench. The exact S_obs of the energies of the two halves (bins of width
---bin-width) comes from :func:`mpsobs.free_energy_regions.free_region_energy_entropy`
+--bin-width) comes from
+:func:`mpsobs.references.free_energy_regions.free_region_energy_entropy`
 on the exactly evolved correlation matrix; the estimator
 :func:`mpsobs.wide_energy.wide_energy_entropy` runs on the TEBD state (order 4,
 dt = 0.05, bond --chi) with N moments and compression bond D. Printed per time and

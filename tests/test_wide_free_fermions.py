@@ -152,3 +152,25 @@ def test_chebyshev_method_against_the_free_fermion_reference():
     res = we.wide_energy_entropy(snap.state, cg, moments=32, bond=8)
     total = res.method_err + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
     assert abs(res.entropy - ref.entropy) <= total + ref.error, (res, ref)
+
+
+def test_reference_refuses_what_it_cannot_do():
+    L = 8
+    corr = ga.correlation_matrix(states.neel(L))
+    cg = coarse.WideEnergyRegions(L, ((0, 4), (4, L)), _xx(L, seed=0), 1.0, "test")
+    with pytest.raises(InputError, match="^model:"):   # delta != 0 is not free
+        fr.free_region_energy_entropy(corr, coarse.WideEnergyRegions(
+            L, ((0, 4), (4, L)), models.xxz(L, delta=0.5), 1.0, "test"))
+    with pytest.raises(InputError, match="^corr:"):
+        fr.free_region_energy_entropy(corr[:6, :6], cg)
+    with pytest.raises(InputError, match="^smoothing:"):
+        fr.free_region_energy_entropy(corr, cg, smoothing=0.0)
+    with pytest.raises(InputError, match="^regions:"):
+        fr.free_region_energy_entropy(corr, coarse.WideEnergyRegions(
+            L, ((0, 3), (3, 5), (5, L)), cg.model, 1.0, "test"))
+    wide = 2 * (fr.MAX_MODES + 1)
+    with pytest.raises(InputError, match="^regions:"):
+        fr.free_region_energy_entropy(
+            ga.correlation_matrix(states.neel(wide)),
+            coarse.WideEnergyRegions(wide, ((0, wide // 2), (wide // 2, wide)),
+                                     _xx(wide, seed=0), 1.0, "test"))

@@ -95,6 +95,11 @@ def _subset_sums(energies: np.ndarray) -> np.ndarray:
     return sums
 
 
+def _level_range(energies: np.ndarray, offset: float) -> tuple[float, float]:
+    """Lowest and highest level: offset + the sum of the negative (positive) energies."""
+    return offset + energies[energies < 0].sum(), offset + energies[energies > 0].sum()
+
+
 def level_counts(energies, offset: float, bin_width: float) -> tuple[np.ndarray, np.ndarray]:
     """Exact number of levels offset + sum_{k in S} e_k (S any subset) in each bin
     b = floor(E / bin_width), by meet-in-the-middle (module docstring).
@@ -114,8 +119,7 @@ def level_counts(energies, offset: float, bin_width: float) -> tuple[np.ndarray,
     bin_width = finite_number(bin_width, "bin_width")
     if bin_width <= 0:
         raise InputError(f"bin_width: expected a positive number, got {bin_width!r}")
-    low = offset + e[e < 0].sum()
-    high = offset + e[e > 0].sum()
+    low, high = _level_range(e, offset)
     bins = np.arange(int(np.floor(low / bin_width)), int(np.floor(high / bin_width)) + 1)
     half = e.size // 2
     first = _subset_sums(e[:half])
@@ -183,8 +187,7 @@ class _Grid:
 
 def _grid(ham: QuadraticHamiltonian, bins: np.ndarray, bin_width: float,
           sigma: float) -> _Grid:
-    e = ham.energies
-    low, high = ham.offset + e[e < 0].sum(), ham.offset + e[e > 0].sum()
+    low, high = _level_range(ham.energies, ham.offset)
     lo_edge, hi_edge = bins[0] * bin_width, (bins[-1] + 1) * bin_width
     period = max(hi_edge - low, high - lo_edge) + 2 * CUTOFF * (2 * sigma)
     step = 2 * np.pi / period
