@@ -108,6 +108,19 @@ def test_characteristic_function_of_a_complex_gaussian_state_matches_dense():
                                atol=1e-12)
 
 
+def test_schur_route_and_full_determinants_agree(monkeypatch):
+    L, cut = 12, 5
+    model = _xx(L, seed=4)
+    cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, 1.0, "test")
+    corr = ga.evolve_correlation(ga.quadratic_hamiltonian(model),
+                                 ga.correlation_matrix(states.neel(L)), 0.7)
+    s_a, s_b = np.linspace(0.0, 30.0, 7), np.linspace(-25.0, 25.0, 9)
+    schur = fr.characteristic_function(corr, cg, s_a, s_b)
+    monkeypatch.setattr(fr, "SCHUR_CONDITION", 0.0)
+    np.testing.assert_allclose(schur, fr.characteristic_function(corr, cg, s_a, s_b),
+                               atol=1e-12)
+
+
 def test_reference_matches_dense_diagonalisation_of_a_quench():
     # XX chain, Neel quench, exact evolution of C; exact p and S_obs from the dense state.
     # The fields (seed 0) and bin width keep every level of H_A and H_B at least 0.1 from
