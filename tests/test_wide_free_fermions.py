@@ -83,6 +83,8 @@ def test_level_counts_of_many_modes_against_enumeration():
     assert fr.level_counts(rng.uniform(-1.0, 1.0, 36), 0.0, 1.0)[1].sum() == 2**36
     with pytest.raises(InputError, match="^energies:"):
         fr.level_counts(np.ones(fr.MAX_MODES + 1), 0.0, 1.0)
+    with pytest.raises(InputError, match="^energies:"):
+        fr.level_counts(["one", "two"], 0.0, 1.0)
     with pytest.raises(InputError, match="^bin_width:"):
         fr.level_counts(e[:4], 0.0, 0.0)
 

@@ -118,7 +118,10 @@ def level_counts(energies, offset: float, bin_width: float) -> tuple[np.ndarray,
     highest level's, and the int64 counts (zeros for bins inside gaps); they sum to
     2^n. Cost O(2^(n/2) n_bins n); n <= MAX_MODES.
     """
-    e = np.asarray(energies, dtype=float)
+    try:
+        e = np.asarray(energies, dtype=float)
+    except (TypeError, ValueError):
+        e = np.empty((0, 0))
     if e.ndim != 1 or e.size < 1 or not np.all(np.isfinite(e)):
         raise InputError(f"energies: expected a non-empty 1-d array of finite single-particle "
                          f"energies, got {energies!r}")
