@@ -117,3 +117,7 @@ def test_wide_energy_regions_are_costed():
     small, _ = cost.estimator_work(three, 48, 8, "auto", 0)
     large, size = cost.estimator_work(three, 48, 32, "auto", 0)
     assert 0 < small.flops < large.flops and size > 0
+    # fewer moments and a smaller compression bond (the spec's resolution keys) cost less
+    coarser, _ = cost.estimator_work(three, 48, 32, "auto", 0,
+                                     options={"moments": 32, "bond": 16})
+    assert 0 < coarser.flops < large.flops

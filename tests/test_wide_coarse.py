@@ -64,3 +64,57 @@ def test_wide_energy_regions_are_refused_in_a_sequence():
     number = coarse.blocks(30, 15, "number")
     with pytest.raises(InputError, match="^sequence:.*wider than"):
         coarse.sequence(number, wide)
+
+
+# --------------------------------------------------------------------------- spec keys
+
+_WIDE_SPEC = {
+    "model": {"name": "ising", "L": 28, "g": 1.05, "field": {"strength": 0.25}},
+    "state": {"kind": "domain_wall"},
+    "evolution": {"chi_max": 8, "chi_check": 0},
+    "times": {"values": [0.0]},
+}
+
+
+def _wide_point(entry: dict):
+    from mpsobs.pipeline import spec
+
+    return spec.parse({**_WIDE_SPEC, "coarse": [entry]}).points[0]
+
+
+def test_resolution_keys_reach_the_estimator_and_its_label():
+    from mpsobs.pipeline.build import build_point
+
+    halves = {"observable": "energy", "block": 14, "bin_width": 1.0}
+    plain = build_point(_wide_point(halves), cheap_only=True).coarse[0]
+    assert plain.options == {} and ",N" not in plain.label
+    tuned = build_point(_wide_point({**halves, "moments": 32, "moment_bond": 8,
+                                     "sub_bins": 4}), cheap_only=True).coarse[0]
+    assert tuned.options == {"moments": 32, "bond": 8, "sub_bins": 4}
+    assert tuned.label == plain.label + ",N32,D8,sb4"
+
+
+def test_resolution_keys_leave_other_points_unchanged():
+    # an entry without the keys carries none: point ids of existing specs stay as they were
+    point = _wide_point({"observable": "energy", "block": 14, "bin_width": 1.0})
+    assert "wide_energy" not in point.params["coarse"][0]
+    tuned = _wide_point({"observable": "energy", "block": 14, "bin_width": 1.0,
+                         "moments": 32})
+    assert tuned.point_id != point.point_id
+
+
+@pytest.mark.parametrize("entry, match", [
+    ({"observable": "energy", "block": 14, "bin_width": 1.0, "moments": 31},
+     r"^coarse\[0\]\.moments: expected an even integer"),
+    ({"observable": "energy", "block": 14, "bin_width": 1.0, "moment_bond": 1},
+     r"^coarse\[0\]\.moment_bond: expected an integer >= 2"),
+    ({"observable": "number", "block": 14, "sub_bins": 4},
+     r"^coarse\[0\]\.sub_bins: only the energy observable"),
+    ({"observable": "energy", "block": 4, "bin_width": 1.0, "moments": 32},
+     r"^coarse\[0\]\.moments: only energy regions wider than 12 sites"),
+])
+def test_resolution_keys_are_refused_where_they_do_not_apply(entry, match):
+    from mpsobs.pipeline.build import build_point
+
+    with pytest.raises(InputError, match=match):
+        build_point(_wide_point(entry), cheap_only=True)

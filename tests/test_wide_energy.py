@@ -227,6 +227,20 @@ def test_entry_point_dispatches_and_refuses_sampling_settings():
         observational_entropy(states.neel(L), cg, samples=100)
     with pytest.raises(InputError, match="^moments:"):
         we.wide_energy_entropy(states.neel(L), cg, moments=7)
+    with pytest.raises(InputError, match="^prune:"):
+        observational_entropy(states.neel(L), cg, prune=1e-9)
+
+
+def test_entry_point_passes_the_resolution_on():
+    # the same numbers through observational_entropy and the estimator itself
+    L = 16
+    model = models.ising(L, g=1.05, h=0.25)
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=2.0,
+                       regions=[[0, 13], [13, L]])
+    state = states.product_state("1" * 8 + "0" * 8)
+    via_entry = observational_entropy(state, cg, moments=8, bond=4, sub_bins=2)
+    direct = we.wide_energy_entropy(state, cg, moments=8, bond=4, sub_bins=2)
+    assert (via_entry.entropy, via_entry.method_err) == (direct.entropy, direct.method_err)
 
 
 def _sector_eigh(model):

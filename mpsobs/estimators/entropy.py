@@ -12,7 +12,7 @@ from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import dense
 from mpsobs.estimators.result import EntropyResult
 
-__all__ = ["observational_entropy"]
+__all__ = ["observational_entropy", "WIDE_SETTINGS"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
@@ -22,6 +22,11 @@ def _estimator_options() -> tuple[str, ...]:
 
     params = inspect.signature(estimate.mps_observational_entropy).parameters.values()
     return tuple(p.name for p in params if p.kind is inspect.Parameter.KEYWORD_ONLY)
+
+
+#: Settings of the wide-region energy estimator that :func:`observational_entropy`
+#: passes on (:func:`mpsobs.estimators.wide_energy.wide_energy_entropy`).
+WIDE_SETTINGS = ("moments", "bond", "sub_bins")
 
 
 def _refuse_plain_numbers(state) -> None:
@@ -50,8 +55,9 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
         raises InputError saying how to normalise it).
     coarse_graining : from :mod:`mpsobs.coarse`. Energy regions wider than
         ``coarse.MAX_BLOCK_SITES`` (:class:`mpsobs.coarse.WideEnergyRegions`) go to
-        :func:`mpsobs.wide_energy.wide_energy_entropy` with its default settings (method
-        None or "approximate", no other setting; a dense vector is made an exact MPS).
+        :func:`mpsobs.wide_energy.wide_energy_entropy` (method None or "approximate";
+        settings ``moments``, ``bond``, ``sub_bins``, else its defaults; a dense vector is
+        made an exact MPS).
     samples, seed, method, options : estimator settings for MPS states (see
         :func:`mpsobs.estimate.mps_observational_entropy`: ``method`` None, "sample",
         "sample_strings", "enumerate", "count" or "exact"). Dense states are always
@@ -66,15 +72,15 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
     """
     from mpsobs.estimators import estimate
 
+    estimate.check_seed(seed)
+    _refuse_plain_numbers(state)
+    if isinstance(coarse_graining, WideEnergyRegions):
+        return _wide(state, coarse_graining, samples, method, options)
     allowed = _estimator_options()
     unknown = sorted(set(options) - set(allowed))
     if unknown:
         raise InputError(f"{unknown[0]}: unknown keyword of observational_entropy; allowed: "
                          f"{', '.join(allowed)}")
-    estimate.check_seed(seed)
-    _refuse_plain_numbers(state)
-    if isinstance(coarse_graining, WideEnergyRegions):
-        return _wide(state, coarse_graining, samples, method, options)
     if isinstance(state, np.ndarray):
         given = [name for name, value in (("samples", samples), *options.items())
                  if value is not None]
@@ -88,20 +94,22 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
 
 
 def _wide(state, cg: WideEnergyRegions, samples, method, options) -> EntropyResult:
-    """The wide-region energy estimator (no estimator settings)."""
+    """The wide-region energy estimator with its resolution settings
+    (:data:`WIDE_SETTINGS`, None for its defaults) and no other estimator setting."""
     from mpsobs.estimators.wide_energy import wide_energy_entropy
     from mpsobs.mps.tensors import from_dense
 
     given = [name for name, value in (("samples", samples), *options.items())
-             if value is not None]
+             if value is not None and name not in WIDE_SETTINGS]
     if given or method not in (None, "approximate"):
         name = given[0] if given else "method"
         raise InputError(f"{name}: energy regions wider than the block limit are evaluated by "
-                         f"the Chebyshev estimator (method None or 'approximate') and take no "
-                         f"other setting here; tune it with mpsobs.wide_energy")
+                         f"the Chebyshev estimator (method None or 'approximate'), whose "
+                         f"settings are {', '.join(WIDE_SETTINGS)}")
+    settings = {k: v for k, v in options.items() if k in WIDE_SETTINGS and v is not None}
     if isinstance(state, np.ndarray):
         if state.ndim != 1:
             raise InputError("state: wide energy regions take a state vector or an MPS, not "
                              "a density matrix (give a purification, PurifiedMPS)")
         state = from_dense(state)
-    return wide_energy_entropy(state, cg)
+    return wide_energy_entropy(state, cg, **settings)

@@ -162,6 +162,12 @@ def initial_state(params: dict, model: models.Model, evolution: dict, *,
     raise InputError(f"state.kind: unknown {kind!r}")
 
 
+#: Spec keys of the wide-region energy estimator's resolution -> its keyword arguments
+#: (:func:`mpsobs.estimators.wide_energy.wide_energy_entropy`) and label parts.
+_WIDE_ARGUMENTS = {"moments": "moments", "moment_bond": "bond", "sub_bins": "sub_bins"}
+_WIDE_LABELS = {"moments": "N", "moment_bond": "D", "sub_bins": "sb"}
+
+
 def _entry_name(entry: dict) -> str:
     if entry["label"]:
         return repr(entry["label"])
@@ -236,10 +242,21 @@ def build_coarse_grainings(entries: Sequence[dict], model: models.Model,
                                            bin_width=entry["bin_width"] if energy else None,
                                            regions=entry["regions"]))
             cg = parts[0] if len(parts) == 1 else coarse.sequence(*parts)
-        label = entry["label"] or cg.label
+        resolution = entry.get("wide_energy", {})
         if isinstance(cg, coarse.WideEnergyRegions):
-            options = {}  # the Chebyshev estimator takes no settings; checked when built
+            # the Chebyshev estimator takes only its resolution (its parameters were
+            # checked when built and by the spec); a resolution away from the defaults
+            # is part of the label, so that rows of two resolutions stay apart
+            options = {_WIDE_ARGUMENTS[k]: v for k, v in resolution.items()}
+            label = entry["label"] or cg.label + "".join(
+                f",{_WIDE_LABELS[k]}{v}" for k, v in resolution.items())
+        elif resolution:
+            raise InputError(f"{path}.{next(iter(resolution))}: only energy regions wider "
+                             f"than {coarse.MAX_BLOCK_SITES} sites take it; "
+                             f"coarse-graining {_entry_name(entry)} has none "
+                             f"(model.L = {model.L})")
         else:
+            label = entry["label"] or cg.label
             options = estimator_options(estimator)
             with _at("estimator", {**_ESTIMATOR_ARGUMENTS,
                                    "coarse_graining": arguments["coarse_graining"]},

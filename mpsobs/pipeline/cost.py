@@ -251,16 +251,20 @@ def _method(cg: coarse.BlockCoarseGraining, method: str) -> str:
 
 
 def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str,
-                   samples: int, *, ancilla: bool = False) -> tuple[Work, float]:
+                   samples: int, *, ancilla: bool = False,
+                   options: dict | None = None) -> tuple[Work, float]:
     """(work, working-set bytes) of one estimate of ``cg`` on a state at bond cap
     ``cap`` (a purification with ``ancilla``): canonical form, block tensors and the
-    method's own work (module docstring)."""
+    method's own work (module docstring); ``options``: the estimator options of the point
+    (for wide energy regions their moments and bond)."""
     d = 4 if ancilla else 2
     chi = bond_caps(L, cap, d)
     canonical = Work(sum(8.0 * float(chi[i]) * d * float(chi[i + 1]) ** 2 for i in range(L)),
                      sum(qr_flops(int(d * chi[i + 1]), int(chi[i])) for i in range(L)), L)
     if isinstance(cg, coarse.WideEnergyRegions):
-        counts = wide_energy.kernel_counts(cg, int(np.max(chi)), d, beta=BETA_GUESS)
+        resolution = {k: v for k, v in (options or {}).items() if k in ("moments", "bond")}
+        counts = wide_energy.kernel_counts(cg, int(np.max(chi)), d, beta=BETA_GUESS,
+                                           **resolution)
         lapack = (sum(svd_flops(m, n) * k for m, n, k in counts.svds)
                   + sum(qr_flops(m, n) * k for m, n, k in counts.qrs))
         return canonical + Work(counts.gemm, lapack, counts.calls), counts.size
@@ -329,13 +333,13 @@ def point_cost(point: Point) -> PointCost:
     L = int(p["model"]["L"])
     times = np.asarray(p["times"]["values"], dtype=float)
     built = build_point(point, cheap_only=True)
-    model, cgs = built.model, [c.coarse_graining for c in built.coarse]
+    model = built.model
     cap, check_cap = int(evo["chi_max"]), int(evo.get("chi_check") or 0)
     samples = int(est["samples"] or estimate.DEFAULT_SAMPLES)
 
     def estimates(bond: int, *, ancilla: bool = False) -> tuple[Work, float]:
-        parts = [estimator_work(cg, L, bond, est["method"], samples, ancilla=ancilla)
-                 for cg in cgs]
+        parts = [estimator_work(c.coarse_graining, L, bond, est["method"], samples,
+                                ancilla=ancilla, options=c.options) for c in built.coarse]
         return sum((w for w, _ in parts), Work()), max(s for _, s in parts)
 
     main_est, main_bytes = estimates(cap)

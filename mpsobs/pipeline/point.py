@@ -233,8 +233,6 @@ def _paired_options(main: EntropyResult, estimator: dict) -> dict:
     """Estimator settings for the check state that repeat the main estimate: exact where
     it was exact, else sampling with the same number of samples (with the same seed the
     s-th sample then uses the same uniforms in both)."""
-    if main.method == "approximate":
-        return {}
     if main.method == "exact":
         return {"method": "exact", "prune": estimator["prune"]}
     sampler = "sample_strings" if main.algorithm == "mps-sample" else "sample"
@@ -244,7 +242,10 @@ def _paired_options(main: EntropyResult, estimator: dict) -> dict:
 def _check_estimate(state: MPS, cg: coarse.BlockCoarseGraining, main: EntropyResult,
                     seed: int, estimator: dict, options: dict) -> EntropyResult:
     """The estimate of the check state paired with ``main``; where an exact enumeration
-    of the check state exceeds its limits, the point's own settings (``options``)."""
+    of the check state exceeds its limits, the point's own settings (``options``); the
+    wide-region estimator with the same settings (its resolution)."""
+    if main.method == "approximate":
+        return observational_entropy(state, cg, seed=seed, **options)
     try:
         return observational_entropy(state, cg, seed=seed, **_paired_options(main, estimator))
     except InputError as exc:

@@ -73,6 +73,9 @@ log = logging.getLogger(__name__)
 _TOP_TABLES = ("model", "state", "evolution", "times", "coarse", "estimator", "sweep",
                "output")
 _COARSE_KEYS = tuple(k.name for k in SCHEMA if k.section == "coarse[]")
+#: ``[[coarse]]`` keys of the wide-region energy estimator's resolution, kept in an
+#: entry's ``wide_energy`` table only when given.
+WIDE_ENERGY_KEYS = ("moments", "moment_bond", "sub_bins")
 
 
 def _default_text(key: Key, defaults: Mapping[str, Any]) -> str:
@@ -324,9 +327,20 @@ def _coarse_section(value: Any) -> list[dict]:
             if len(blocks) * len(widths) > 1:
                 raise key_error(f"{path}.label", "a label names one coarse-graining; this entry "
                             "gives several (list of block or bin_width)")
+        wide = {name: BY_PATH[f"coarse[].{name}"].check(f"{path}.{name}", table[name])
+                for name in WIDE_ENERGY_KEYS if name in table}
+        if wide.get("moments", 0) % 2:
+            raise key_error(f"{path}.moments", f"expected an even integer >= 4 (it is halved "
+                            f"for the error estimate), got {wide['moments']}")
+        if wide and names != ["energy"]:
+            raise key_error(f"{path}.{next(iter(wide))}", "only the energy observable of wide "
+                            "regions takes it (observable = \"energy\" alone)")
         for b, w in itertools.product(blocks, widths):
-            entries.append({"observable": list(names), "block": b, "regions": regions,
-                            "bin_width": w, "label": label, "path": path})
+            entry = {"observable": list(names), "block": b, "regions": regions,
+                     "bin_width": w, "label": label, "path": path}
+            if wide:   # only when given: entries without them keep their identity
+                entry["wide_energy"] = wide
+            entries.append(entry)
     seen: dict[str, str] = {}
     for entry in entries:
         key = json.dumps({k: v for k, v in entry.items() if k != "path"}, sort_keys=True)

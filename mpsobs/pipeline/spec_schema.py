@@ -239,6 +239,16 @@ SCHEMA: tuple[Key, ...] = (
         "instead of distinct eigenvalues; a list gives one coarse-graining per width", None,
         unit="J", sweep=False, allowed_text="a number > 0 or a list of them (energy only)",
         default_text="distinct eigenvalues"),
+    Key("coarse[].moments", "int", "Chebyshev moments per region of the wide-region "
+        "energy estimator (energy regions wider than 12 sites only); resolution about "
+        "pi a / N for a spectrum half-width a", None, low=4, sweep=False,
+        allowed_text="an even integer >= 4", default_text="the estimator's default (256)"),
+    Key("coarse[].moment_bond", "int", "compression bond of the Chebyshev vectors of the "
+        "wide-region energy estimator (wide energy regions only)", None, low=2, sweep=False,
+        allowed_text="an integer >= 2", default_text="the estimator's default (64)"),
+    Key("coarse[].sub_bins", "int", "sub-bins per bin of the reweighted volumes of the "
+        "wide-region energy estimator (wide energy regions only)", None, low=2, sweep=False,
+        allowed_text="an integer >= 2", default_text="the estimator's default (8)"),
     Key("coarse[].label", "str", "label of the coarse-graining in the table", None,
         sweep=False, allowed_text="a non-empty string", default_text="made from the "
         "observable and blocks"),
