@@ -695,3 +695,14 @@ def test_single_row_outcomes_sample_with_vectors():
     # dense engine)
     exact = dense.observational_entropy(mpsmod.to_dense(state), cg).entropy
     assert abs(new.entropy - exact) <= 4 * new.stderr
+
+
+def test_sample_batches_print_their_size_not_their_arrays():
+    L = 8
+    blocks = readout_blocks(canonical_state(states.neel(L), L), coarse.blocks(L, 4))
+    uniforms = np.random.default_rng(0).random((3, len(blocks)))
+    text = repr(draw_samples(blocks, uniforms))
+    assert text.startswith("SampleBatch(3 samples over 2 blocks, ") and "array" not in text
+    weights = [outcome_weights(b) for b in blocks]
+    assert repr(draw_conditional(blocks, weights, uniforms[:1])).startswith(
+        "ConditionalBatch(1 sample over 2 blocks, ")

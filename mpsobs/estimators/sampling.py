@@ -99,7 +99,14 @@ def _row_amplitudes(vec: np.ndarray, blk: ReadoutBlock
     return amp, (amp.real**2 + amp.imag**2).sum(axis=2), 8.0 * amp.size * cl
 
 
-@dataclass(frozen=True, eq=False)
+def _batch_repr(batch) -> str:
+    """``Name(n samples over k blocks, f flops)``: a batch's size, not its arrays."""
+    n, k = batch.outcomes.shape
+    return (f"{type(batch).__name__}({n} sample{'' if n == 1 else 's'} over {k} "
+            f"block{'' if k == 1 else 's'}, {batch.flops:.3g} flops)")
+
+
+@dataclass(frozen=True, eq=False, repr=False)
 class SampleBatch:
     """Samples of coarse outcome strings with their exact probabilities.
 
@@ -112,6 +119,8 @@ class SampleBatch:
     log_p: np.ndarray
     log_v: np.ndarray
     flops: float
+
+    __repr__ = _batch_repr
 
 
 def draw_samples(blocks: Sequence[ReadoutBlock], uniforms: np.ndarray) -> SampleBatch:
@@ -168,7 +177,7 @@ def conditional_terms(p: np.ndarray, log_volumes: np.ndarray) -> tuple[np.ndarra
     return -np.sum(p * log_p, axis=1), p @ log_v
 
 
-@dataclass(frozen=True, eq=False)
+@dataclass(frozen=True, eq=False, repr=False)
 class ConditionalBatch:
     """Coarse outcome paths drawn from their exact conditionals, with their chain-rule
     values (the conditional estimator, method "sample").
@@ -183,6 +192,8 @@ class ConditionalBatch:
     shannon: np.ndarray
     boltzmann: np.ndarray
     flops: float
+
+    __repr__ = _batch_repr
 
 
 def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarray],
