@@ -34,7 +34,9 @@ HERE = Path(__file__).resolve().parents[1]
 
 _CHILD = """
 import json, sys, time
+import mpsobs
 from mpsobs.pipeline import point, spec
+print("loaded=" + mpsobs.__file__, file=sys.stderr)
 p = spec.parse(json.loads(sys.argv[1])).points[0]
 cpu, wall = time.process_time(), time.perf_counter()
 frame = point.compute_point(p)
@@ -50,8 +52,13 @@ def timed(tree: Path, data: dict) -> dict:
     """Run one point with the mpsobs of ``tree`` in a fresh process."""
     env = {**os.environ, "PYTHONPATH": str(tree), "OPENBLAS_NUM_THREADS": "1",
            "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+    # run from the tree itself: ``python -c`` puts the working directory first on the path
     done = subprocess.run([sys.executable, "-c", _CHILD, json.dumps(data)], env=env,
-                          capture_output=True, text=True, check=True)
+                          cwd=tree, capture_output=True, text=True, check=True)
+    loaded = Path(next(line for line in done.stderr.splitlines()
+                       if line.startswith("loaded=")).removeprefix("loaded=")).resolve()
+    if not loaded.is_relative_to(tree.resolve()):
+        raise SystemExit(f"the child process loaded {loaded}, not the mpsobs of {tree}")
     return json.loads(done.stdout.strip().splitlines()[-1])
 
 

@@ -308,3 +308,22 @@ def test_kernel_counts_match_the_compressions_of_a_run(monkeypatch):
     assert max(m * n for m, n in calls) <= min(m * n for m, n, _ in counts.svds)
     wider = we.kernel_counts(cg, 1, moments=n_moments, bond=2 * bond)
     assert wider.gemm > counts.gemm
+
+
+def test_equilibrium_error_of_wide_regions_includes_the_method_error():
+    # S_obs_eq_err = stderr (0 here) + method error + pruned-mass bound + state error
+    # bound (0 for an exact state): the rule of mpsobs.pipeline.point
+    from mpsobs.pipeline import point
+
+    L = 16
+    model = models.ising(L, g=1.05, h=0.25)
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=2.0,
+                       regions=[[0, 13], [13, L]])
+    state = states.product_state("1" * 8 + "0" * 8)
+    options = {"moments": 8, "bond": 4, "sub_bins": 2}
+    value, err = point._estimate(state, cg, options, seed=1, trace_distance=0.0)
+    res = observational_entropy(state, cg, **options)
+    assert res.method_err > 0 and res.pruned_mass >= 0
+    assert value == res.entropy
+    assert err == pytest.approx(res.method_err
+                                + pruned_entropy_bound(res.pruned_mass, res.max_entropy))

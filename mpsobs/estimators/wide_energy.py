@@ -421,7 +421,7 @@ def _entropy(p: np.ndarray, log_vs) -> tuple[_Parts, float]:
     without eigenvalues (left out, the rest renormalised)."""
     log_v = _log_volumes(log_vs)
     live = (p > PROBABILITY_FLOOR) & np.isfinite(log_v)
-    dropped = float(p.sum() - p[live].sum())
+    dropped = max(0.0, float(p.sum() - p[live].sum()))   # >= 0 up to round-off
     pl = p[live] / p[live].sum()
     shannon = float(-np.sum(pl * np.log(pl)))
     boltzmann = float(np.sum(pl * log_v[live]))

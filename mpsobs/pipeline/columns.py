@@ -127,8 +127,9 @@ RESULT_COLUMNS: tuple[Column, ...] = (
     Column(VERSION, "", "version of mpsobs that computed the row"),
     Column(EQUILIBRIUM, "nats", "S_obs of the Gibbs ensemble behind S_thermo for this "
                                 "coarse-graining (the equilibrium value)"),
-    Column(EQUILIBRIUM_ERR, "nats", "error of S_obs_eq: stderr + pruned-mass bound + "
-                                    "Gibbs-state error bound"),
+    Column(EQUILIBRIUM_ERR, "nats", "error of S_obs_eq: stderr + method error (wide "
+                                    "regions) + pruned-mass bound + Gibbs-state error "
+                                    "bound"),
     Column(S_OBS_GGE, "nats", "S_obs of the XX generalised Gibbs ensemble (number, <= 3 "
                               "regions); NaN otherwise"),
     Column(METHOD_ERROR, "nats", "error estimate of an approximate estimator (the energies "

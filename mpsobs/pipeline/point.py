@@ -16,9 +16,10 @@ that sector), and for XX chains the generalised Gibbs entropy of its mode occupa
 With it, per coarse-graining, ``S_obs_eq``: S_obs of that same Gibbs ensemble (same
 beta, mu or sector), the value a thermalizing chain should reach, from the purification
 of :func:`mpsobs.thermo.gibbs_state` (bond :data:`EQ_MAX_BOND`, at most the evolution's
-chi_max) and the point's estimator settings. ``S_obs_eq_err`` = sampling stderr +
-the pruned-mass bound of enumeration + :func:`mpsobs.thermo.entropy_shift_bound` of the
-purification's trace-distance error (the Trotter and truncation estimate of the state).
+chi_max) and the point's estimator settings. ``S_obs_eq_err`` = sampling stderr + the
+method error of the wide-region estimator + the pruned-mass bound of enumeration +
+:func:`mpsobs.thermo.entropy_shift_bound` of the purification's trace-distance error
+(the Trotter and truncation estimate of the state).
 For XX chains ``S_obs_gge`` is S_obs of the generalised Gibbs ensemble of the initial
 mode occupations (a Gaussian state; grand in the particle number), exact by counting
 statistics for number coarse-grainings of at most three regions, NaN otherwise.
@@ -180,10 +181,11 @@ def _equilibrium_values(state, trace_distance: float, cgs: Sequence[BuiltCoarse]
 
 def _estimate(state, cg: coarse.BlockCoarseGraining, options: dict, seed: int,
               trace_distance: float) -> tuple[float, float]:
-    """(S_obs, error) of an equilibrium state: stderr + pruned-mass bound + the shift
-    bound of the state's trace-distance error."""
+    """(S_obs, error) of an equilibrium state: stderr + the method error of an
+    approximate estimator (wide regions) + pruned-mass bound + the shift bound of the
+    state's trace-distance error."""
     res = observational_entropy(state, cg, seed=seed, **options)
-    err = (res.stderr + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
+    err = (res.stderr + res.method_err + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
            + thermo.entropy_shift_bound(trace_distance, res.max_entropy))
     return float(res.entropy), float(err)
 
