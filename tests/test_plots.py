@@ -223,6 +223,8 @@ def test_coarse_graining_titles_in_words():
     assert title("number:r0-32,32-64") == "number of regions 0-31, 32-63"
     assert title("energy:r0-8,8-16,dE0.25") == "energy of regions 0-7, 8-15, bins of 0.25"
     assert title("fine") == "configuration of single sites"
+    assert title("energy:r0-16,16-32,dE1,N64,D16") == \
+        "energy of regions 0-15, 16-31, bins of 1, 64 moments, moment bond 16"
     assert title("number:b2>energy:b4") == "number of blocks of 2, then energy of blocks of 4"
     assert title("my regions") == "my regions"  # a label from the spec, as written
 

@@ -83,7 +83,11 @@ _NOT_PARAMETERS = ("S_obs_disorder_err", "S_obs_sampling_err", "realizations",
 _OBSERVABLE_WORDS = {"number": "number", "energy": "energy", "fine": "configuration",
                      "operator": "operator"}
 _LABEL_PART = re.compile(r"^(?P<obs>number|energy|fine|operator):"
-                         r"(?P<where>b\d+|r\d+-\d+(?:,\d+-\d+)*)(?:,dE(?P<dE>[^,>]+))?$")
+                         r"(?P<where>b\d+|r\d+-\d+(?:,\d+-\d+)*)(?:,dE(?P<dE>[^,>]+))?"
+                         r"(?:,N(?P<N>\d+))?(?:,D(?P<D>\d+))?(?:,sb(?P<sb>\d+))?$")
+#: Words for the resolution parts of a wide-region energy label (spec keys moments,
+#: moment_bond, sub_bins).
+_RESOLUTION_WORDS = {"N": "{} moments", "D": "moment bond {}", "sb": "{} sub-bins"}
 
 
 def _where_words(where: str) -> str:
@@ -97,7 +101,8 @@ def _where_words(where: str) -> str:
 def coarse_graining_title(label: str) -> str:
     """A coarse-graining label in words: ``energy:b4,dE0.5>number:b4`` -> "energy of
     blocks of 4, bins of 0.5, then number"; regions are named by their first and last
-    site ("number of regions 0-31, 32-63"). A label that is not of the form the
+    site ("number of regions 0-31, 32-63"); the resolution of wide energy regions
+    (``,N64,D16``) as "64 moments, moment bond 16". A label that is not of the form the
     coarse-grainings generate (one given in the spec) is returned unchanged."""
     if label == "fine":
         return "configuration of single sites"
@@ -111,6 +116,8 @@ def coarse_graining_title(label: str) -> str:
             text += f" of {_where_words(match['where'])}"
         if match["dE"] is not None:
             text += f", bins of {match['dE']}"
+        text += "".join(f", {_RESOLUTION_WORDS[key].format(match[key])}"
+                        for key in _RESOLUTION_WORDS if match[key] is not None)
         words.append(text if index == 0 else f"then {text}")
         last_where = match["where"]
     return ", ".join(words)
