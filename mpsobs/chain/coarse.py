@@ -116,8 +116,23 @@ class _Stage:
         return f"_Stage({self.name!r}, {len(self.values)} blocks)"
 
 
+class _ChainOfQubits:
+    """The Hilbert space of a chain of ``L`` qubits: its dimension and the largest S_obs."""
+
+    L: int
+
+    @property
+    def dim(self) -> int:
+        return 2**self.L
+
+    @property
+    def max_entropy(self) -> float:
+        """ln dim H = L ln 2."""
+        return self.L * np.log(2.0)
+
+
 @dataclass(frozen=True, eq=False)
-class BlockCoarseGraining:
+class BlockCoarseGraining(_ChainOfQubits):
     """A block coarse-graining of an L-site chain (one observable or a sequence).
 
     Build with :func:`blocks` and :func:`sequence`. ``label`` is a short name for tables.
@@ -131,15 +146,6 @@ class BlockCoarseGraining:
     @property
     def regions(self) -> tuple[tuple[int, int], ...]:
         return tuple((b.start, b.stop) for b in self.blocks)
-
-    @property
-    def dim(self) -> int:
-        return 2**self.L
-
-    @property
-    def max_entropy(self) -> float:
-        """ln dim H = L ln 2."""
-        return self.L * np.log(2.0)
 
     @property
     def projective(self) -> bool:
@@ -184,7 +190,7 @@ class ProjectorCoarseGraining:
 
 
 @dataclass(frozen=True, eq=False)
-class WideEnergyRegions:
+class WideEnergyRegions(_ChainOfQubits):
     """The energies of contiguous regions of which one is wider than MAX_BLOCK_SITES.
 
     No projector is built (2**n for n sites): the coarse-graining carries the chain
@@ -199,15 +205,6 @@ class WideEnergyRegions:
     model: Model
     bin_width: float
     label: str
-
-    @property
-    def dim(self) -> int:
-        return 2**self.L
-
-    @property
-    def max_entropy(self) -> float:
-        """ln dim H = L ln 2."""
-        return self.L * np.log(2.0)
 
     def __repr__(self) -> str:
         return (f"WideEnergyRegions({short(self.label, 60)!r}, L={self.L}, "
