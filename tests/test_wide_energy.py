@@ -231,13 +231,19 @@ def test_entry_point_dispatches_and_refuses_sampling_settings():
         observational_entropy(states.neel(L), cg, prune=1e-9)
 
 
-def test_entry_point_passes_the_resolution_on():
-    # the same numbers through observational_entropy and the estimator itself
+def _hot_and_cold_halves():
+    """Energies of 13 + 3 sites of a tilted-field Ising chain (the 13-site region through
+    the Chebyshev path) and a product state with a hot and a cold half."""
     L = 16
     model = models.ising(L, g=1.05, h=0.25)
     cg = coarse.blocks(L, None, "energy", model=model, bin_width=2.0,
                        regions=[[0, 13], [13, L]])
-    state = states.product_state("1" * 8 + "0" * 8)
+    return cg, states.product_state("1" * 8 + "0" * 8)
+
+
+def test_entry_point_passes_the_resolution_on():
+    # the same numbers through observational_entropy and the estimator itself
+    cg, state = _hot_and_cold_halves()
     via_entry = observational_entropy(state, cg, moments=8, bond=4, sub_bins=2)
     direct = we.wide_energy_entropy(state, cg, moments=8, bond=4, sub_bins=2)
     assert (via_entry.entropy, via_entry.method_err) == (direct.entropy, direct.method_err)
@@ -315,11 +321,7 @@ def test_equilibrium_error_of_wide_regions_includes_the_method_error():
     # bound (0 for an exact state): the rule of mpsobs.pipeline.point
     from mpsobs.pipeline import point
 
-    L = 16
-    model = models.ising(L, g=1.05, h=0.25)
-    cg = coarse.blocks(L, None, "energy", model=model, bin_width=2.0,
-                       regions=[[0, 13], [13, L]])
-    state = states.product_state("1" * 8 + "0" * 8)
+    cg, state = _hot_and_cold_halves()
     options = {"moments": 8, "bond": 4, "sub_bins": 2}
     value, err = point._estimate(state, cg, options, seed=1, trace_distance=0.0)
     res = observational_entropy(state, cg, **options)
