@@ -213,7 +213,7 @@ def _cmd_check(args) -> int:
     from mpsobs.pipeline import cost
     from mpsobs.pipeline.sweep import plural
 
-    spec = workflow.check(args.spec)
+    spec, costs = workflow.check_with_costs(args.spec)
     axes = ", ".join(" x ".join(group) if len(group) == 1 else "zip(" + ", ".join(group) + ")"
                      for group in spec.axes) or "none"
     print(f"{spec.name}: {plural(len(spec.points), 'point')} (axes: {axes}); run directory "
@@ -226,7 +226,7 @@ def _cmd_check(args) -> int:
         print(f"  {point.index:4d}  {point.point_id}  {point.label}")
     print("estimated cost (one core; bonds grown to the cap, see mpsobs.pipeline.cost; "
           "a factor 3 either way):")
-    for line in cost.format_costs(workflow.costs(spec)):
+    for line in cost.format_costs(costs):
         print(f"  {line}")
     return 0
 

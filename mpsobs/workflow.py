@@ -24,8 +24,8 @@ from mpsobs.pipeline import build, columns, cost, store, sweep
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline import spec as specs
 
-__all__ = ["RunOutcome", "run", "check", "costs", "plot", "scale", "scale_files", "reference",
-           "REFERENCES", "refresh_references"]
+__all__ = ["RunOutcome", "run", "check", "costs", "check_with_costs", "plot", "scale",
+           "scale_files", "reference", "REFERENCES", "refresh_references"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
@@ -53,6 +53,16 @@ def costs(spec: specs.RunSpec) -> list[cost.PointCost]:
     """The estimated core-hours and peak memory of every point of a checked spec
     (:mod:`mpsobs.pipeline.cost`; nothing is evolved)."""
     return [cost.point_cost(point) for point in spec.points]
+
+
+def check_with_costs(spec_path: str | os.PathLike | None
+                     ) -> tuple[specs.RunSpec, list[cost.PointCost]]:
+    """:func:`check` and :func:`costs` with each point built once (building the
+    coarse-grainings of large energy blocks is the expensive part of both)."""
+    spec = specs.load(spec_path)
+    built = points.check_points(spec.points)
+    return spec, [cost.point_cost(point, made)
+                  for point, made in zip(spec.points, built, strict=True)]
 
 
 def run(spec_path: str | os.PathLike | None, out: str | os.PathLike | None = None, *,

@@ -121,3 +121,15 @@ def test_wide_energy_regions_are_costed():
     coarser, _ = cost.estimator_work(three, 48, 32, "auto", 0,
                                      options={"moments": 32, "bond": 16})
     assert 0 < coarser.flops < large.flops
+
+
+def test_check_with_costs_builds_each_point_once(monkeypatch):
+    from mpsobs import workflow
+
+    def unused(*args, **kwargs):
+        raise AssertionError("the cost built a point the check had built already")
+
+    monkeypatch.setattr(cost, "build_point", unused)
+    spec, costs = workflow.check_with_costs(None)
+    assert [c.point_id for c in costs] == [p.point_id for p in spec.points]
+    assert all(c.seconds > 0 for c in costs)

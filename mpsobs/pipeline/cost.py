@@ -66,7 +66,7 @@ from mpsobs.core.printing import number
 from mpsobs.estimators import estimate, wide_energy
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock
 from mpsobs.pipeline import point as points
-from mpsobs.pipeline.build import build_point
+from mpsobs.pipeline.build import BuiltPoint, build_point
 from mpsobs.pipeline.spec_points import Point
 from mpsobs.references import gaussian
 
@@ -326,13 +326,15 @@ def _time_series(L: int, cap: int, times: np.ndarray, dt: float, order: int,
     return evolution, estimators
 
 
-def point_cost(point: Point) -> PointCost:
-    """The estimated work and peak memory of one point (module docstring)."""
+def point_cost(point: Point, built: BuiltPoint | None = None) -> PointCost:
+    """The estimated work and peak memory of one point (module docstring); ``built``:
+    its objects when already made (:func:`mpsobs.pipeline.point.check_point`), else
+    they are built here."""
     p = point.params
     evo, est = p["evolution"], p["estimator"]
     L = int(p["model"]["L"])
     times = np.asarray(p["times"]["values"], dtype=float)
-    built = build_point(point, cheap_only=True)
+    built = built or build_point(point, cheap_only=True)
     model = built.model
     cap, check_cap = int(evo["chi_max"]), int(evo.get("chi_check") or 0)
     samples = int(est["samples"] or estimate.DEFAULT_SAMPLES)

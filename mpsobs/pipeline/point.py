@@ -74,6 +74,7 @@ from mpsobs.mps.tensors import MPS
 from mpsobs.pipeline import columns as col
 from mpsobs.pipeline.build import (
     BuiltCoarse,
+    BuiltPoint,
     build_point,
     equilibrium_seed,
     estimator_seed,
@@ -213,22 +214,25 @@ def _resumable(resume: tuple[list[list[np.ndarray]], dict] | None, point: Point,
             and 0 < done <= len(times) and times[done - 1] == meta.get("t"))
 
 
-def check_point(point: Point) -> None:
+def check_point(point: Point) -> BuiltPoint:
     """Raise every InputError that :func:`compute_point` would raise from the point's
     parameters, without its expensive part: :func:`mpsobs.pipeline.build.build_point`
-    with ``cheap_only`` (no DMRG, no time step; see there for the cost)."""
-    build_point(point, cheap_only=True)
+    with ``cheap_only`` (no DMRG, no time step; see there for the cost). Returns the
+    objects built, for whatever else needs them (the cost estimate)."""
+    return build_point(point, cheap_only=True)
 
 
-def check_points(points: Sequence[Point]) -> None:
+def check_points(points: Sequence[Point]) -> list[BuiltPoint]:
     """:func:`check_point` for every point; the error keeps its key path first and names
     the point after it (``coarse[0].block: point 1 (model.L=52): ...``)."""
+    built = []
     for point in points:
         try:
-            check_point(point)
+            built.append(check_point(point))
         except InputError as exc:
             path, _, rest = str(exc).partition(": ")
             raise InputError(f"{path}: point {point.index} ({point.label}): {rest}") from None
+    return built
 
 
 def _paired_options(main: EntropyResult, estimator: dict) -> dict:
