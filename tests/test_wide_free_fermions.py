@@ -142,11 +142,11 @@ def test_reference_matches_dense_diagonalisation_of_a_quench():
     assert ref.bound < 1e-6 and ref.edge_mass < 1e-6
     assert abs(ref.entropy - exact) <= ref.bound + 1e-10, (ref, exact)
     assert abs(ref.entropy - exact) <= ref.error + 1e-10, (ref, exact)
-    got = {(a, b): ref.probabilities[i, j] for i, a in enumerate(ref.bins_a)
-           for j, b in enumerate(ref.bins_b)}
+    got = {(a, b): ref.probabilities[i, j] for i, a in enumerate(ref.bins[0])
+           for j, b in enumerate(ref.bins[1])}
     l1 = sum(abs(got.get(key, 0.0) - p_exact.get(key, 0.0)) for key in got.keys() | p_exact)
     assert l1 <= ref.edge_mass + 2 * ref.leaked_mass + 1e-10
-    np.testing.assert_array_equal(ref.counts_a, [counts[0].get(b, 0) for b in ref.bins_a])
+    np.testing.assert_array_equal(ref.counts[0], [counts[0].get(b, 0) for b in ref.bins[0]])
 
 
 def test_chebyshev_method_against_the_free_fermion_reference():
@@ -180,9 +180,12 @@ def test_reference_refuses_what_it_cannot_do():
         fr.free_region_energy_entropy(corr[:6, :6], cg)
     with pytest.raises(InputError, match="^smoothing:"):
         fr.free_region_energy_entropy(corr, cg, smoothing=0.0)
-    with pytest.raises(InputError, match="^regions:"):
-        fr.free_region_energy_entropy(corr, coarse.WideEnergyRegions(
-            L, ((0, 3), (3, 5), (5, L)), cg.model, 1.0, "test"))
+    for regions in (((0, L),), ((0, 2), (2, 4), (4, 6), (6, L))):   # one or four regions
+        with pytest.raises(InputError, match="^regions:"):
+            fr.free_region_energy_entropy(corr, coarse.WideEnergyRegions(
+                L, regions, cg.model, 1.0, "test"))
+    with pytest.raises(InputError, match="^angles:"):
+        fr.characteristic_function(corr, cg, [0.0], [0.0], [0.0])
     wide = 2 * (fr.MAX_MODES + 1)
     with pytest.raises(InputError, match="^regions:"):
         fr.free_region_energy_entropy(

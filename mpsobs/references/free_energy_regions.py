@@ -71,6 +71,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg as sla
 
 from mpsobs.chain.coarse import WideEnergyRegions
 from mpsobs.core.errors import InputError, finite_number
@@ -94,8 +95,8 @@ PROBABILITY_FLOOR = 1e-14
 #: Largest condition number of the A block for which chi goes through its Schur
 #: complement (n_B x n_B determinants); beyond, the full determinant.
 SCHUR_CONDITION = 1e8
-#: Grid points of s_B handled in one batch of determinants.
-_BATCH = 512
+#: Matrix entries of one batch of determinants (32 MB of complex numbers).
+_CHUNK_ENTRIES = 2**21
 
 
 def _subset_sums(energies: np.ndarray) -> np.ndarray:
@@ -144,33 +145,35 @@ def level_counts(energies, offset: float, bin_width: float) -> tuple[np.ndarray,
 
 
 def region_hamiltonians(cg: WideEnergyRegions) -> tuple[QuadraticHamiltonian, ...]:
-    """The quadratic forms of H_A and H_B (region's own site order, offsets E_R)."""
+    """The quadratic forms of the regions' H_R (region's own site order, offsets E_R),
+    in the order of ``cg.regions``."""
     return tuple(quadratic_hamiltonian(cg.model.restricted(x, y)) for x, y in cg.regions)
 
 
 def _mode_correlation(corr: np.ndarray, cg: WideEnergyRegions,
                       hams: tuple[QuadraticHamiltonian, ...]) -> np.ndarray:
-    """W^dagger C_RR^T W: C^T on the sites of the regions, in the regions' modes."""
+    """W^dagger C_RR^T W: C^T on the sites of the regions, in the regions' modes
+    (W = the block-diagonal matrix of the regions' mode vectors)."""
     sites = np.concatenate([np.arange(x, y) for x, y in cg.regions])
-    n_a = hams[0].L
-    w = np.zeros((len(sites), len(sites)), dtype=complex)
-    w[:n_a, :n_a] = hams[0].modes
-    w[n_a:, n_a:] = hams[1].modes
+    w = sla.block_diag(*(h.modes for h in hams))
     return w.conj().T @ corr[np.ix_(sites, sites)].T @ w
 
 
-def characteristic_function(corr, cg: WideEnergyRegions, s_a, s_b) -> np.ndarray:
-    """chi(s_A, s_B) = <exp(i s_A H_A + i s_B H_B)> of the Gaussian state with
-    correlation matrix ``corr`` (C_ij = <c_i^dagger c_j>), on the grid ``s_a`` x ``s_b``
-    (module docstring). Returns a (len(s_a), len(s_b)) complex array. Cost about
-    len(s_a) len(s_b) n_B^3 / 3 flops."""
+def characteristic_function(corr, cg: WideEnergyRegions, *angles) -> np.ndarray:
+    """chi(s_1, .., s_m) = <exp(i sum_R s_R H_R)> of the Gaussian state with correlation
+    matrix ``corr`` (C_ij = <c_i^dagger c_j>) on the grid ``angles[0]`` x .. x
+    ``angles[m-1]``, one 1-d array of angles s_R per region of ``cg`` in its order
+    (module docstring). Returns a complex array of shape (len(s_1), .., len(s_m)). Cost
+    about prod_R len(s_R) n_m^3 / 3 flops (n_m the sites of the last region)."""
     c = _check_corr(corr)
     if c.shape[0] != cg.L:
         raise InputError(f"corr: shape {c.shape} does not match the chain (L = {cg.L})")
+    if len(angles) != len(cg.regions):
+        raise InputError(f"angles: expected one array of angles per region "
+                         f"({len(cg.regions)}), got {len(angles)}")
     hams = region_hamiltonians(cg)
-    return _characteristic(_mode_correlation(c, cg, hams), hams,
-                           np.atleast_1d(np.asarray(s_a, dtype=float)),
-                           np.atleast_1d(np.asarray(s_b, dtype=float)))
+    axes = [np.atleast_1d(np.asarray(s, dtype=float)) for s in angles]
+    return np.stack(list(_characteristic_rows(_mode_correlation(c, cg, hams), hams, axes)))
 
 
 def _determinants(blocks: np.ndarray) -> np.ndarray:
@@ -178,34 +181,66 @@ def _determinants(blocks: np.ndarray) -> np.ndarray:
     return sign * np.exp(logdet)
 
 
-def _characteristic(g: np.ndarray, hams: tuple[QuadraticHamiltonian, ...],
-                    s_a: np.ndarray, s_b: np.ndarray) -> np.ndarray:
-    """det(1 + Delta g), Delta = diag(e^{i s_A e_A} - 1, e^{i s_B e_B} - 1), for every
-    (s_A, s_B): per s_A the Schur complement of the A block (one solve), then a batch of
-    n_B x n_B determinants over s_B; rows whose A block has a condition number above
-    SCHUR_CONDITION use the full (n_A + n_B) determinants instead."""
-    n_a = hams[0].L
-    g_aa, g_ab, g_ba, g_bb = g[:n_a, :n_a], g[:n_a, n_a:], g[n_a:, :n_a], g[n_a:, n_a:]
-    eye = np.eye(g.shape[0])
-    out = np.empty((len(s_a), len(s_b)), dtype=complex)
-    phase_b = np.exp(1j * np.outer(s_b, hams[1].energies)) - 1.0   # (len(s_b), n_B)
-    for i, sa in enumerate(s_a):
-        da = np.exp(1j * sa * hams[0].energies) - 1.0
-        block = eye[:n_a, :n_a] + da[:, None] * g_aa
-        schur = None
-        if np.linalg.cond(block) <= SCHUR_CONDITION:
-            schur = g_bb - g_ba @ np.linalg.solve(block, da[:, None] * g_ab)
-            det_a = np.linalg.det(block)
-        for start in range(0, len(s_b), _BATCH):
-            pb = phase_b[start:start + _BATCH]
-            if schur is not None:
-                dets = det_a * _determinants(eye[n_a:, n_a:] + pb[:, :, None] * schur)
-            else:
-                scale = np.concatenate([np.broadcast_to(da, (len(pb), n_a)), pb], axis=1)
-                dets = _determinants(eye + scale[:, :, None] * g)
-            out[i, start:start + _BATCH] = dets
-    offsets = np.exp(1j * (np.outer(s_a, [hams[0].offset]) + np.outer([hams[1].offset], s_b)))
-    return out * offsets
+def _product_phases(phases: list[np.ndarray]) -> np.ndarray:
+    """The diagonals of Delta on the product grid of the regions' angles: rows in C order
+    (first region slowest), columns the modes of all regions."""
+    rows = np.zeros((1, 0), dtype=complex)
+    for d in phases:
+        rows = np.concatenate([np.repeat(rows, len(d), axis=0),
+                               np.tile(d, (len(rows), 1))], axis=1)
+    return rows
+
+
+def _dets(g: np.ndarray, phases: list[np.ndarray]) -> np.ndarray:
+    """det(1 + Delta g_b) for a stack g (B, n, n) and Delta = diag(d_1, .., d_m) on the
+    product grid of the rows of ``phases`` (d_k = phases[k][i], shape (K_k, n_k), the
+    modes of region k; n = sum n_k). Returns (B, K_1, .., K_m).
+
+    With more than one region left: the Schur complement of the first region's block,
+    det(1 + Delta g) = det(1 + d_1 g_11) det(1 + Delta' S),
+    S = g_rr - g_r1 (1 + d_1 g_11)^-1 d_1 g_1r, for all (b, i) at once, then the rest by
+    recursion; entries whose block has a condition number above SCHUR_CONDITION take
+    the full determinants on the remaining grid instead."""
+    first, rest = phases[0], phases[1:]
+    n1 = first.shape[1]
+    if not rest:
+        pairs = len(g) * len(first)
+        chunk = max(1, _CHUNK_ENTRIES // (n1 * n1))
+        out = np.empty(pairs, dtype=complex)
+        for k in range(0, pairs, chunk):
+            b, i = np.divmod(np.arange(k, min(k + chunk, pairs)), len(first))
+            out[k:k + chunk] = _determinants(np.eye(n1) + first[i, :, None] * g[b])
+        return out.reshape(len(g), len(first))
+    blocks = (np.eye(n1) + first[None, :, :, None] * g[:, None, :n1, :n1]).reshape(-1, n1, n1)
+    shape = (len(g), len(first), *(len(d) for d in rest))
+    out = np.empty((len(blocks), *shape[2:]), dtype=complex)
+    good = np.linalg.cond(blocks) <= SCHUR_CONDITION
+    if good.any():
+        b_idx, i_idx = np.divmod(np.flatnonzero(good), len(first))
+        right = first[i_idx, :, None] * g[b_idx, :n1, n1:]
+        schur = g[b_idx, n1:, n1:] - g[b_idx, n1:, :n1] @ np.linalg.solve(blocks[good], right)
+        det_first = _determinants(blocks[good]).reshape(-1, *[1] * len(rest))
+        out[good] = det_first * _dets(schur, rest)
+    for j in np.flatnonzero(~good):
+        b, i = divmod(int(j), len(first))
+        full = _dets(g[b:b + 1], [_product_phases([first[i:i + 1], *rest])])
+        out[j] = full.reshape(shape[2:])
+    return out.reshape(shape)
+
+
+def _characteristic_rows(g: np.ndarray, hams: tuple[QuadraticHamiltonian, ...],
+                         axes: list[np.ndarray]):
+    """Yield chi(s_1, ., .., .) for each angle s_1 of the first region in turn: det(1 +
+    Delta g) times the offsets' phase, Delta = diag(e^{i s_R e_R} - 1) (:func:`_dets`),
+    an array of shape (len(s_2), .., len(s_m))."""
+    phases = [np.exp(1j * np.outer(s, h.energies)) - 1.0 for s, h in zip(axes, hams,
+                                                                          strict=True)]
+    offset = np.ones((), dtype=complex)
+    for s, h in zip(axes[1:], hams[1:], strict=True):
+        offset = np.multiply.outer(offset, np.exp(1j * s * h.offset))
+    for s1, d1 in zip(axes[0], phases[0], strict=True):
+        row = _dets(g[None], [d1[None], *phases[1:]])[0, 0]
+        yield row * offset * np.exp(1j * s1 * hams[0].offset)
 
 
 @dataclass(frozen=True)
@@ -214,7 +249,12 @@ class _Grid:
 
     bins: np.ndarray
     step: float
-    points: int   # s_k = k step, k = 0 .. points - 1 (region A) or -(points-1) .. (B)
+    points: int   # s_k = k step, k = 0 .. points - 1 (first region) or -(points-1) .. (others)
+
+    def angles(self, first: bool) -> np.ndarray:
+        """The angles s_k: k >= 0 for the first region (chi(-s) = conj chi(s) stands for
+        the rest), both signs for the others (s = 0 at index points - 1)."""
+        return np.arange(0 if first else -self.points + 1, self.points) * self.step
 
 
 def _grid(ham: QuadraticHamiltonian, bins: np.ndarray, bin_width: float,
@@ -235,11 +275,13 @@ def _bin_transforms(grid: _Grid, s: np.ndarray, bin_width: float) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False)
 class RegionEnergyReference:
-    """Exact (up to ``error``) S_obs of the energies of two regions of a Gaussian state.
+    """Exact (up to ``error``) S_obs of the energies of two or three regions of a Gaussian
+    state.
 
-    ``probabilities[i, j]`` is p(bins_a[i], bins_b[j]) at smoothing width ``smoothing``
-    (clipped at 0, bins without levels set to 0, renormalised); ``counts_a`` and
-    ``counts_b`` the exact numbers of levels per bin (Omega_A, Omega_B).
+    ``bins[k]`` and ``counts[k]`` are the bins of region k (in the order of the regions)
+    and the exact numbers of its levels per bin (Omega_k); ``probabilities[i, j(, l)]``
+    is p(bins[0][i], bins[1][j](, bins[2][l])) at smoothing width ``smoothing``
+    (clipped at 0, bins without levels set to 0, renormalised).
     ``smoothing_err`` = |S_obs(sigma) - S_obs(2 sigma)|, ``leaked_mass`` the probability
     the smoothing put into bins without levels, ``error`` = smoothing_err + the entropy
     bound of the leaked mass (:func:`mpsobs.estimators.estimate.pruned_entropy_bound`):
@@ -256,16 +298,14 @@ class RegionEnergyReference:
     leaked_mass: float
     total_defect: float
     smoothing: float
-    bins_a: np.ndarray
-    bins_b: np.ndarray
-    counts_a: np.ndarray
-    counts_b: np.ndarray
+    bins: tuple[np.ndarray, ...]
+    counts: tuple[np.ndarray, ...]
     probabilities: np.ndarray
 
     def __repr__(self) -> str:
+        shape = " x ".join(str(len(b)) for b in self.bins)
         return (f"RegionEnergyReference(S_obs={self.entropy:.6f} +- {self.error:.2g} "
-                f"(bound {self.bound:.2g}), "
-                f"{len(self.bins_a)} x {len(self.bins_b)} bins, sigma={self.smoothing:.3g}, "
+                f"(bound {self.bound:.2g}), {shape} bins, sigma={self.smoothing:.3g}, "
                 f"leaked {self.leaked_mass:.2g})")
 
 
@@ -305,13 +345,13 @@ def _entropy(p: np.ndarray, log_v: np.ndarray) -> tuple[float, float, np.ndarray
 
 def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
                                smoothing: float | None = None) -> RegionEnergyReference:
-    """S_obs of the energies of the two regions of ``cg`` in the Gaussian state with
-    correlation matrix ``corr`` (C_ij = <c_i^dagger c_j>, site 0 first; e.g. from
+    """S_obs of the energies of the two or three regions of ``cg`` in the Gaussian state
+    with correlation matrix ``corr`` (C_ij = <c_i^dagger c_j>, site 0 first; e.g. from
     :func:`mpsobs.gaussian.evolve_correlation`), for an XX chain ``cg.model``.
 
     ``smoothing``: width sigma of the Gaussian that smooths the bin edges (default
-    DEFAULT_SMOOTHING bin widths); the cost grows like sigma^-2. Regions of at most
-    MAX_MODES sites. See the module docstring for the method, errors and cost.
+    DEFAULT_SMOOTHING bin widths); the cost grows like sigma^-m for m regions. Regions of
+    at most MAX_MODES sites. See the module docstring for the method, errors and cost.
     """
     if not isinstance(cg, WideEnergyRegions):
         raise InputError(f"coarse_graining: expected wide energy regions from "
@@ -319,9 +359,9 @@ def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
     c = _check_corr(corr)
     if c.shape[0] != cg.L:
         raise InputError(f"corr: shape {c.shape} does not match the chain (L = {cg.L})")
-    if len(cg.regions) != 2:
-        raise InputError(f"regions: the free-fermion reference handles two regions, got "
-                         f"{len(cg.regions)}")
+    if len(cg.regions) not in (2, 3):
+        raise InputError(f"regions: the free-fermion reference handles two or three regions, "
+                         f"got {len(cg.regions)}")
     width = cg.bin_width
     sigma = DEFAULT_SMOOTHING * width if smoothing is None else finite_number(smoothing,
                                                                              "smoothing")
@@ -333,30 +373,41 @@ def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
     hams = region_hamiltonians(cg)
     counts = [level_counts(h.energies, h.offset, width) for h in hams]
     grids = [_grid(h, bins, width, sigma) for h, (bins, _) in zip(hams, counts, strict=True)]
-    s_a = np.arange(grids[0].points) * grids[0].step
-    s_b = np.arange(-grids[1].points + 1, grids[1].points) * grids[1].step
-    chi = _characteristic(_mode_correlation(c, cg, hams), hams, s_a, s_b)
-    # chi(-s) = conj chi(s): the rows s_A > 0 stand for their mirror images too.
-    chi[1:] *= 2.0
-    fa = _bin_transforms(grids[0], s_a, width)
-    fb = _bin_transforms(grids[1], s_b, width)
-    edge_mass = (_edge_mass(chi[:, grids[1].points - 1], s_a, grids[0], width, sigma)
-                 + _edge_mass(chi[0], s_b, grids[1], width, sigma))
+    axes = [grid.angles(first=k == 0) for k, grid in enumerate(grids)]
+    transforms = [_bin_transforms(grid, s, width) for grid, s in zip(grids, axes, strict=True)]
+    widths = (sigma, 2 * sigma)
+    windows = [[f * np.exp(-(w * s) ** 2 / 2) for f, s in zip(transforms, axes, strict=True)]
+               for w in widths]
+    sums = [np.zeros(tuple(len(b) for b, _ in counts), dtype=complex) for _ in widths]
+    centre = tuple(grid.points - 1 for grid in grids[1:])   # s = 0 on the other axes
+    first_line, other_lines = [], []
+    rows = _characteristic_rows(_mode_correlation(c, cg, hams), hams, axes)
+    for i, row in enumerate(rows):
+        # chi(-s) = conj chi(s): the rows s_1 > 0 stand for their mirror images too.
+        weight = 1.0 if i == 0 else 2.0
+        first_line.append(weight * row[centre])
+        if i == 0:
+            other_lines = [row[centre[:k] + (slice(None),) + centre[k + 1:]]
+                           for k in range(len(centre))]
+        for total, window in zip(sums, windows, strict=True):
+            inner = row
+            for w in window[1:]:
+                inner = np.tensordot(inner, w, axes=(0, 1))
+            total += weight * np.multiply.outer(window[0][:, i], inner)
+    edge_mass = sum(_edge_mass(np.asarray(line), s, grid, width, sigma)
+                    for line, s, grid in zip([first_line, *other_lines], axes, grids,
+                                             strict=True))
+    log_v = np.zeros(())
     with np.errstate(divide="ignore"):
-        log_v = np.log(counts[0][1].astype(float))[:, None] + np.log(counts[1][1])[None, :]
-
-    def smoothed(width_sigma: float) -> np.ndarray:
-        wa = fa * np.exp(-(width_sigma * s_a) ** 2 / 2)
-        wb = fb * np.exp(-(width_sigma * s_b) ** 2 / 2)
-        return (wa @ chi @ wb.T).real
-
-    p = smoothed(sigma)
+        for _, cnt in counts:
+            log_v = np.add.outer(log_v, np.log(cnt.astype(float)))
+    p, p_coarse = (total.real for total in sums)
     defect = float(p.sum() - 1.0)
     entropy, leaked, kept = _entropy(p, log_v)
-    coarse_entropy, _, _ = _entropy(smoothed(2 * sigma), log_v)
+    coarse_entropy, _, _ = _entropy(p_coarse, log_v)
     smoothing_err = abs(entropy - coarse_entropy)
     error = smoothing_err + pruned_entropy_bound(leaked, cg.max_entropy)
     bound = _continuity_bound(edge_mass / 2 + leaked, log_v)
     return RegionEnergyReference(entropy, error, bound, edge_mass, smoothing_err, leaked,
-                                 defect, sigma,
-                                 counts[0][0], counts[1][0], counts[0][1], counts[1][1], kept)
+                                 defect, sigma, tuple(b for b, _ in counts),
+                                 tuple(n for _, n in counts), kept)
