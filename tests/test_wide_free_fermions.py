@@ -43,19 +43,28 @@ def _annihilators(L):
     return out
 
 
-def _dense_regions(psi, model, cut, width):
-    """Exact p(b_A, b_B) (dict), the level counts and the eigenvalues of H_A and H_B."""
-    L = model.L
-    va, ua = np.linalg.eigh(model.block_hamiltonian(0, cut))
-    vb, ub = np.linalg.eigh(model.block_hamiltonian(cut, L))
-    amp = ua.conj().T @ psi.reshape(2**cut, 2 ** (L - cut)) @ ub.conj()
-    ka, kb = np.floor(va / width).astype(int), np.floor(vb / width).astype(int)
+def _dense_regions(psi, model, regions, width):
+    """Exact p(b_1, .., b_m) (dict keyed by bin tuples), the level counts (one dict per
+    region) and the eigenvalues of each H_R, from the eigenbases of the dense H_R."""
+    amp = psi.reshape([2 ** (y - x) for x, y in regions])
+    levels, bins = [], []
+    for axis, (x, y) in enumerate(regions):
+        v, u = np.linalg.eigh(model.block_hamiltonian(x, y))
+        amp = np.moveaxis(np.tensordot(u.conj(), amp, axes=(0, axis)), 0, axis)
+        levels.append(v)
+        bins.append(np.floor(v / width).astype(int))
     p = {}
-    for i, a in enumerate(ka):
-        for j, b in enumerate(kb):
-            p[a, b] = p.get((a, b), 0.0) + abs(amp[i, j]) ** 2
-    counts = ({a: np.sum(ka == a) for a in ka}, {b: np.sum(kb == b) for b in kb})
-    return p, counts, (va, vb)
+    for index, weight in np.ndenumerate(np.abs(amp) ** 2):
+        key = tuple(int(k[i]) for k, i in zip(bins, index, strict=True))
+        p[key] = p.get(key, 0.0) + weight
+    counts = [{int(a): int(np.sum(k == a)) for a in k} for k in bins]
+    return p, counts, levels
+
+
+def _dense_entropy(p, counts):
+    """-sum p ln(p / V), V the product of the regions' level counts."""
+    return -sum(q * np.log(q / np.prod([c[k] for c, k in zip(counts, key, strict=True)]))
+                for key, q in p.items() if q > 1e-15)
 
 
 @pytest.mark.parametrize("n", [2, 5, 12])
@@ -89,12 +98,19 @@ def test_level_counts_of_many_modes_against_enumeration():
         fr.level_counts(e[:4], 0.0, 0.0)
 
 
-def test_characteristic_function_of_a_complex_gaussian_state_matches_dense():
+#: Angles of the characteristic-function checks, one array per region.
+ANGLES = (np.array([0.0, 0.3, 1.7, -4.1]), np.array([-0.4, 0.0, 2.2]), np.array([0.9, -2.5]))
+
+
+@pytest.mark.parametrize("regions", [((0, 3), (3, 6)), ((0, 2), (2, 6)),
+                                     ((0, 2), (2, 4), (4, 6)), ((0, 2), (2, 5), (5, 7))],
+                         ids=["two", "two-unequal", "three", "three-unequal"])
+def test_characteristic_function_of_a_complex_gaussian_state_matches_dense(regions):
     # psi = exp(-i sum c_i^dagger K_ij c_j) |Neel> with a random complex Hermitian K is
-    # Gaussian and not real; C and chi from the dense state and the dense H_A, H_B
-    L, cut = 6, 3
+    # Gaussian and not real; C and chi from the dense state and the dense H_R
+    L = regions[-1][1]
     model = _xx(L, seed=2)
-    cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, 1.0, "test")
+    cg = coarse.WideEnergyRegions(L, regions, model, 1.0, "test")
     c_ops = _annihilators(L)
     rng = np.random.default_rng(1)
     k = rng.normal(size=(L, L)) + 1j * rng.normal(size=(L, L))
@@ -102,51 +118,65 @@ def test_characteristic_function_of_a_complex_gaussian_state_matches_dense():
     q = sum(k[i, j] * c_ops[i].conj().T @ c_ops[j] for i in range(L) for j in range(L))
     psi = sla.expm(-1j * q) @ to_dense(states.neel(L))
     corr = np.array([[psi.conj() @ ci.conj().T @ cj @ psi for cj in c_ops] for ci in c_ops])
-    s_a, s_b = np.array([0.0, 0.3, 1.7, -4.1]), np.array([-0.4, 0.0, 2.2])
-    ha, hb = model.block_hamiltonian(0, cut), model.block_hamiltonian(cut, L)
-    want = np.array([[psi.conj() @ np.kron(sla.expm(1j * sa * ha), sla.expm(1j * sb * hb))
-                      @ psi for sb in s_b] for sa in s_a])
-    np.testing.assert_allclose(fr.characteristic_function(corr, cg, s_a, s_b), want,
+    angles = ANGLES[:len(regions)]
+    hams = [model.block_hamiltonian(x, y) for x, y in regions]
+    want = np.empty([len(s) for s in angles], dtype=complex)
+    for index in np.ndindex(want.shape):
+        u = np.eye(1)
+        for h, s, i in zip(hams, angles, index, strict=True):
+            u = np.kron(u, sla.expm(1j * s[i] * h))
+        want[index] = psi.conj() @ u @ psi
+    np.testing.assert_allclose(fr.characteristic_function(corr, cg, *angles), want,
                                atol=1e-12)
 
 
-def test_schur_route_and_full_determinants_agree(monkeypatch):
-    L, cut = 12, 5
+@pytest.mark.parametrize("regions", [((0, 5), (5, 12)), ((0, 4), (4, 7), (7, 12))],
+                         ids=["two", "three"])
+def test_schur_route_and_full_determinants_agree(monkeypatch, regions):
+    L = 12
     model = _xx(L, seed=4)
-    cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, 1.0, "test")
+    cg = coarse.WideEnergyRegions(L, regions, model, 1.0, "test")
     corr = ga.evolve_correlation(ga.quadratic_hamiltonian(model),
                                  ga.correlation_matrix(states.neel(L)), 0.7)
-    s_a, s_b = np.linspace(0.0, 30.0, 7), np.linspace(-25.0, 25.0, 9)
-    schur = fr.characteristic_function(corr, cg, s_a, s_b)
+    angles = (np.linspace(0.0, 30.0, 7), np.linspace(-25.0, 25.0, 9),
+              np.linspace(-20.0, 20.0, 5))[:len(regions)]
+    schur = fr.characteristic_function(corr, cg, *angles)
     monkeypatch.setattr(fr, "SCHUR_CONDITION", 0.0)
-    np.testing.assert_allclose(schur, fr.characteristic_function(corr, cg, s_a, s_b),
+    np.testing.assert_allclose(schur, fr.characteristic_function(corr, cg, *angles),
                                atol=1e-12)
 
 
-def test_reference_matches_dense_diagonalisation_of_a_quench():
+@pytest.mark.parametrize("L, regions, width, seed, smoothing, gap", [
+    (10, ((0, 5), (5, 10)), 2.0, 0, 0.02, 0.1),
+    (8, ((0, 3), (3, 5), (5, 8)), 1.5, 25, 0.03, 0.18)], ids=["two", "three"])
+def test_reference_matches_dense_diagonalisation_of_a_quench(L, regions, width, seed,
+                                                             smoothing, gap):
     # XX chain, Neel quench, exact evolution of C; exact p and S_obs from the dense state.
-    # The fields (seed 0) and bin width keep every level of H_A and H_B at least 0.1 from
-    # a bin edge (asserted), so the rigorous smoothing bound at sigma = 0.02 is tiny.
-    L, cut, width, t = 10, 5, 2.0, 1.3
-    model = _xx(L, seed=0)
-    cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, width, "test")
+    # The fields (seed) and bin width keep every level of each H_R at least ``gap`` from
+    # a bin edge (asserted), so the rigorous smoothing bound at sigma = ``smoothing`` (gap
+    # over more than 5) is tiny. The probabilities come from the characteristic function
+    # by Klich's trace formula (I. Klich, arXiv:cond-mat/0209642 (2003)).
+    t = 1.3
+    model = _xx(L, seed=seed)
+    cg = coarse.WideEnergyRegions(L, regions, model, width, "test")
     psi = sla.expm(-1j * t * model.dense_hamiltonian()) @ to_dense(states.neel(L))
-    p_exact, counts, levels = _dense_regions(psi, model, cut, width)
+    p_exact, counts, levels = _dense_regions(psi, model, regions, width)
     for v in levels:
-        assert np.min(np.abs(v - width * np.round(v / width))) > 0.1
+        assert np.min(np.abs(v - width * np.round(v / width))) > gap
     corr = ga.evolve_correlation(ga.quadratic_hamiltonian(model),
                                  ga.correlation_matrix(states.neel(L)), t)
-    ref = fr.free_region_energy_entropy(corr, cg, smoothing=0.02)
-    exact = -sum(p * np.log(p / (counts[0][a] * counts[1][b]))
-                 for (a, b), p in p_exact.items() if p > 1e-15)
+    ref = fr.free_region_energy_entropy(corr, cg, smoothing=smoothing)
+    exact = _dense_entropy(p_exact, counts)
     assert ref.bound < 1e-6 and ref.edge_mass < 1e-6
     assert abs(ref.entropy - exact) <= ref.bound + 1e-10, (ref, exact)
     assert abs(ref.entropy - exact) <= ref.error + 1e-10, (ref, exact)
-    got = {(a, b): ref.probabilities[i, j] for i, a in enumerate(ref.bins[0])
-           for j, b in enumerate(ref.bins[1])}
+    got = {tuple(int(b[i]) for b, i in zip(ref.bins, index, strict=True)): q
+           for index, q in np.ndenumerate(ref.probabilities)}
     l1 = sum(abs(got.get(key, 0.0) - p_exact.get(key, 0.0)) for key in got.keys() | p_exact)
     assert l1 <= ref.edge_mass + 2 * ref.leaked_mass + 1e-10
-    np.testing.assert_array_equal(ref.counts[0], [counts[0].get(b, 0) for b in ref.bins[0]])
+    for region, c in enumerate(counts):
+        np.testing.assert_array_equal(ref.counts[region],
+                                      [c.get(b, 0) for b in ref.bins[region]])
 
 
 def test_chebyshev_method_against_the_free_fermion_reference():

@@ -150,13 +150,26 @@ def region_hamiltonians(cg: WideEnergyRegions) -> tuple[QuadraticHamiltonian, ..
     return tuple(quadratic_hamiltonian(cg.model.restricted(x, y)) for x, y in cg.regions)
 
 
-def _mode_correlation(corr: np.ndarray, cg: WideEnergyRegions,
-                      hams: tuple[QuadraticHamiltonian, ...]) -> np.ndarray:
-    """W^dagger C_RR^T W: C^T on the sites of the regions, in the regions' modes
-    (W = the block-diagonal matrix of the regions' mode vectors)."""
-    sites = np.concatenate([np.arange(x, y) for x, y in cg.regions])
+def _mode_correlation(corr: np.ndarray, regions, hams) -> np.ndarray:
+    """W^dagger C_RR^T W: C^T on the sites of ``regions`` (in the order given), in their
+    modes (W = the block-diagonal matrix of the regions' mode vectors ``hams``)."""
+    sites = np.concatenate([np.arange(x, y) for x, y in regions])
     w = sla.block_diag(*(h.modes for h in hams))
     return w.conj().T @ corr[np.ix_(sites, sites)].T @ w
+
+
+def _determinant_order(regions) -> list[int]:
+    """The order in which the determinants take the regions: widest first, so that the
+    batched determinants of the innermost level are those of the narrowest region."""
+    return sorted(range(len(regions)), key=lambda k: regions[k][0] - regions[k][1])
+
+
+def _ordered_rows(corr: np.ndarray, cg: WideEnergyRegions, hams, axes, order):
+    """:func:`_characteristic_rows` with the regions taken in ``order``."""
+    regions = [cg.regions[k] for k in order]
+    ordered = [hams[k] for k in order]
+    return _characteristic_rows(_mode_correlation(corr, regions, ordered), ordered,
+                                [axes[k] for k in order])
 
 
 def characteristic_function(corr, cg: WideEnergyRegions, *angles) -> np.ndarray:
@@ -164,7 +177,7 @@ def characteristic_function(corr, cg: WideEnergyRegions, *angles) -> np.ndarray:
     matrix ``corr`` (C_ij = <c_i^dagger c_j>) on the grid ``angles[0]`` x .. x
     ``angles[m-1]``, one 1-d array of angles s_R per region of ``cg`` in its order
     (module docstring). Returns a complex array of shape (len(s_1), .., len(s_m)). Cost
-    about prod_R len(s_R) n_m^3 / 3 flops (n_m the sites of the last region)."""
+    about prod_R len(s_R) n^3 / 3 flops (n the sites of the narrowest region)."""
     c = _check_corr(corr)
     if c.shape[0] != cg.L:
         raise InputError(f"corr: shape {c.shape} does not match the chain (L = {cg.L})")
@@ -173,7 +186,9 @@ def characteristic_function(corr, cg: WideEnergyRegions, *angles) -> np.ndarray:
                          f"({len(cg.regions)}), got {len(angles)}")
     hams = region_hamiltonians(cg)
     axes = [np.atleast_1d(np.asarray(s, dtype=float)) for s in angles]
-    return np.stack(list(_characteristic_rows(_mode_correlation(c, cg, hams), hams, axes)))
+    order = _determinant_order(cg.regions)
+    chi = np.stack(list(_ordered_rows(c, cg, hams, axes, order)))
+    return chi.transpose(np.argsort(order))
 
 
 def _determinants(blocks: np.ndarray) -> np.ndarray:
@@ -373,16 +388,17 @@ def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
     hams = region_hamiltonians(cg)
     counts = [level_counts(h.energies, h.offset, width) for h in hams]
     grids = [_grid(h, bins, width, sigma) for h, (bins, _) in zip(hams, counts, strict=True)]
-    axes = [grid.angles(first=k == 0) for k, grid in enumerate(grids)]
-    transforms = [_bin_transforms(grid, s, width) for grid, s in zip(grids, axes, strict=True)]
+    order = _determinant_order(cg.regions)   # all axes below in this order
+    axes = [grid.angles(first=k == order[0]) for k, grid in enumerate(grids)]
+    transforms = [_bin_transforms(grids[k], axes[k], width) for k in order]
     widths = (sigma, 2 * sigma)
-    windows = [[f * np.exp(-(w * s) ** 2 / 2) for f, s in zip(transforms, axes, strict=True)]
+    windows = [[f * np.exp(-(w * axes[k]) ** 2 / 2) for f, k in zip(transforms, order,
+                                                                       strict=True)]
                for w in widths]
-    sums = [np.zeros(tuple(len(b) for b, _ in counts), dtype=complex) for _ in widths]
-    centre = tuple(grid.points - 1 for grid in grids[1:])   # s = 0 on the other axes
+    sums = [np.zeros(tuple(len(counts[k][0]) for k in order), dtype=complex) for _ in widths]
+    centre = tuple(grids[k].points - 1 for k in order[1:])   # s = 0 on the other axes
     first_line, other_lines = [], []
-    rows = _characteristic_rows(_mode_correlation(c, cg, hams), hams, axes)
-    for i, row in enumerate(rows):
+    for i, row in enumerate(_ordered_rows(c, cg, hams, axes, order)):
         # chi(-s) = conj chi(s): the rows s_1 > 0 stand for their mirror images too.
         weight = 1.0 if i == 0 else 2.0
         first_line.append(weight * row[centre])
@@ -394,14 +410,13 @@ def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
             for w in window[1:]:
                 inner = np.tensordot(inner, w, axes=(0, 1))
             total += weight * np.multiply.outer(window[0][:, i], inner)
-    edge_mass = sum(_edge_mass(np.asarray(line), s, grid, width, sigma)
-                    for line, s, grid in zip([first_line, *other_lines], axes, grids,
-                                             strict=True))
+    edge_mass = sum(_edge_mass(np.asarray(line), axes[k], grids[k], width, sigma)
+                    for line, k in zip([first_line, *other_lines], order, strict=True))
     log_v = np.zeros(())
     with np.errstate(divide="ignore"):
         for _, cnt in counts:
             log_v = np.add.outer(log_v, np.log(cnt.astype(float)))
-    p, p_coarse = (total.real for total in sums)
+    p, p_coarse = (total.real.transpose(np.argsort(order)) for total in sums)
     defect = float(p.sum() - 1.0)
     entropy, leaked, kept = _entropy(p, log_v)
     coarse_entropy, _, _ = _entropy(p_coarse, log_v)
