@@ -179,13 +179,16 @@ def test_reference_matches_dense_diagonalisation_of_a_quench(L, regions, width, 
                                       [c.get(b, 0) for b in ref.bins[region]])
 
 
-def test_chebyshev_method_against_the_free_fermion_reference():
-    # L = 28, halves of 14 sites (reweighted volumes, nothing exact inside the method),
-    # Neel quench to t = 1; the MPS from TEBD, the reference from the exact C(t).
-    L, cut, width, t = 28, 14, 1.0, 1.0
+@pytest.mark.parametrize("regions", [[[0, 14], [14, 28]], [[0, 13], [13, 17], [17, 24]]],
+                         ids=["two", "three"])
+def test_chebyshev_method_against_the_free_fermion_reference(regions):
+    # Two halves of 14 sites, or 13 + 4 + 7 sites: a region wider than 12 sites, so its
+    # volumes are reweighted (not exact inside the method); Neel quench to t = 1; the MPS
+    # from TEBD, the reference (Klich's trace formula, I. Klich, arXiv:cond-mat/0209642
+    # (2003)) from the exact C(t).
+    L, width, t = regions[-1][1], 1.0, 1.0
     model = _xx(L, seed=0)
-    cg = coarse.blocks(L, None, "energy", model=model, bin_width=width,
-                       regions=[[0, cut], [cut, L]])
+    cg = coarse.blocks(L, None, "energy", model=model, bin_width=width, regions=regions)
     snap = next(iter(tebd.evolve(states.neel(L), model, [t], max_bond=32, cutoff=1e-10,
                                  dt=0.05, order=4)))
     corr = ga.evolve_correlation(ga.quadratic_hamiltonian(model),
