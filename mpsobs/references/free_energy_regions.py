@@ -1,43 +1,51 @@
-"""Exact observational entropy of the energies of two regions of a free-fermion chain.
+"""Exact observational entropy of the energies of two or three regions of a free-fermion
+chain.
 
 The reference for :class:`mpsobs.coarse.WideEnergyRegions` on XX chains (xxz with
-delta = 0, any fields) in a Gaussian state: outcomes (b_A, b_B), b = floor(E / dE),
-p(b) = <P_A(b_A) P_B(b_B)>, V(b) = Omega_A(b_A) Omega_B(b_B) and
-S_obs = -sum p ln(p / V) (natural logarithms).
+delta = 0, any fields) in a Gaussian state: regions R_1..R_m (m = 2: A, B; m = 3: A, C,
+B), outcomes b = (b_1, .., b_m), b_k = floor(E_k / dE), p(b) = <prod_k P_k(b_k)>,
+V(b) = prod_k Omega_k(b_k) and S_obs = -sum p ln(p / V) (natural logarithms).
 
 Regional Hamiltonians. H_R (the terms wholly inside a contiguous region R) is quadratic
 in the Jordan-Wigner fermions of R (the strings of adjacent sites cancel, also when R
 does not start at site 0): H_R = sum_k e_k eta_k^dagger eta_k + E_R with the
 single-particle energies e_k of R's hopping matrix and offset E_R
 (:func:`mpsobs.gaussian.quadratic_hamiltonian` of ``model.restricted``). Its 2^n
-eigenvalues are E_R + the sums of the subsets of {e_k}.
+eigenvalues are E_R + the sums of the subsets of {e_k}. The H_R of disjoint regions
+commute (even in the fermions, on disjoint sites).
 
 Volumes (exact integer counts): :func:`level_counts` counts the subset sums in each bin
 by meet-in-the-middle (Horowitz and Sahni, J. ACM 21, 277 (1974)): the 2^(n/2) sums of
 each half of the modes, one half sorted, and for every bin edge x the number of pairs
 with s_1 + s_2 < x by a binary search per s_1. The counts are exact integers; the only
 error is a level within floating-point rounding (~1e-13 of the region's energy scale)
-of a bin edge. Cost O(2^(n/2) n_edges n) time, O(2^(n/2)) memory; n <= MAX_MODES.
+of a bin edge. Cost O(2^(n/2) n_edges n) time, O(2^(n/2)) memory; n <= MAX_MODES. The
+volume of an outcome is the product of its regions' counts.
 
 Probabilities (characteristic function). For a Gaussian state with C_ij = <c_i^dagger c_j>,
 
-    chi(s_A, s_B) = <exp(i s_A H_A + i s_B H_B)>
-                  = exp(i s_A E_A + i s_B E_B) det(1 + (exp(i s h) - 1) C^T),
+    chi(s_1, .., s_m) = <exp(i sum_k s_k H_k)>
+                      = exp(i sum_k s_k E_k) det(1 + (exp(i h(s)) - 1) C^T),
 
-h = T_A (+) T_B on the sites of A and B (Klich's trace formula, I. Klich,
-arXiv:cond-mat/0209642 (2003); as full counting statistics, Phys. Rev. Lett. 102, 100502
-(2009)); in the modes of T_A and T_B the matrix exp(i s h) - 1 is diagonal, so each point
-is one determinant of size n_A + n_B with the rows of C^T (in the mode basis) scaled,
-computed as det(A block) times the determinant of its Schur complement (size n_B; the A
-part is shared by a whole row of the grid).
-The bin probabilities follow from a 2-D Fourier inversion against the bin indicators
+h(s) = s_1 T_1 (+) .. (+) s_m T_m on the sites of the regions (Klich's trace formula,
+I. Klich, "Full counting statistics: an elementary derivation of Levitov's formula", in
+Quantum Noise in Mesoscopic Physics, ed. Yu. V. Nazarov (Kluwer, 2003),
+arXiv:cond-mat/0209642, book details from memory; as full counting statistics,
+Phys. Rev. Lett. 102, 100502 (2009)). In the modes of the T_k the matrix exp(i h) - 1 is
+diagonal, so each point is one determinant of size sum_k n_k with the rows of C^T (in
+the mode basis) scaled. :func:`_dets` takes the regions widest first and peels them off
+by Schur complements: det(first block) times the determinant of its Schur complement,
+whose first block is the next region's, down to batched determinants of the narrowest
+region (the outer blocks are shared by a whole row, plane, of the grid).
+The bin probabilities follow from an m-D Fourier inversion against the bin indicators
 smoothed by a Gaussian of width ``smoothing`` = sigma in each energy:
 
-    p_sigma(a, b) = sum_{k,l} (ds_A ds_B / 4 pi^2) chi(s_k, s_l)
-                    conj(I_a(s_k) I_b(s_l)) exp(-sigma^2 (s_k^2 + s_l^2) / 2),
+    p_sigma(b) = sum_{k_1..k_m} chi(s_k) prod_j (ds_j / 2 pi) conj(I_(b_j)(s_(k_j)))
+                 exp(-sigma^2 s_(k_j)^2 / 2),
 
 I_a(s) = int_{a dE}^{(a+1) dE} e^{i s E} dE, on the grid s_k = k ds, |s_k| <= CUTOFF /
-sigma. Errors: (1) truncation of the grid, of order exp(-CUTOFF^2 / 2); (2) aliasing: the
+sigma, accumulated row by row of the first axis (memory: one (2K + 1)^(m-1) row).
+Errors: (1) truncation of the grid, of order exp(-CUTOFF^2 / 2); (2) aliasing: the
 grid spacing ds = 2 pi / T with a period T that exceeds the span of the bins plus
 2 CUTOFF (2 sigma), so the periodic images of the spectrum reach no bin (of order
 exp(-CUTOFF^2 / 2)); (3) smoothing: levels within a few sigma of a bin edge are split
@@ -51,7 +59,7 @@ and for an isolated level much closer than sigma to an edge. Check by a smaller
 ``smoothing``. A rigorous bound: with
 g_a = 1_a * Gaussian, sum_a |g_a(E) - 1_a(E)| <= sum_x exp(-(E - x)^2 / 2 sigma^2) over
 the bin edges x (Gaussian tail bound erfc(u / sqrt 2) / 2 <= exp(-u^2 / 2) / 2), so
-||p_sigma - p||_1 <= eps = sum_x <exp(-(E_R - x)^2 / 2 sigma^2)> over the edges of both
+||p_sigma - p||_1 <= eps = sum_x <exp(-(E_R - x)^2 / 2 sigma^2)> over the edges of all
 regions (each from the marginal characteristic function on the same grid); then, with
 T = eps / 2 + the leaked mass, |S_obs - exact| <= T ln(d - 1) + h(T) + T (max ln V -
 min ln V) (continuity of the Shannon entropy, K. M. R. Audenaert, J. Phys. A 40, 8127
@@ -60,10 +68,12 @@ in sigma, so useful for small regions with no level near an edge and loose for l
 ones. Smoothed probability in bins without levels (next to gaps and the spectral
 edges) is left out and reported as ``leaked_mass``; the rest renormalised.
 
-Cost: K + 1 solves of size n_A and (K + 1)(2 K + 1) determinants of size n_B
-(K = CUTOFF T / (2 pi sigma), chi(-s) = conj chi(s) halves the grid): grows like
-sigma^-2; 11 s for 32 + 32 sites and sigma = dE / 10 on a shared core (load 4); plus the
-counts.
+Cost: with K_k = CUTOFF T_k / (2 pi sigma) grid points per side for region k
+(chi(-s) = conj chi(s) halves the first axis), K_1 prod_(k>1) (2 K_k + 1) determinants
+of the narrowest region's size n plus the Schur complements of the others (one solve of
+size n_k per grid point of the axes before it): grows like sigma^-m. Two regions, 32 + 32
+sites, sigma = dE / 10: 11 s on a shared core (load 4); three regions: see
+:func:`free_region_energy_entropy`. Plus the counts.
 """
 
 from __future__ import annotations
