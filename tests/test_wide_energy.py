@@ -329,3 +329,22 @@ def test_equilibrium_error_of_wide_regions_includes_the_method_error():
     assert value == res.entropy
     assert err == pytest.approx(res.method_err
                                 + pruned_entropy_bound(res.pruned_mass, res.max_entropy))
+
+
+def test_gibbs_references_are_reused_and_do_not_change_the_result(monkeypatch):
+    # a second evaluation takes the region's references from the memo (no Gibbs build)
+    # and gives the same numbers as one with an empty memo
+    cg, state = _hot_and_cold_halves()
+    monkeypatch.setattr(we, "_MEMO", {})
+    first = we.wide_energy_entropy(state, cg, moments=8, bond=4, sub_bins=2)
+    builds = []
+    original = chebyshev.gibbs_segment
+    monkeypatch.setattr(chebyshev, "gibbs_segment",
+                        lambda *args: builds.append(args) or original(*args))
+    again = we.wide_energy_entropy(state, cg, moments=8, bond=4, sub_bins=2)
+    assert builds == []
+    monkeypatch.setattr(we, "_MEMO", {})
+    fresh = we.wide_energy_entropy(state, cg, moments=8, bond=4, sub_bins=2)
+    assert len(builds) > 0
+    for res in (again, fresh):
+        assert (res.entropy, res.method_err) == (first.entropy, first.method_err)

@@ -29,7 +29,10 @@ with the Gibbs state built as a purification by the Chebyshev expansion of
 exp(-beta H_R / 2) (:func:`mpsobs.chebyshev.gibbs_segment`, which gives ln Z_R from its
 norm), p_beta on sub-bins from its Chebyshev moments, and beta found by Newton steps so
 that <H_R>_beta lies near the state's mean regional energy and the mean +- 2 standard
-deviations (three references; each bin uses the one whose energy is closest). |beta| is
+deviations (three references; each bin uses the one whose energy is closest). The betas
+lie on a grid (spacing BETA_GRID / sigma_0, sigma_0 the spread of H_R at beta = 0), so
+that the references depend on the region and the settings only through the grid point and
+are reused from a memo of the process at later output times. |beta| is
 capped at MAX_BETA_RESOLUTION / delta (delta = pi a / N the kernel resolution): beyond,
 e^(beta E) would magnify the smoothing of p_beta.
 
@@ -53,13 +56,14 @@ stacked environments, about 2 N n d D^3, and a closing N^2 chi^2: in all about
 2 N^2 n_C d D^3 + N^3 chi^2 per run, and N^3 numbers for mu (N = 256: 134 MB). For each
 wide region three Gibbs references, each a few Newton builds at
 bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
-The references depend only on the region and the state's regional energies; they are
-recomputed at every call.
+They dominate the first call; later calls of a run whose regional energies stay within a
+grid step reuse them (memo of MEMO_SIZE entries per process).
 """
 
 from __future__ import annotations
 
 import functools
+import hashlib
 import logging
 from dataclasses import dataclass
 
@@ -96,6 +100,12 @@ NEWTON_STEPS = 4
 MAX_BETA_RESOLUTION = 0.5
 #: Compression bond of the Gibbs states during the Newton steps.
 NEWTON_BOND = 8
+#: Spacing of the references' inverse temperatures, in units of 1 / sigma_0 (sigma_0 the
+#: spread of the region's energy at infinite temperature).
+BETA_GRID = 1.0
+#: Gibbs references and Newton probes kept per process (by region, beta and settings).
+MEMO_SIZE = 512
+_MEMO: dict[tuple, object] = {}
 #: Target energies of the volume Gibbs states, in standard deviations of the state's
 #: regional energy around its mean.
 VOLUME_TARGETS = (-2.0, 0.0, 2.0)
@@ -288,30 +298,85 @@ class _RegionVolumes:
         return out
 
 
-def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
-    """The region's Gibbs reference with <H_R> near ``target``: Newton steps in beta on
-    <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, until <H_R> is within half a standard
-    deviation of the target, at most NEWTON_STEPS of them, and |beta| at most
-    MAX_BETA_RESOLUTION / delta for the kernel resolution delta = pi a / N (the factor
-    e^(beta E) magnifies the smoothing by about e^(|beta| delta)). Any beta gives exact
-    volumes in the limit; a near one gives accurate ones."""
-    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+def _fingerprint(model: Model) -> str:
+    """A digest of the model's terms (sites and matrices): the identity of a region
+    Hamiltonian for the reference memo."""
+    digest = hashlib.blake2b(str(model.L).encode(), digest_size=16)
+    for term in model.terms:
+        digest.update(str(term.start).encode())
+        digest.update(np.ascontiguousarray(term.matrix, dtype=complex).tobytes())
+    return digest.hexdigest()
+
+
+def _memo(key: tuple, compute):
+    """The memo's value for ``key``, computed on first use (the oldest entry is dropped
+    beyond MEMO_SIZE)."""
+    if key not in _MEMO:
+        if len(_MEMO) >= MEMO_SIZE:
+            _MEMO.pop(next(iter(_MEMO)))
+        _MEMO[key] = compute()
+    return _MEMO[key]
+
+
+def _probe(region: _Region, mpo, beta: float, bond: int) -> tuple[float, float]:
+    """Mean and variance of H_R in its Gibbs state at ``beta`` (compression ``bond``)."""
     a, c = region.half_width, region.centre
-    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
-    beta, search_bond = 0.0, min(bond, NEWTON_BOND)
+    seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, bond)
+    m = chebyshev.moment_matrices(seg, mpo, 4, bond)[:3, 0, 0].real
+    return float(c + a * m[1]), float(a**2 * ((m[2] + 1) / 2 - m[1] ** 2))
+
+
+def _reference_beta(region: _Region, mpo, target: float, n_moments: int, bond: int,
+                    key: str) -> float:
+    """The grid inverse temperature of the region's reference for ``target``: Newton steps
+    on <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, each rounded to the grid
+    k BETA_GRID / sigma_0 (sigma_0 the spread of H_R at beta = 0), until <H_R> is within
+    half a standard deviation of the target or the step rounds to no move, at most
+    NEWTON_STEPS of them, and |beta| at most MAX_BETA_RESOLUTION / delta for the kernel
+    resolution delta = pi a / N (the factor e^(beta E) magnifies the smoothing by about
+    e^(|beta| delta)). Rounding moves <H_R> by at most half a standard deviation more;
+    any beta gives exact volumes in the limit, a near one accurate ones."""
+    search_bond = min(bond, NEWTON_BOND)
+
+    def probe(beta: float) -> tuple[float, float]:
+        return _memo(("probe", key, beta, search_bond),
+                     lambda: _probe(region, mpo, beta, search_bond))
+
+    step = BETA_GRID / np.sqrt(max(probe(0.0)[1], 1e-300))
+    largest = int(np.floor(MAX_BETA_RESOLUTION * n_moments / (np.pi * region.half_width)
+                           / step))
+    k = 0
     for _ in range(NEWTON_STEPS):
-        seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, search_bond)
-        m = chebyshev.moment_matrices(seg, mpo, 4, search_bond)[:3, 0, 0].real
-        mean, var = c + a * m[1], a**2 * ((m[2] + 1) / 2 - m[1] ** 2)
+        mean, var = probe(k * step)
         if abs(mean - target) <= 0.5 * np.sqrt(max(var, 0.0)) or var <= 0:
             break
-        beta = float(np.clip(beta + (mean - target) / var, -beta_max, beta_max))
-    runs = []
-    for b in (bond, max(2, bond // 2)):
-        seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
-        runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
-    (log_z, mu), (log_z_low, mu_low) = runs
-    return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
+        moved = int(np.clip(np.rint(k + (mean - target) / var / step), -largest, largest))
+        if moved == k:
+            break
+        k = moved
+    return k * step
+
+
+def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
+    """The region's Gibbs reference for ``target`` (:func:`_reference_beta`), its ln Z_R
+    and moments at the compression bond and at half of it. References are kept in a memo
+    of the process by region, grid beta and settings, so that later output times (whose
+    targets round to the same grid beta) reuse them; the result does not depend on
+    what the memo holds."""
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+    a, c = region.half_width, region.centre
+    key = _fingerprint(region.model)
+    beta = _reference_beta(region, mpo, target, n_moments, bond, key)
+
+    def build() -> _GibbsPoint:
+        runs = []
+        for b in (bond, max(2, bond // 2)):
+            seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
+            runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
+        (log_z, mu), (log_z_low, mu_low) = runs
+        return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
+
+    return _memo(("reference", key, beta, n_moments, bond), build)
 
 
 def _targets(region: _Region, marginal: np.ndarray) -> np.ndarray:
