@@ -25,7 +25,7 @@ compression) are set to zero and p renormalised.
 Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
 eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
 own Gibbs state, Omega_R(b) = Z_R(beta) sum_{E in b} p_beta(E) e^{beta E} (DESIGN 3c),
-with the Gibbs state built as a purification by the Chebyshev expansion of
+with the Gibbs state built as a purification by imaginary-time TEBD of
 exp(-beta H_R / 2) (:func:`mpsobs.chebyshev.gibbs_segment`, which gives ln Z_R from its
 norm), p_beta on sub-bins from its Chebyshev moments, and beta found by Newton steps so
 that <H_R>_beta lies near the state's mean regional energy and the mean +- 2 standard
@@ -39,11 +39,11 @@ e^(beta E) would magnify the smoothing of p_beta.
 Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
 the sum of the changes of S_obs when (1) the number of moments is halved (state and
 volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
-least like N^(-1/2)), (2) the compression bond is halved (state, Gibbs references and their ln Z),
-(3) the volume sub-bins are halved; and, reported apart as ``pruned_mass``, (4) the
-probability that the smoothed series puts into bins without eigenvalues (exact-count
-regions only), whose entropy bound the total error adds. The
-same for the Shannon and Boltzmann parts.
+least like N^(-1/2)), (2) the compression bond is halved (state; Gibbs references and
+their ln Z, built also with twice the imaginary-time step), (3) the volume sub-bins are
+halved; and, reported apart as ``pruned_mass``, (4) the probability that the smoothed
+series puts into bins without eigenvalues (exact-count regions only), whose entropy
+bound the total error adds. The same for the Shannon and Boltzmann parts.
 The smoothing of the kernel (resolution about pi a / N for a spectrum half-width a) makes
 S_obs too large where the regional energies are sharper than the resolution (an
 eigenstate of H_A); the halved-moments change then is of order ln 2, so the error bar
@@ -249,7 +249,8 @@ def _marginals(p: np.ndarray) -> list[np.ndarray]:
 @dataclass(frozen=True)
 class _GibbsPoint:
     """A Gibbs reference of a region: beta, <H_R>, and at the compression bond (and at
-    half of it, ``*_low``) ln Z_R and the Chebyshev moments of Ht_R in the Gibbs state."""
+    half of it with twice the imaginary-time step, ``*_low``) ln Z_R and the Chebyshev
+    moments of Ht_R in the Gibbs state."""
 
     beta: float
     energy: float
@@ -321,7 +322,7 @@ def _memo(key: tuple, compute):
 def _probe(region: _Region, mpo, beta: float, bond: int) -> tuple[float, float]:
     """Mean and variance of H_R in its Gibbs state at ``beta`` (compression ``bond``)."""
     a, c = region.half_width, region.centre
-    seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, bond)
+    seg, _ = chebyshev.gibbs_segment(region.model, beta, bond)
     m = chebyshev.moment_matrices(seg, mpo, 4, bond)[:3, 0, 0].real
     return float(c + a * m[1]), float(a**2 * ((m[2] + 1) / 2 - m[1] ** 2))
 
@@ -370,8 +371,9 @@ def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _
 
     def build() -> _GibbsPoint:
         runs = []
-        for b in (bond, max(2, bond // 2)):
-            seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
+        for b, step in ((bond, chebyshev.GIBBS_STEP), (max(2, bond // 2),
+                                                       2 * chebyshev.GIBBS_STEP)):
+            seg, log_z = chebyshev.gibbs_segment(region.model, beta, b, step)
             runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
         (log_z, mu), (log_z_low, mu_low) = runs
         return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
@@ -434,10 +436,12 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
     and D / 2) of N / 2 compressions, each n - 1 QRs and SVDs at the summed bond
     (w + 1) D and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
     region, and a closing 8 N^2 chi^2); per region wider than EXACT_VOLUME_SITES three
-    Gibbs references, each NEWTON_STEPS builds at NEWTON_BOND and two builds and runs
-    (d = 4) at D and D / 2, a build at |``beta``| (default: the largest, MAX_BETA_RESOLUTION
-    N / (pi a)) taking beta a / (2 MAX_STEP_TAU) steps of (2 MAX_STEP_TAU + 15) terms, two
-    compressions each. An estimate of the order, not a count of the state's own bonds."""
+    Gibbs references, each NEWTON_STEPS builds and 4-moment runs at NEWTON_BOND and two
+    builds and runs (d = 4) at D and D / 2, a build at |``beta``| (default: the largest,
+    MAX_BETA_RESOLUTION N / (pi a)) taking |beta| / (2 GIBBS_STEP) imaginary-time steps of
+    about six layers of (n - 1) / 2 splits of (4 D, 4 D) (half the steps at D / 2). Every
+    reference counts at every call (the memo's reuse is not counted). An estimate of the
+    order, not a count of the state's own bonds."""
     n_moments, calls, gemm = moments, 0.0, 0.0
     svds, qrs = [], []
 
@@ -450,6 +454,13 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
                          + 2 * stacked * 16.0 * n * d * compress**3)
         calls += steps * 6.0 * n
 
+    def build(n: int, compress: int, steps: float) -> None:
+        nonlocal gemm, calls
+        splits = 6.0 * steps * (n - 1) / 2
+        svds.append((4 * compress, 4 * compress, splits))
+        gemm += splits * 16.0 * (4 * compress) ** 2 * compress
+        calls += splits * 4
+
     for i, (a, b) in enumerate(cg.regions):
         region = cg.model.restricted(a, b)
         n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
@@ -461,13 +472,15 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
         if n > EXACT_VOLUME_SITES:
             half = chebyshev.spectrum_bounds(region)[1]
             largest = MAX_BETA_RESOLUTION * n_moments / (np.pi * half)
-            tau = min(largest, largest if beta is None else abs(beta)) * half / 2
-            build_steps = (max(1.0, np.ceil(tau / chebyshev.MAX_STEP_TAU))
-                           * (2 * chebyshev.MAX_STEP_TAU + 15) * 2)
+            reached = min(largest, largest if beta is None else abs(beta))
+            steps = max(1.0, np.ceil(reached / 2 / chebyshev.GIBBS_STEP))
             for _ in VOLUME_TARGETS:
-                run(n, w, 4, min(bond, NEWTON_BOND), NEWTON_STEPS * (build_steps + 2))
-                for compress in (bond, max(2, bond // 2)):
-                    run(n, w, 4, compress, build_steps + n_moments / 2)
+                for _ in range(NEWTON_STEPS):
+                    build(n, min(bond, NEWTON_BOND), steps)
+                    run(n, w, 4, min(bond, NEWTON_BOND), 2)
+                for compress, share in ((bond, 1.0), (max(2, bond // 2), 0.5)):
+                    build(n, compress, max(1.0, np.ceil(steps * share)))
+                    run(n, w, 4, compress, n_moments / 2)
     size = 16.0 * (2 * n_moments ** len(cg.regions) + n_moments * state_bond**2
                    + n_moments * bond**2 * local_dim * (len(cg.regions) - 2))
     return KernelCounts(gemm, tuple(svds), tuple(qrs), calls, size)
