@@ -25,22 +25,25 @@ compression) are set to zero and p renormalised.
 Volumes. Regions of at most ``exact_sites`` (:data:`EXACT_VOLUME_SITES`) sites:
 eigenvalues of H_R counted per bin (exact). Wider regions: reweighting from the region's
 own Gibbs state, Omega_R(b) = Z_R(beta) sum_{E in b} p_beta(E) e^{beta E} (DESIGN 3c),
-with the Gibbs state built as a purification by the Chebyshev expansion of
+with the Gibbs state built as a purification by imaginary-time TEBD of
 exp(-beta H_R / 2) (:func:`mpsobs.chebyshev.gibbs_segment`, which gives ln Z_R from its
 norm), p_beta on sub-bins from its Chebyshev moments, and beta found by Newton steps so
 that <H_R>_beta lies near the state's mean regional energy and the mean +- 2 standard
-deviations (three references; each bin uses the one whose energy is closest). |beta| is
+deviations (three references; each bin uses the one whose energy is closest). The betas
+lie on a grid (spacing BETA_GRID / sigma_0, sigma_0 the spread of H_R at beta = 0), so
+that the references depend on the region and the settings only through the grid point and
+are reused from a memo of the process at later output times. |beta| is
 capped at MAX_BETA_RESOLUTION / delta (delta = pi a / N the kernel resolution): beyond,
 e^(beta E) would magnify the smoothing of p_beta.
 
 Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
 the sum of the changes of S_obs when (1) the number of moments is halved (state and
 volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
-least like N^(-1/2)), (2) the compression bond is halved (state, Gibbs references and their ln Z),
-(3) the volume sub-bins are halved; and, reported apart as ``pruned_mass``, (4) the
-probability that the smoothed series puts into bins without eigenvalues (exact-count
-regions only), whose entropy bound the total error adds. The
-same for the Shannon and Boltzmann parts.
+least like N^(-1/2)), (2) the compression bond is halved (state; Gibbs references and
+their ln Z, built also with twice the imaginary-time step), (3) the volume sub-bins are
+halved; and, reported apart as ``pruned_mass``, (4) the probability that the smoothed
+series puts into bins without eigenvalues (exact-count regions only), whose entropy
+bound the total error adds. The same for the Shannon and Boltzmann parts.
 The smoothing of the kernel (resolution about pi a / N for a spectrum half-width a) makes
 S_obs too large where the regional energies are sharper than the resolution (an
 eigenstate of H_A); the halved-moments change then is of order ln 2, so the error bar
@@ -53,13 +56,14 @@ stacked environments, about 2 N n d D^3, and a closing N^2 chi^2: in all about
 2 N^2 n_C d D^3 + N^3 chi^2 per run, and N^3 numbers for mu (N = 256: 134 MB). For each
 wide region three Gibbs references, each a few Newton builds at
 bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
-The references depend only on the region and the state's regional energies; they are
-recomputed at every call.
+They dominate the first call; later calls of a run whose regional energies stay within a
+grid step reuse them (memo of MEMO_SIZE entries per process).
 """
 
 from __future__ import annotations
 
 import functools
+import hashlib
 import logging
 from dataclasses import dataclass
 
@@ -76,8 +80,9 @@ from mpsobs.estimators.estimate import canonical_state
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
 from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
 
-__all__ = ["wide_energy_entropy", "region_volumes", "kernel_counts", "KernelCounts",
-           "DEFAULT_MOMENTS", "DEFAULT_BOND", "DEFAULT_SUB_BINS", "EXACT_VOLUME_SITES"]
+__all__ = ["wide_energy_entropy", "region_volumes", "clear_references", "kernel_counts",
+           "KernelCounts", "DEFAULT_MOMENTS", "DEFAULT_BOND", "DEFAULT_SUB_BINS",
+           "EXACT_VOLUME_SITES"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 log = logging.getLogger(__name__)
@@ -96,6 +101,12 @@ NEWTON_STEPS = 4
 MAX_BETA_RESOLUTION = 0.5
 #: Compression bond of the Gibbs states during the Newton steps.
 NEWTON_BOND = 8
+#: Spacing of the references' inverse temperatures, in units of 1 / sigma_0 (sigma_0 the
+#: spread of the region's energy at infinite temperature).
+BETA_GRID = 1.0
+#: Gibbs references and Newton probes kept per process (by region, beta and settings).
+MEMO_SIZE = 512
+_MEMO: dict[tuple, object] = {}
 #: Target energies of the volume Gibbs states, in standard deviations of the state's
 #: regional energy around its mean.
 VOLUME_TARGETS = (-2.0, 0.0, 2.0)
@@ -239,7 +250,8 @@ def _marginals(p: np.ndarray) -> list[np.ndarray]:
 @dataclass(frozen=True)
 class _GibbsPoint:
     """A Gibbs reference of a region: beta, <H_R>, and at the compression bond (and at
-    half of it, ``*_low``) ln Z_R and the Chebyshev moments of Ht_R in the Gibbs state."""
+    half of it with twice the imaginary-time step, ``*_low``) ln Z_R and the Chebyshev
+    moments of Ht_R in the Gibbs state."""
 
     beta: float
     energy: float
@@ -288,30 +300,91 @@ class _RegionVolumes:
         return out
 
 
-def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
-    """The region's Gibbs reference with <H_R> near ``target``: Newton steps in beta on
-    <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, until <H_R> is within half a standard
-    deviation of the target, at most NEWTON_STEPS of them, and |beta| at most
-    MAX_BETA_RESOLUTION / delta for the kernel resolution delta = pi a / N (the factor
-    e^(beta E) magnifies the smoothing by about e^(|beta| delta)). Any beta gives exact
-    volumes in the limit; a near one gives accurate ones."""
-    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+def _fingerprint(model: Model) -> str:
+    """A digest of the model's terms (sites and matrices): the identity of a region
+    Hamiltonian for the reference memo."""
+    digest = hashlib.blake2b(str(model.L).encode(), digest_size=16)
+    for term in model.terms:
+        digest.update(str(term.start).encode())
+        digest.update(np.ascontiguousarray(term.matrix, dtype=complex).tobytes())
+    return digest.hexdigest()
+
+
+def clear_references() -> None:
+    """Empty the memo of Gibbs references (for benchmarks that time a first call)."""
+    _MEMO.clear()
+
+
+def _memo(key: tuple, compute):
+    """The memo's value for ``key``, computed on first use (the oldest entry is dropped
+    beyond MEMO_SIZE)."""
+    if key not in _MEMO:
+        if len(_MEMO) >= MEMO_SIZE:
+            _MEMO.pop(next(iter(_MEMO)))
+        _MEMO[key] = compute()
+    return _MEMO[key]
+
+
+def _probe(region: _Region, mpo, beta: float, bond: int) -> tuple[float, float]:
+    """Mean and variance of H_R in its Gibbs state at ``beta`` (compression ``bond``)."""
     a, c = region.half_width, region.centre
-    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
-    beta, search_bond = 0.0, min(bond, NEWTON_BOND)
+    seg, _ = chebyshev.gibbs_segment(region.model, beta, bond)
+    m = chebyshev.moment_matrices(seg, mpo, 4, bond)[:3, 0, 0].real
+    return float(c + a * m[1]), float(a**2 * ((m[2] + 1) / 2 - m[1] ** 2))
+
+
+def _reference_beta(region: _Region, mpo, target: float, n_moments: int, bond: int,
+                    key: str) -> float:
+    """The grid inverse temperature of the region's reference for ``target``: Newton steps
+    on <H_R>(beta) (d<H>/dbeta = -Var H) from beta = 0, each rounded to the grid
+    k BETA_GRID / sigma_0 (sigma_0 the spread of H_R at beta = 0), until <H_R> is within
+    half a standard deviation of the target or the step rounds to no move, at most
+    NEWTON_STEPS of them, and |beta| at most MAX_BETA_RESOLUTION / delta for the kernel
+    resolution delta = pi a / N (the factor e^(beta E) magnifies the smoothing by about
+    e^(|beta| delta)). Rounding moves <H_R> by at most half a standard deviation more;
+    any beta gives exact volumes in the limit, a near one accurate ones."""
+    search_bond = min(bond, NEWTON_BOND)
+
+    def probe(beta: float) -> tuple[float, float]:
+        return _memo(("probe", key, beta, search_bond),
+                     lambda: _probe(region, mpo, beta, search_bond))
+
+    step = BETA_GRID / np.sqrt(max(probe(0.0)[1], 1e-300))
+    largest = int(np.floor(MAX_BETA_RESOLUTION * n_moments / (np.pi * region.half_width)
+                           / step))
+    k = 0
     for _ in range(NEWTON_STEPS):
-        seg, _ = chebyshev.gibbs_segment(mpo, beta, c, a, search_bond)
-        m = chebyshev.moment_matrices(seg, mpo, 4, search_bond)[:3, 0, 0].real
-        mean, var = c + a * m[1], a**2 * ((m[2] + 1) / 2 - m[1] ** 2)
+        mean, var = probe(k * step)
         if abs(mean - target) <= 0.5 * np.sqrt(max(var, 0.0)) or var <= 0:
             break
-        beta = float(np.clip(beta + (mean - target) / var, -beta_max, beta_max))
-    runs = []
-    for b in (bond, max(2, bond // 2)):
-        seg, log_z = chebyshev.gibbs_segment(mpo, beta, c, a, b)
-        runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
-    (log_z, mu), (log_z_low, mu_low) = runs
-    return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
+        moved = int(np.clip(np.rint(k + (mean - target) / var / step), -largest, largest))
+        if moved == k:
+            break
+        k = moved
+    return k * step
+
+
+def _gibbs_point(region: _Region, target: float, n_moments: int, bond: int) -> _GibbsPoint:
+    """The region's Gibbs reference for ``target`` (:func:`_reference_beta`), its ln Z_R
+    and moments at the compression bond and at half of it. References are kept in a memo
+    of the process by region, grid beta and settings, so that later output times (whose
+    targets round to the same grid beta) reuse them; the result does not depend on
+    what the memo holds."""
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+    a, c = region.half_width, region.centre
+    key = _fingerprint(region.model)
+    beta = _reference_beta(region, mpo, target, n_moments, bond, key)
+
+    def build() -> _GibbsPoint:
+        runs = []
+        for b, step in ((bond, chebyshev.GIBBS_STEP), (max(2, bond // 2),
+                                                       2 * chebyshev.GIBBS_STEP)):
+            seg, log_z = chebyshev.gibbs_segment(region.model, beta, b, step)
+            runs.append((log_z, chebyshev.moment_matrices(seg, mpo, n_moments, b)[:, 0, 0].real))
+        (log_z, mu), (log_z_low, mu_low) = runs
+        return _GibbsPoint(beta, float(c + a * mu[1]), log_z, log_z_low, mu, mu_low)
+
+    return _memo(("reference", key, beta, n_moments, bond), build)
 
 
 def _targets(region: _Region, marginal: np.ndarray) -> np.ndarray:
@@ -369,10 +442,12 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
     and D / 2) of N / 2 compressions, each n - 1 QRs and SVDs at the summed bond
     (w + 1) D and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
     region, and a closing 8 N^2 chi^2); per region wider than EXACT_VOLUME_SITES three
-    Gibbs references, each NEWTON_STEPS builds at NEWTON_BOND and two builds and runs
-    (d = 4) at D and D / 2, a build at |``beta``| (default: the largest, MAX_BETA_RESOLUTION
-    N / (pi a)) taking beta a / (2 MAX_STEP_TAU) steps of (2 MAX_STEP_TAU + 15) terms, two
-    compressions each. An estimate of the order, not a count of the state's own bonds."""
+    Gibbs references, each NEWTON_STEPS builds and 4-moment runs at NEWTON_BOND and two
+    builds and runs (d = 4) at D and D / 2, a build at |``beta``| (default: the largest,
+    MAX_BETA_RESOLUTION N / (pi a)) taking |beta| / (2 GIBBS_STEP) imaginary-time steps of
+    about six layers of (n - 1) / 2 splits of (4 D, 4 D) (half the steps at D / 2). Every
+    reference counts at every call (the memo's reuse is not counted). An estimate of the
+    order, not a count of the state's own bonds."""
     n_moments, calls, gemm = moments, 0.0, 0.0
     svds, qrs = [], []
 
@@ -385,6 +460,13 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
                          + 2 * stacked * 16.0 * n * d * compress**3)
         calls += steps * 6.0 * n
 
+    def build(n: int, compress: int, steps: float) -> None:
+        nonlocal gemm, calls
+        splits = 6.0 * steps * (n - 1) / 2
+        svds.append((4 * compress, 4 * compress, splits))
+        gemm += splits * 16.0 * (4 * compress) ** 2 * compress
+        calls += splits * 4
+
     for i, (a, b) in enumerate(cg.regions):
         region = cg.model.restricted(a, b)
         n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
@@ -396,13 +478,15 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
         if n > EXACT_VOLUME_SITES:
             half = chebyshev.spectrum_bounds(region)[1]
             largest = MAX_BETA_RESOLUTION * n_moments / (np.pi * half)
-            tau = min(largest, largest if beta is None else abs(beta)) * half / 2
-            build_steps = (max(1.0, np.ceil(tau / chebyshev.MAX_STEP_TAU))
-                           * (2 * chebyshev.MAX_STEP_TAU + 15) * 2)
+            reached = min(largest, largest if beta is None else abs(beta))
+            steps = max(1.0, np.ceil(reached / 2 / chebyshev.GIBBS_STEP))
             for _ in VOLUME_TARGETS:
-                run(n, w, 4, min(bond, NEWTON_BOND), NEWTON_STEPS * (build_steps + 2))
-                for compress in (bond, max(2, bond // 2)):
-                    run(n, w, 4, compress, build_steps + n_moments / 2)
+                for _ in range(NEWTON_STEPS):
+                    build(n, min(bond, NEWTON_BOND), steps)
+                    run(n, w, 4, min(bond, NEWTON_BOND), 2)
+                for compress, share in ((bond, 1.0), (max(2, bond // 2), 0.5)):
+                    build(n, compress, max(1.0, np.ceil(steps * share)))
+                    run(n, w, 4, compress, n_moments / 2)
     size = 16.0 * (2 * n_moments ** len(cg.regions) + n_moments * state_bond**2
                    + n_moments * bond**2 * local_dim * (len(cg.regions) - 2))
     return KernelCounts(gemm, tuple(svds), tuple(qrs), calls, size)
