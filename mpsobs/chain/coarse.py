@@ -547,6 +547,11 @@ def _wide_number_energy(parts) -> WideEnergyRegions:
     if counted.L != energy.L or counted.regions != energy.regions:
         raise InputError(f"sequence: the number blocks {list(counted.regions)} are not the "
                          f"energy regions {list(energy.regions)}; ask both on the same regions")
+    if len(energy.regions) != 2:
+        raise InputError(f"regions: the joint number and energy of regions wider than "
+                         f"{MAX_BLOCK_SITES} sites is evaluated for 2 regions; got "
+                         f"{len(energy.regions)} (the energy alone takes up to "
+                         f"{MAX_WIDE_REGIONS})")
     if not energy.model.conserves_number:
         raise InputError(f"sequence: the number and energy of regions wider than "
                          f"{MAX_BLOCK_SITES} sites are asked jointly only for a model that "

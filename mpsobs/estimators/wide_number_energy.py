@@ -38,8 +38,9 @@ number sector of H_R counted per bin (exact; cost sum_n C(n_R, n)^3). Wider regi
 reweighting from grand-canonical Gibbs states of the region (DESIGN 3c with a chemical
 potential), rho = e^(-beta H_R + nu N_R) / Z, Omega_R(n, b) = Z sum_{E in b}
 p(n, E) e^(beta E - nu n), with p(n, E) on sub-bins from the phase-resolved Chebyshev
-moments of its purification (:func:`mpsobs.chebyshev.gibbs_segment` of the model
-beta H_R - nu N_R, which gives ln Z). (beta, nu) by two-dimensional Newton steps so that
+moments of its purification (:func:`mpsobs.chebyshev.gibbs_segment` of beta H_R, which
+gives ln Z(beta), times the product e^(nu N_R / 2), exact since N_R commutes with H_R,
+whose norm gives the rest of ln Z). (beta, nu) by two-dimensional Newton steps so that
 <H_R> lies near the state's mean regional energy (and its mean +- 2 standard
 deviations: three references) and <N_R> near the state's mean regional number; each
 (n, b) uses the reference that gives it the most weight (whose relative error is then
@@ -68,7 +69,7 @@ import numpy as np
 from scipy.special import logsumexp
 
 from mpsobs.chain.coarse import WideEnergyRegions
-from mpsobs.chain.models import Model, Term
+from mpsobs.chain.models import Model
 from mpsobs.core.errors import InputError
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import chebyshev
@@ -245,18 +246,29 @@ def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
 
 
 def _sector_eigenvalues(model: Model) -> list[np.ndarray]:
-    """Eigenvalues of H of each number sector n = 0 .. L (exact diagonalisation)."""
-    h = model.block_hamiltonian(0, model.L)
+    """Eigenvalues of H of each number sector n = 0 .. L (exact diagonalisation, L <= 16)."""
+    h = model.sparse_hamiltonian().tocsr()
     count = np.array([bin(s).count("1") for s in range(2**model.L)])
-    return [np.linalg.eigvalsh(h[np.ix_(idx, idx)])
+    return [np.linalg.eigvalsh(h[idx][:, idx].toarray())
             for n in range(model.L + 1) for idx in [np.flatnonzero(count == n)]]
 
 
-def _grand_model(model: Model, beta: float, nu: float) -> Model:
-    """beta H - nu N as a model (the exponent of a grand-canonical Gibbs state)."""
-    terms = (*(Term(t.start, beta * t.matrix) for t in model.terms),
-             *(Term(i, np.diag([0.0, -nu])) for i in range(model.L)))
-    return Model(model.name, model.L, model.params, terms, True, model.energy_scale)
+def _with_fugacity(seg: list[np.ndarray], nu: float) -> tuple[list[np.ndarray], float]:
+    """e^(nu N / 2) |g> normalised (left-canonical, N the spins' number; a product of
+    one-site factors, exact) and ln <g| e^(nu N) |g> for a normalised segment |g> with
+    bonds 1 at both ends. Cost n d chi^3."""
+    shift = max(nu, 0.0)   # factors e^(nu (s - 1) / 2) <= 1 for nu > 0: no overflow
+    w = np.exp(nu / 2 * _spin_numbers(seg[0].shape[1]) - shift / 2)
+    out, carry, log_norm = [], np.ones((1, 1)), 0.0
+    for i, t in enumerate(seg):
+        t = np.tensordot(carry, t * w[None, :, None], axes=(1, 0))
+        scale = float(np.linalg.norm(t))
+        t, log_norm = t / scale, log_norm + np.log(scale)
+        if i < len(seg) - 1:
+            q, carry = np.linalg.qr(t.reshape(-1, t.shape[2]))
+            t = q.reshape(t.shape[0], t.shape[1], -1)
+        out.append(t)
+    return out, 2 * log_norm + shift * len(seg)
 
 
 @dataclass(frozen=True)
@@ -276,13 +288,14 @@ class _GibbsPoint:
 
 def _gibbs_run(region: _Region, beta: float, nu: float, n_moments: int,
                bond: int) -> tuple[float, np.ndarray]:
-    """ln Z and the number-resolved moments (K, N) of Ht in e^(-beta H + nu N) / Z."""
-    grand = _grand_model(region.model, beta, nu)
-    centre, half = chebyshev.spectrum_bounds(grand)
-    seg, log_z = chebyshev.gibbs_segment(chebyshev.scaled_mpo(grand, centre, half, 4), 1.0,
-                                         centre, half, bond)
+    """ln Z and the number-resolved moments (K, N) of Ht in e^(-beta H + nu N) / Z: the
+    Gibbs segment of beta H (:func:`mpsobs.chebyshev.gibbs_segment`) times e^(nu N / 2)
+    (N commutes with H), ln Z = ln Z(beta) + ln <g| e^(nu N) |g>."""
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+    seg, log_z = chebyshev.gibbs_segment(mpo, beta, region.centre, region.half_width, bond)
+    seg, log_weight = _with_fugacity(seg, nu)
     moments = _sector_moments(seg, region, n_moments, bond, region.model.L)
-    return log_z, moments[:, :, 0, 0].real
+    return log_z + log_weight, moments[:, :, 0, 0].real
 
 
 def _gibbs_point(region: _Region, target: float, number: float, n_moments: int,
