@@ -146,7 +146,7 @@ def _purification_dense(state, L):
 def test_phase_resolved_probabilities_of_a_purification_match_the_dense_moments():
     # a Gibbs purification: its bonds carry n_spin - n_ancilla, so the region numbers come
     # from the phases; against Tr[rho P_A T_k P_B T_m] of the same purification, dense
-    L, cut, n_moments = 8, 4, 16
+    L, cut, n_moments = 8, 4, 10
     model = models.xxz(L, delta=0.5, h=0.2, field="staggered")
     rho = thermo.gibbs_state(model, 0.7, max_bond=64)
     v = _purification_dense(canonical_state(rho), L)
@@ -196,7 +196,7 @@ def test_13_and_3_sites_against_exact_diagonalisation_of_each_sector():
     cg = coarse.sequence(coarse.blocks(L, None, "energy", model=model, bin_width=width,
                                        regions=[[0, cut], [cut, L]]),
                          coarse.blocks(L, None, "number", regions=[[0, cut], [cut, L]]))
-    res = observational_entropy(state, cg, moments=64, bond=16)
+    res = observational_entropy(state, cg, moments=32, bond=8)
     assert res.label == cg.label and res.distribution.outcomes.shape[1] == 4
     assert abs(res.entropy - exact) <= _total_error(res), (res, exact)
 
@@ -246,9 +246,11 @@ def test_refusals_name_the_field():
     with pytest.raises(InputError, match="^sequence: the number blocks"):
         coarse.sequence(coarse.blocks(L, None, "number", regions=[[0, 14], [14, L]]),
                         energy(xxz))
-    three = [[0, 13], [13, 15], [15, L]]
+    three = [[0, 13], [13, 15], [15, 18]]
     with pytest.raises(InputError, match="^regions: .*2 regions"):
-        coarse.sequence(coarse.blocks(L, None, "number", regions=three), energy(xxz, three))
+        coarse.sequence(coarse.blocks(18, None, "number", regions=three),
+                        coarse.blocks(18, None, "energy", model=models.xxz(18), bin_width=1.0,
+                                      regions=three))
     wide3 = coarse.WideEnergyRegions(30, ((0, 13), (13, 26), (26, 30)), models.xxz(30),
                                      1.0, "t", JOINT)
     with pytest.raises(InputError, match="^regions: .*2 regions"):
