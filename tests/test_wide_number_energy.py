@@ -76,6 +76,14 @@ def _right_vectors(segment):
     return v.reshape(chi, -1).T
 
 
+def _exact_halves(model, state, cut, width):
+    """S_obs of the definition for the halves at ``cut`` of an MPS, from its Schmidt
+    vectors (:func:`_exact_joint`)."""
+    left, lam, right = we._split(canonical_state(state).tensors, cut)
+    return _exact_joint(_left_vectors(left) * lam, _right_vectors(right),
+                        model.restricted(0, cut), model.restricted(cut, model.L), width)
+
+
 def _quench(L, t, bond):
     model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
     snap = next(iter(tebd.evolve(states.neel(L), model, [t], max_bond=bond, cutoff=1e-12,
@@ -170,9 +178,7 @@ def test_exact_volume_regions_against_the_definition_and_both_orders_agree():
     # observables, so the same distribution with the columns swapped
     L, cut, width = 10, 5, 1.0
     model, state = _quench(L, 1.0, 16)
-    left, lam, right = we._split(canonical_state(state).tensors, cut)
-    exact = _exact_joint(_left_vectors(left) * lam, _right_vectors(right),
-                         model.restricted(0, cut), model.restricted(cut, L), width)
+    exact = _exact_halves(model, state, cut, width)
     results = []
     for order in (JOINT, JOINT[::-1]):
         cg = coarse.WideEnergyRegions(L, ((0, cut), (cut, L)), model, width, "t", order)
@@ -190,9 +196,7 @@ def test_13_and_3_sites_against_exact_diagonalisation_of_each_sector():
     # Schmidt vectors and the eigenvectors of H_A and H_B sector by sector, exact counts
     L, cut, width = 16, 13, 1.0
     model, state = _quench(L, 1.0, 8)
-    left, lam, right = we._split(canonical_state(state).tensors, cut)
-    exact = _exact_joint(_left_vectors(left) * lam, _right_vectors(right),
-                         model.restricted(0, cut), model.restricted(cut, L), width)
+    exact = _exact_halves(model, state, cut, width)
     cg = coarse.sequence(coarse.blocks(L, None, "energy", model=model, bin_width=width,
                                        regions=[[0, cut], [cut, L]]),
                          coarse.blocks(L, None, "number", regions=[[0, cut], [cut, L]]))

@@ -495,6 +495,9 @@ def sequence(first, second, *more):
 
     Block coarse-grainings must share L and the partition; projector coarse-grainings
     must share the dimension. The outcome labels are tuples with one value per stage.
+    Energy regions wider than MAX_BLOCK_SITES take part only with the number blocks of
+    the same two regions, in either order (:data:`WIDE_SEQUENCES`), for a model that
+    conserves the number: a :class:`WideEnergyRegions` asking both.
     """
     parts = (first, second, *more)
     if any(isinstance(p, WideEnergyRegions) for p in parts):

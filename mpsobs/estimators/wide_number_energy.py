@@ -85,6 +85,7 @@ from mpsobs.estimators.wide_energy import (
     NEWTON_STEPS,
     PROBABILITY_FLOOR,
     RESOLUTION_ORDER_FACTOR,
+    _check_resolution,
     _entropy,
     _mirror_model,
     _mirror_segment,
@@ -413,13 +414,7 @@ def _check_settings(cg, moments, bond, sub_bins, exact_sites) -> None:
         raise InputError(f"regions: the joint number and energy of wide regions is "
                          f"evaluated for 2 regions; got {len(cg.regions)} (the energy alone "
                          f"takes up to 3)")
-    for name, value, minimum in (("moments", moments, 4), ("bond", bond, 2),
-                                 ("sub_bins", sub_bins, 2), ("exact_sites", exact_sites, 0)):
-        if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
-            raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
-    if moments % 2:
-        raise InputError(f"moments: expected an even number (it is halved for the error "
-                         f"estimate), got {moments}")
+    _check_resolution(moments, bond, sub_bins, exact_sites)
 
 
 @limits_threads(lambda call: state_size(call.arguments["state"]))
