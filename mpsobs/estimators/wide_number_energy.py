@@ -179,11 +179,12 @@ def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarra
         if not cols.size:
             continue
         u, s, vh = robust_svd(centre[np.ix_(rows, cols)])
-        big = np.zeros((centre.shape[0], s.size), dtype=complex)
-        big[rows] = u
-        wide = np.zeros((s.size, centre.shape[1]), dtype=complex)
-        wide[:, cols] = vh
-        us.append(big), ss.append(s), vhs.append(wide), numbers.append(np.full(s.size, c))
+        us.append(np.zeros((centre.shape[0], s.size), dtype=complex))
+        us[-1][rows] = u
+        vhs.append(np.zeros((s.size, centre.shape[1]), dtype=complex))
+        vhs[-1][:, cols] = vh
+        ss.append(s)
+        numbers.append(np.full(s.size, c))
     lam = np.concatenate(ss)
     left = [*out[:cut - 1], np.tensordot(out[cut - 1], np.hstack(us), axes=(2, 0))]
     right = [np.tensordot(np.vstack(vhs), out[cut], axes=(1, 0)), *out[cut + 1:]]
@@ -223,22 +224,19 @@ def _state_sectors(mps, cut: int, regions, n_moments: int,
 
 def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
     """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
-    renormalised)."""
+    renormalised). A pair of sectors contributes when both hold the same Schmidt indices
+    (charges: n_B = N - n_A; phases: every pair). Cost per pair N^2 chi^2."""
     weights = [chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
                for r in regions]
     p = np.zeros((regions[0].model.L + 1, len(regions[0].bins),
                   regions[1].model.L + 1, len(regions[1].bins)))
     for sa in sectors[0]:
+        ma = (sa.moments[:n_moments] * np.outer(lam[sa.index], lam[sa.index])).reshape(
+            n_moments, -1)
         for sb in sectors[1]:
-            _, ia, ib = np.intersect1d(sa.index, sb.index, assume_unique=True,
-                                       return_indices=True)
-            if not ia.size:
-                continue
-            w = np.outer(lam[sa.index[ia]], lam[sa.index[ia]])
-            ma = sa.moments[:n_moments][:, ia][:, :, ia] * w
-            mb = sb.moments[:n_moments][:, ib][:, :, ib]
-            mu = (ma.reshape(n_moments, -1) @ mb.reshape(n_moments, -1).T).real
-            p[sa.number, :, sb.number, :] += weights[0] @ mu @ weights[1].T
+            if np.array_equal(sa.index, sb.index):
+                mu = (ma @ sb.moments[:n_moments].reshape(n_moments, -1).T).real
+                p[sa.number, :, sb.number, :] = weights[0] @ mu @ weights[1].T
     p = np.clip(p, 0.0, None)
     return p / p.sum()
 
