@@ -1,7 +1,8 @@
 """Cost of the joint number and energy of two wide regions against the energy alone.
 
 An XXZ chain (delta = 0.5, staggered field h = 0.1) starts in the Neel state and is
-evolved by TEBD (order 4, dt = 0.05) to t = --time at bond chi; then the halves are
+evolved by TEBD (order 4, dt = 0.05) to t = --time at bond chi; then the halves (the
+first at least 13 sites, so that it is wide) are
 evaluated by :func:`mpsobs.estimators.wide_energy.wide_energy_entropy` (the baseline,
 energy alone) and by
 :func:`mpsobs.estimators.wide_number_energy.wide_number_energy_entropy` (number and
@@ -52,7 +53,8 @@ def main() -> None:
         model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
         state = list(tebd.evolve(states.neel(L), model, [args.time], max_bond=chi,
                                  cutoff=1e-10, dt=0.05, order=4))[-1].state
-        halves = [[0, L // 2], [L // 2, L]]
+        cut = max(coarse.MAX_BLOCK_SITES + 1, L // 2)
+        halves = [[0, cut], [cut, L]]
         energy = coarse.blocks(L, None, "energy", model=model, bin_width=args.bin_width,
                                regions=halves)
         joint = coarse.sequence(coarse.blocks(L, None, "number", regions=halves), energy)
@@ -67,7 +69,8 @@ def main() -> None:
               f"{both.entropy:9.4f} {_total(both):6.3f}", flush=True)
     L = 16 if args.quick else 32
     model = models.xxz(L, delta=0.5)
-    halves = [[0, 13], [13, L]] if L < 26 else [[0, L // 2], [L // 2, L]]
+    cut = max(coarse.MAX_BLOCK_SITES + 1, L // 2)
+    halves = [[0, cut], [cut, L]]
     joint = coarse.sequence(coarse.blocks(L, None, "number", regions=halves),
                             coarse.blocks(L, None, "energy", model=model, bin_width=2.0,
                                           regions=halves))
