@@ -536,8 +536,8 @@ def _wide_number_energy(parts) -> WideEnergyRegions:
     the number blocks of the same regions, in the order given (a number-conserving model
     only: there the two commute region by region)."""
     names = tuple("energy" if isinstance(p, WideEnergyRegions) else
-                  "number" if isinstance(p, BlockCoarseGraining)
-                  and [st.name for st in p.stages] == ["number"] else type(p).__name__
+                  " then ".join(st.name for st in p.stages)
+                  if isinstance(p, BlockCoarseGraining) else type(p).__name__
                   for p in parts)
     allowed = " or ".join(" then ".join(s) for s in WIDE_SEQUENCES)
     if names not in WIDE_SEQUENCES or any(p.observables != ("energy",) for p in parts
