@@ -38,7 +38,7 @@ SUBMODULES = {
     "dense": "estimators.dense", "blocktensors": "estimators.blocktensors",
     "estimate": "estimators.estimate", "result": "estimators.result",
     "entropy": "estimators.entropy", "chebyshev": "estimators.chebyshev",
-    "wide_energy": "estimators.wide_energy",
+    "wide_energy": "estimators.wide_energy", "wide_number_energy": "estimators.wide_number_energy",
     "gaussian": "references.gaussian", "thermo": "references.thermo",
     "spec": "pipeline.spec", "columns": "pipeline.columns", "point": "pipeline.point",
     "quench": "pipeline.quench", "store": "pipeline.store", "sweep": "pipeline.sweep",

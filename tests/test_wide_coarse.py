@@ -58,8 +58,8 @@ def test_wide_energy_refusals_name_the_field(kwargs, field, words):
         coarse.blocks(40, None, "energy", model=model, **kwargs)
 
 
-def test_wide_energy_regions_are_refused_in_a_sequence():
-    model = models.xxz(30, delta=0.5)
+def test_wide_energy_regions_are_refused_in_a_sequence_without_number_conservation():
+    model = models.ising(30)
     wide = coarse.blocks(30, 15, "energy", model=model, bin_width=1.0)
     number = coarse.blocks(30, 15, "number")
     with pytest.raises(InputError, match="^sequence:.*wider than"):

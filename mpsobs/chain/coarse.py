@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from math import comb
 
 import numpy as np
@@ -37,7 +37,7 @@ from mpsobs.core.printing import number, short, size_range
 
 __all__ = [
     "Macrostate", "Block", "BlockCoarseGraining", "ProjectorCoarseGraining",
-    "WideEnergyRegions", "blocks", "sequence", "projectors", "OBSERVABLES",
+    "WideEnergyRegions", "blocks", "sequence", "projectors", "OBSERVABLES", "WIDE_SEQUENCES",
 ]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
@@ -198,6 +198,12 @@ class WideEnergyRegions(_ChainOfQubits):
     :meth:`mpsobs.models.Model.block_hamiltonian`), the ``regions`` (at most
     MAX_WIDE_REGIONS, covering the chain) and the ``bin_width`` dE: outcome of region R is
     the bin floor(E_R / dE). :func:`mpsobs.wide_energy.wide_energy_entropy` evaluates it.
+
+    ``observables`` is ("energy",), or for a number-conserving model the joint number and
+    energy of every region in the order asked, ("number", "energy") or ("energy",
+    "number") (from :func:`sequence`; the two commute, so the order changes only the
+    order of the outcome columns): outcome of region R is (n_R, b_R) or (b_R, n_R),
+    evaluated by :func:`mpsobs.estimators.wide_number_energy.wide_number_energy_entropy`.
     """
 
     L: int
@@ -205,11 +211,14 @@ class WideEnergyRegions(_ChainOfQubits):
     model: Model
     bin_width: float
     label: str
+    observables: tuple[str, ...] = ("energy",)
 
     def __repr__(self) -> str:
+        joint = self.observables != ("energy",)
+        asked = f"; asks {' then '.join(self.observables)}" if joint else ""
         return (f"WideEnergyRegions({short(self.label, 60)!r}, L={self.L}, "
                 f"{len(self.regions)} regions of {size_range(b - a for a, b in self.regions)} "
-                f"sites, bin width {number(self.bin_width)})")
+                f"sites, bin width {number(self.bin_width)}{asked})")
 
 
 # --------------------------------------------------------------------------- regions
@@ -486,11 +495,13 @@ def sequence(first, second, *more):
 
     Block coarse-grainings must share L and the partition; projector coarse-grainings
     must share the dimension. The outcome labels are tuples with one value per stage.
+    Energy regions wider than MAX_BLOCK_SITES take part only with the number blocks of
+    the same two regions, in either order (:data:`WIDE_SEQUENCES`), for a model that
+    conserves the number: a :class:`WideEnergyRegions` asking both.
     """
     parts = (first, second, *more)
     if any(isinstance(p, WideEnergyRegions) for p in parts):
-        raise InputError(f"sequence: energy regions wider than {MAX_BLOCK_SITES} sites cannot "
-                         f"be part of a sequence (asked alone only)")
+        return _wide_number_energy(parts)
     if all(isinstance(p, BlockCoarseGraining) for p in parts):
         ref = parts[0]
         for i, p in enumerate(parts[1:], start=2):
@@ -514,6 +525,41 @@ def sequence(first, second, *more):
     names = sorted({type(p).__name__ for p in parts})
     raise InputError(f"sequence: cannot mix {', '.join(names)}; give all block "
                      f"coarse-grainings or all projector coarse-grainings")
+
+
+#: The sequences accepted on energy regions wider than MAX_BLOCK_SITES.
+WIDE_SEQUENCES = (("number", "energy"), ("energy", "number"))
+
+
+def _wide_number_energy(parts) -> WideEnergyRegions:
+    """The joint number and energy of wide regions, from a wide energy coarse-graining and
+    the number blocks of the same regions, in the order given (a number-conserving model
+    only: there the two commute region by region)."""
+    names = tuple("energy" if isinstance(p, WideEnergyRegions) else
+                  " then ".join(st.name for st in p.stages)
+                  if isinstance(p, BlockCoarseGraining) else type(p).__name__
+                  for p in parts)
+    allowed = " or ".join(" then ".join(s) for s in WIDE_SEQUENCES)
+    if names not in WIDE_SEQUENCES or any(p.observables != ("energy",) for p in parts
+                                           if isinstance(p, WideEnergyRegions)):
+        raise InputError(f"sequence: energy regions wider than {MAX_BLOCK_SITES} sites are "
+                         f"asked alone or jointly with the number of the same regions "
+                         f"({allowed}); got {' then '.join(names)}")
+    energy = next(p for p in parts if isinstance(p, WideEnergyRegions))
+    counted = next(p for p in parts if not isinstance(p, WideEnergyRegions))
+    if counted.L != energy.L or counted.regions != energy.regions:
+        raise InputError(f"sequence: the number blocks {list(counted.regions)} are not the "
+                         f"energy regions {list(energy.regions)}; ask both on the same regions")
+    if len(energy.regions) != 2:
+        raise InputError(f"regions: the joint number and energy of regions wider than "
+                         f"{MAX_BLOCK_SITES} sites is evaluated for 2 regions; got "
+                         f"{len(energy.regions)} (the energy alone takes up to "
+                         f"{MAX_WIDE_REGIONS})")
+    if not energy.model.conserves_number:
+        raise InputError(f"sequence: the number and energy of regions wider than "
+                         f"{MAX_BLOCK_SITES} sites are asked jointly only for a model that "
+                         f"conserves the number (xxz); model {energy.model.name!r} does not")
+    return replace(energy, label=">".join(p.label for p in parts), observables=names)
 
 
 def projectors(ops: Sequence[np.ndarray], label: str = "projectors",

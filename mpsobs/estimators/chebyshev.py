@@ -35,8 +35,8 @@ from mpsobs.core.errors import InputError
 from mpsobs.mps.evolution import GateChain, Gates, layer_schedule
 from mpsobs.mps.tensors import robust_svd
 
-__all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "moment_tensor", "jackson",
-           "bin_weights", "gibbs_segment", "SPECTRUM_MARGIN"]
+__all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "moment_tensor",
+           "commuting_moments", "jackson", "bin_weights", "gibbs_segment", "SPECTRUM_MARGIN"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Relative margin added to the spectrum bounds so that Ht stays inside (-1, 1).
@@ -189,6 +189,17 @@ def moment_tensor(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moment
     out = _chebyshev_overlaps(seg, mpo, n_moments, max_bond,
                               lambda x, y: _sandwich(x, y, left, right))
     return out.real.transpose(1, 0, 2)
+
+
+def commuting_moments(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moments: int,
+                      max_bond: int, overlap) -> np.ndarray:
+    """out[n] = overlap(|v>, T_n(Ht) |v>), n = 0 .. n_moments - 1, for ``overlap(x, y)`` =
+    <x| X |y> of an operator X that commutes with Ht (antilinear in x, linear in y; e.g.
+    exp(i theta N) for a number-conserving H, stacked over theta), so that the moments
+    2k and 2k + 1 come from the vectors of order k as in :func:`moment_matrices`, whose
+    recursion and compressions this is. Cost those of :func:`moment_matrices` plus
+    n_moments calls of ``overlap``."""
+    return _chebyshev_overlaps(seg, mpo, n_moments, max_bond, overlap)
 
 
 def _sandwich(x: Sequence[np.ndarray], y: Sequence[np.ndarray], left: np.ndarray,

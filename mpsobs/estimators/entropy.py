@@ -55,9 +55,10 @@ def observational_entropy(state, coarse_graining, *, samples: int | None = None,
         raises InputError saying how to normalise it).
     coarse_graining : from :mod:`mpsobs.coarse`. Energy regions wider than
         ``coarse.MAX_BLOCK_SITES`` (:class:`mpsobs.coarse.WideEnergyRegions`) go to
-        :func:`mpsobs.wide_energy.wide_energy_entropy` (method None or "approximate";
-        settings ``moments``, ``bond``, ``sub_bins``, else its defaults; a dense vector is
-        made an exact MPS).
+        :func:`mpsobs.wide_energy.wide_energy_entropy`, their joint number and energy
+        to :func:`mpsobs.estimators.wide_number_energy.wide_number_energy_entropy`
+        (method None or "approximate"; settings ``moments``, ``bond``, ``sub_bins``, else
+        its defaults; a dense vector is made an exact MPS).
     samples, seed, method, options : estimator settings for MPS states (see
         :func:`mpsobs.estimate.mps_observational_entropy`: ``method`` None, "sample",
         "sample_strings", "enumerate", "count" or "exact"). Dense states are always
@@ -97,6 +98,7 @@ def _wide(state, cg: WideEnergyRegions, samples, method, options) -> EntropyResu
     """The wide-region energy estimator with its resolution settings
     (:data:`WIDE_SETTINGS`, None for its defaults) and no other estimator setting."""
     from mpsobs.estimators.wide_energy import wide_energy_entropy
+    from mpsobs.estimators.wide_number_energy import wide_number_energy_entropy
     from mpsobs.mps.tensors import from_dense
 
     given = [name for name, value in (("samples", samples), *options.items())
@@ -112,4 +114,6 @@ def _wide(state, cg: WideEnergyRegions, samples, method, options) -> EntropyResu
             raise InputError("state: wide energy regions take a state vector or an MPS, not "
                              "a density matrix (give a purification, PurifiedMPS)")
         state = from_dense(state)
-    return wide_energy_entropy(state, cg, **settings)
+    if cg.observables == ("energy",):
+        return wide_energy_entropy(state, cg, **settings)
+    return wide_number_energy_entropy(state, cg, **settings)

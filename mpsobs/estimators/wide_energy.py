@@ -512,6 +512,17 @@ def _entropy(p: np.ndarray, log_vs) -> tuple[_Parts, float]:
     return _Parts(shannon + boltzmann, shannon, boltzmann), dropped
 
 
+def _check_resolution(moments, bond, sub_bins, exact_sites) -> None:
+    """InputError naming the first resolution setting out of range."""
+    for name, value, minimum in (("moments", moments, 4), ("bond", bond, 2),
+                                 ("sub_bins", sub_bins, 2), ("exact_sites", exact_sites, 0)):
+        if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
+            raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
+    if moments % 2:
+        raise InputError(f"moments: expected an even number (it is halved for the error "
+                         f"estimate), got {moments}")
+
+
 @limits_threads(lambda call: state_size(call.arguments["state"]))
 def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_MOMENTS,
                         bond: int = DEFAULT_BOND, sub_bins: int = DEFAULT_SUB_BINS,
@@ -541,16 +552,10 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     the total error (:mod:`mpsobs.analysis.uncertainty`); ``distribution`` the bins
     (b_A, b_B), or (b_A, b_C, b_B), with p > 1e-14.
     """
-    if not isinstance(cg, WideEnergyRegions):
+    if not isinstance(cg, WideEnergyRegions) or cg.observables != ("energy",):
         raise InputError(f"coarse_graining: expected wide energy regions from "
-                         f"mpsobs.coarse.blocks, got {type(cg).__name__}")
-    for name, value, minimum in (("moments", moments, 4), ("bond", bond, 2),
-                                 ("sub_bins", sub_bins, 2), ("exact_sites", exact_sites, 0)):
-        if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < minimum:
-            raise InputError(f"{name}: expected an integer >= {minimum}, got {value!r}")
-    if moments % 2:
-        raise InputError(f"moments: expected an even number (it is halved for the error "
-                         f"estimate), got {moments}")
+                         f"mpsobs.coarse.blocks, got {getattr(cg, 'label', type(cg).__name__)}")
+    _check_resolution(moments, bond, sub_bins, exact_sites)
     mps = canonical_state(state, cg.L)
     segments, lam = _segments(mps, cg.regions)
     volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)

@@ -332,9 +332,10 @@ def _coarse_section(value: Any) -> list[dict]:
         if wide.get("moments", 0) % 2:
             raise key_error(f"{path}.moments", f"expected an even integer >= 4 (it is halved "
                             f"for the error estimate), got {wide['moments']}")
-        if wide and names != ["energy"]:
+        if wide and "energy" not in names:
             raise key_error(f"{path}.{next(iter(wide))}", "only the energy observable of wide "
-                            "regions takes it (observable = \"energy\" alone)")
+                            "regions takes it (observable = \"energy\", alone or with "
+                            "\"number\")")
         for b, w in itertools.product(blocks, widths):
             entry = {"observable": list(names), "block": b, "regions": regions,
                      "bin_width": w, "label": label, "path": path}

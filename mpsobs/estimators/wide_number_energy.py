@@ -1,0 +1,492 @@
+"""Observational entropy of the joint number and energy of two large regions of an MPS.
+
+The coarse-graining (:class:`mpsobs.coarse.WideEnergyRegions` with ``observables``
+("number", "energy") or ("energy", "number"), for a number-conserving model) asks of the
+left part A = sites 0 .. c - 1 and of the right part B = c .. L - 1 the number n_R of
+sites in |1> and the energy bin b_R = floor(E_R / dE) of H_R (the model's terms wholly
+inside R). N_R commutes with H_R, so the order of the two changes only the order of the
+outcome columns. Outcomes (n_A, b_A, n_B, b_B) have
+
+    p = <psi| P_A(n_A) P_A(b_A) P_B(n_B) P_B(b_B) |psi>,
+    V = Omega_A(n_A, b_A) Omega_B(n_B, b_B),
+
+Omega_R(n, b) the number of eigenvalues of H_R in the number-n sector in bin b.
+
+Probabilities: the kernel polynomial method of :mod:`mpsobs.estimators.wide_energy`
+(Rev. Mod. Phys. 78, 275 (2006)) resolved by the number.
+- A pure state with a definite total number N: in a bond basis of definite charges
+  (:func:`mpsobs.mps.charges.definite_charges`, U(1) MPS: Phys. Rev. B 83, 115125
+  (2011)) the mixed-canonical form at the cut is computed charge block by charge block,
+  so every Schmidt vector |L_a> has a definite number n_a of A and |R_a> the number
+  N - n_a. H_A conserves the number, so the moment matrices M^A_k[a, b] = <L_a|
+  T_k(Ht_A) |L_b> (and M^B) are block-diagonal in the charge and P_A(n) keeps the block
+  n_a = n: mu_km(n) = sum over a, b of charge n of lambda_a lambda_b M^A_k[a, b]
+  M^B_m[a, b], p(n, b_A, N - n, b_B) = C_A mu(n) C_B^T. The Chebyshev runs are those of
+  the energy alone; the extra work is the charged split (L chi^3 d).
+- A purification (a Gibbs state, :class:`mpsobs.mps.PurifiedMPS`): its bonds carry the
+  charge n_spin - n_ancilla, not the number of the spins of a region, so the number is
+  resolved by phases instead, P_R(n) = (1 / K) sum_j e^(-i t_j n) e^(i t_j N_R), t_j =
+  2 pi j / K, K = n_R + 1 sites of R plus one (exact for 0 <= n <= n_R): the moments
+  <L_a| e^(i t N_A) T_k(Ht_A) |L_b> of all K phases come from the same Chebyshev
+  vectors (e^(i t N_A) commutes with H_A; :func:`mpsobs.chebyshev.commuting_moments`),
+  each overlap K times (K n d chi^3 instead of n d chi^3), and mu is formed for every
+  pair (n_A, n_B): K_A K_B N^2 chi^2 flops and K N chi^2 numbers per region.
+Negative values of the damped series are set to zero and p renormalised.
+
+Volumes Omega_R(n, b). Regions of at most ``exact_sites`` sites: the eigenvalues of each
+number sector of H_R counted per bin (exact; cost sum_n C(n_R, n)^3). Wider regions:
+reweighting from grand-canonical Gibbs states of the region (DESIGN 3c with a chemical
+potential), rho = e^(-beta H_R + nu N_R) / Z, Omega_R(n, b) = Z sum_{E in b}
+p(n, E) e^(beta E - nu n), with p(n, E) on sub-bins from the phase-resolved Chebyshev
+moments of its purification (:func:`mpsobs.chebyshev.gibbs_segment` of beta H_R, which
+gives ln Z(beta), times the product e^(nu N_R / 2), exact since N_R commutes with H_R,
+whose norm gives the rest of ln Z). (beta, nu) by two-dimensional Newton steps so that
+<H_R> lies near the state's mean regional energy (and its mean +- 2 standard
+deviations: three references) and <N_R> near the state's mean regional number; each
+(n, b) uses the reference that gives it the most weight (whose relative error is then
+the smallest); |beta| is capped as in
+:mod:`mpsobs.estimators.wide_energy`, |nu| at MAX_NU.
+
+Error (``method_err``, an estimate, not a bound): as in
+:mod:`mpsobs.estimators.wide_energy`, the changes of S_obs when the moments are halved
+(divided by sqrt(2) - 1), the compression bond is halved (state and references) and the
+sub-bins are halved; ``pruned_mass`` the probability the smoothed series puts into
+(n, b) without eigenvalues (exact-count regions) or without a positive reweighted
+volume.
+
+Cost: the Chebyshev runs of the energy alone (two per region, bonds D and D / 2, N / 2
+compressions of about 3 n d ((w + 1) D)^3 each), plus for each wide region three Gibbs
+references with Newton builds at NEWTON_BOND and two builds and phase-resolved runs
+(K phases, d = 4) at D and D / 2. Two regions only (three are refused).
+"""
+
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.special import logsumexp
+
+from mpsobs.chain.coarse import WideEnergyRegions
+from mpsobs.chain.models import Model
+from mpsobs.core.errors import InputError
+from mpsobs.core.threads import limits_threads, state_size
+from mpsobs.estimators import chebyshev
+from mpsobs.estimators.estimate import canonical_state
+from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
+from mpsobs.estimators.wide_energy import (
+    DEFAULT_BOND,
+    DEFAULT_MOMENTS,
+    DEFAULT_SUB_BINS,
+    EXACT_VOLUME_SITES,
+    MAX_BETA_RESOLUTION,
+    NEWTON_BOND,
+    NEWTON_STEPS,
+    PROBABILITY_FLOOR,
+    RESOLUTION_ORDER_FACTOR,
+    _check_resolution,
+    _entropy,
+    _mirror_model,
+    _mirror_segment,
+    _moments,
+    _Region,
+    _region,
+    _split,
+    _targets,
+)
+from mpsobs.mps.charges import block_qr, col_charges, definite_charges, local_charges
+from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
+
+__all__ = ["wide_number_energy_entropy", "sector_volumes", "MAX_NU"]
+__dir__ = list(__all__).copy  # dir() lists the public names, not the imports
+
+#: Largest |nu| = |beta mu| of a volume reference (e^(nu) per particle).
+MAX_NU = 20.0
+
+
+# --------------------------------------------------------------------------- phases
+
+
+def _spin_numbers(d: int) -> np.ndarray:
+    """Number of the spin of each site value: [0, 1] (d = 2), [0, 0, 1, 1] (d = 4,
+    index 2 s + a)."""
+    return np.arange(d) // (d // 2)
+
+
+def _phases(n_sites: int) -> np.ndarray:
+    """e^(i t_j), t_j = 2 pi j / K, j = 0 .. K - 1, K = n_sites + 1."""
+    return np.exp(2j * np.pi * np.arange(n_sites + 1) / (n_sites + 1))
+
+
+def _phase_gram(x, y, phases: np.ndarray) -> np.ndarray:
+    """G[j, a, b] = <x_a| e^(i t_j N) |y_b> over segments with an open right bond (N the
+    number of spins of the segment). Cost K n d chi^3."""
+    env = np.ones((len(phases), 1, 1), dtype=complex)
+    for a, b in zip(x, y, strict=True):
+        w = phases[:, None] ** _spin_numbers(a.shape[1])[None, :]     # (K, d)
+        t = np.tensordot(env, a.conj(), axes=(1, 0)) * w[:, None, :, None]  # (K, m, d, r)
+        env = np.einsum("kmdr,mdq->krq", t, b, optimize=True)
+    return env
+
+
+def _to_sectors(raw: np.ndarray, axis: int) -> np.ndarray:
+    """The phase axis (K phases) of ``raw`` -> number sectors n = 0 .. K - 1 at the front:
+    P(n) = (1 / K) sum_j e^(-i t_j n) e^(i t_j N)."""
+    k = raw.shape[axis]
+    dft = np.exp(-2j * np.pi * np.outer(np.arange(k), np.arange(k)) / k) / k
+    return np.tensordot(dft, raw, axes=(1, axis))
+
+
+def _sector_moments(segment, region: _Region, n_moments: int, bond: int,
+                    n_sites: int) -> np.ndarray:
+    """<v_a| P(n) T_k(Ht) |v_b> of a segment's vectors, (n_sites + 1, N, chi, chi)."""
+    d = segment[0].shape[1]
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, d)
+    phases = _phases(n_sites)
+    raw = chebyshev.commuting_moments(segment, mpo, n_moments, bond,
+                                      lambda x, y: _phase_gram(x, y, phases))
+    return _to_sectors(raw, 1)
+
+
+# --------------------------------------------------------------------------- the state
+
+
+def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarray, int]:
+    """Mixed-canonical form at the bond before ``cut`` with a definite number per Schmidt
+    vector: (left-canonical tensors of 0 .. cut - 1, Schmidt values, right-canonical
+    tensors of cut .. L - 1, the number of A of each Schmidt vector, the total number).
+    InputError if the state has no definite number. Cost L chi^3 d."""
+    found = definite_charges(list(tensors))
+    if found is None:
+        raise InputError("state: it has no definite particle number (a bond basis of "
+                         "definite charge does not exist), so the number of a region is not "
+                         "resolved by charges; the joint number and energy of wide regions "
+                         "needs a state of definite number (or a purification)")
+    out, charges = found
+    out, local = list(out), local_charges(2)
+    centre, right_q = np.eye(1), charges[-1]
+    for i in range(len(out) - 1, cut - 1, -1):   # right-canonical, charge block by block
+        t = np.tensordot(out[i], centre, axes=(2, 0))
+        chl, d, chr_ = t.shape
+        q, r, right_q = block_qr(t.reshape(chl, d * chr_).T, col_charges(right_q, local),
+                                 charges[i])
+        out[i], centre = q.T.reshape(-1, d, chr_), r.T
+    left_q = charges[cut]
+    us, ss, vhs, numbers = [], [], [], []
+    for c in np.unique(left_q):
+        rows, cols = np.flatnonzero(left_q == c), np.flatnonzero(right_q == c)
+        if not cols.size:
+            continue
+        u, s, vh = robust_svd(centre[np.ix_(rows, cols)])
+        us.append(np.zeros((centre.shape[0], s.size), dtype=complex))
+        us[-1][rows] = u
+        vhs.append(np.zeros((s.size, centre.shape[1]), dtype=complex))
+        vhs[-1][:, cols] = vh
+        ss.append(s)
+        numbers.append(np.full(s.size, c))
+    lam = np.concatenate(ss)
+    left = [*out[:cut - 1], np.tensordot(out[cut - 1], np.hstack(us), axes=(2, 0))]
+    right = [np.tensordot(np.vstack(vhs), out[cut], axes=(1, 0)), *out[cut + 1:]]
+    return left, lam, right, np.concatenate(numbers), int(charges[-1][0])
+
+
+@dataclass(frozen=True)
+class _Sector:
+    """The moments <v_a| P(n) T_k |v_b> of a region for the Schmidt indices ``index``."""
+
+    number: int
+    index: np.ndarray
+    moments: np.ndarray   # (N, len(index), len(index))
+
+
+def _state_sectors(mps, cut: int, regions, n_moments: int,
+                   bond: int) -> tuple[np.ndarray, list[list[_Sector]]]:
+    """The Schmidt values at the cut and the number-resolved moment matrices of A and B
+    (B mirrored): by charges for a pure state, by phases for a purification."""
+    sizes = [r.model.L for r in regions]
+    if isinstance(mps, PurifiedMPS):
+        left, lam, right = _split(mps.tensors, cut)
+        segments = (left, _mirror_segment(right))
+        everyone = np.arange(lam.size)
+        return lam, [[_Sector(n, everyone, m) for n, m in
+                      enumerate(_sector_moments(seg, r, n_moments, bond, size))]
+                     for seg, r, size in zip(segments, regions, sizes, strict=True)]
+    left, lam, right, numbers, total = _charged_split(mps.tensors, cut)
+    out = []
+    for seg, r, own in ((left, regions[0], numbers),
+                        (_mirror_segment(right), regions[1], total - numbers)):
+        m = _moments(seg, r, n_moments, bond)
+        out.append([_Sector(int(n), idx, m[:, idx][:, :, idx])
+                    for n in np.unique(own) for idx in [np.flatnonzero(own == n)]])
+    return lam, out
+
+
+def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
+    """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
+    renormalised). A pair of sectors contributes when both hold the same Schmidt indices
+    (charges: n_B = N - n_A; phases: every pair). Cost per pair N^2 chi^2."""
+    weights = [chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
+               for r in regions]
+    p = np.zeros((regions[0].model.L + 1, len(regions[0].bins),
+                  regions[1].model.L + 1, len(regions[1].bins)))
+    for sa in sectors[0]:
+        ma = (sa.moments[:n_moments] * np.outer(lam[sa.index], lam[sa.index])).reshape(
+            n_moments, -1)
+        for sb in sectors[1]:
+            if np.array_equal(sa.index, sb.index):
+                mu = (ma @ sb.moments[:n_moments].reshape(n_moments, -1).T).real
+                p[sa.number, :, sb.number, :] = weights[0] @ mu @ weights[1].T
+    p = np.clip(p, 0.0, None)
+    return p / p.sum()
+
+
+# --------------------------------------------------------------------------- volumes
+
+
+def _sector_eigenvalues(model: Model) -> list[np.ndarray]:
+    """Eigenvalues of H of each number sector n = 0 .. L (exact diagonalisation, L <= 16)."""
+    h = model.sparse_hamiltonian().tocsr()
+    count = np.array([bin(s).count("1") for s in range(2**model.L)])
+    return [np.linalg.eigvalsh(h[idx][:, idx].toarray())
+            for n in range(model.L + 1) for idx in [np.flatnonzero(count == n)]]
+
+
+def _with_fugacity(seg: list[np.ndarray], nu: float) -> tuple[list[np.ndarray], float]:
+    """e^(nu N / 2) |g> normalised (left-canonical, N the spins' number; a product of
+    one-site factors, exact) and ln <g| e^(nu N) |g> for a normalised segment |g> with
+    bonds 1 at both ends. Cost n d chi^3."""
+    shift = max(nu, 0.0)   # factors e^(nu (s - 1) / 2) <= 1 for nu > 0: no overflow
+    w = np.exp(nu / 2 * _spin_numbers(seg[0].shape[1]) - shift / 2)
+    out, carry, log_norm = [], np.ones((1, 1)), 0.0
+    for i, t in enumerate(seg):
+        t = np.tensordot(carry, t * w[None, :, None], axes=(1, 0))
+        scale = float(np.linalg.norm(t))
+        t, log_norm = t / scale, log_norm + np.log(scale)
+        if i < len(seg) - 1:
+            q, carry = np.linalg.qr(t.reshape(-1, t.shape[2]))
+            t = q.reshape(t.shape[0], t.shape[1], -1)
+        out.append(t)
+    return out, 2 * log_norm + shift * len(seg)
+
+
+@dataclass(frozen=True)
+class _GibbsPoint:
+    """A grand-canonical reference e^(-beta H + nu N) / Z: its <H>, and at the
+    compression bond (and half of it, ``*_low``) ln Z and the moments of Ht per number
+    sector (K, N)."""
+
+    beta: float
+    nu: float
+    energy: float
+    log_z: float
+    log_z_low: float
+    moments: np.ndarray
+    moments_low: np.ndarray
+
+
+def _gibbs_run(region: _Region, beta: float, nu: float, n_moments: int,
+               bond: int) -> tuple[float, np.ndarray]:
+    """ln Z and the number-resolved moments (K, N) of Ht in e^(-beta H + nu N) / Z: the
+    Gibbs segment of beta H (:func:`mpsobs.chebyshev.gibbs_segment`) times e^(nu N / 2)
+    (N commutes with H), ln Z = ln Z(beta) + ln <g| e^(nu N) |g>."""
+    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
+    seg, log_z = chebyshev.gibbs_segment(mpo, beta, region.centre, region.half_width, bond)
+    seg, log_weight = _with_fugacity(seg, nu)
+    moments = _sector_moments(seg, region, n_moments, bond, region.model.L)
+    return log_z + log_weight, moments[:, :, 0, 0].real
+
+
+def _gibbs_point(region: _Region, target: float, number: float, n_moments: int,
+                 bond: int) -> _GibbsPoint:
+    """The region's reference with <H_R> near ``target`` and <N_R> near ``number``:
+    Newton steps in (beta, nu) from (0, 0) (d<H>/dbeta = -Var H, d<H>/dnu = Cov(H, N),
+    d<N>/dbeta = -Cov(H, N), d<N>/dnu = Var N) until both are within half a standard
+    deviation, at most NEWTON_STEPS, |beta| <= MAX_BETA_RESOLUTION / delta (as
+    :mod:`mpsobs.estimators.wide_energy`) and |nu| <= MAX_NU."""
+    a, c = region.half_width, region.centre
+    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
+    beta = nu = 0.0
+    n = np.arange(region.model.L + 1)
+    for _ in range(NEWTON_STEPS):
+        _, m = _gibbs_run(region, beta, nu, 4, min(bond, NEWTON_BOND))
+        w, x1, x2 = m[:, 0], m[:, 1], (m[:, 2] + m[:, 0]) / 2   # P(n), <Ht; n>, <Ht^2; n>
+        mean_n, mean_x = w @ n, x1.sum()
+        var_n, var_x = w @ n**2 - mean_n**2, x2.sum() - mean_x**2
+        cov = x1 @ n - mean_x * mean_n
+        var_h, cov_h, mean_h = a * a * var_x, a * cov, c + a * mean_x
+        if var_h <= 0 or (abs(mean_h - target) <= 0.5 * np.sqrt(var_h)
+                          and abs(mean_n - number) <= 0.5 * np.sqrt(max(var_n, 0.0))):
+            break
+        jac = np.array([[-var_h, cov_h], [-cov_h, var_n]])
+        step = np.linalg.lstsq(jac, [target - mean_h, number - mean_n], rcond=None)[0]
+        new_beta = float(np.clip(beta + step[0], -beta_max, beta_max))
+        # nu from the number's row with the beta step taken (a capped beta must not
+        # make nu chase the energy)
+        dnu = (number - mean_n + cov_h * (new_beta - beta)) / var_n if var_n > 0 else 0.0
+        beta, nu = new_beta, float(np.clip(nu + dnu, -MAX_NU, MAX_NU))
+    (log_z, mu), (log_z_low, mu_low) = (_gibbs_run(region, beta, nu, n_moments, b)
+                                        for b in (bond, max(2, bond // 2)))
+    return _GibbsPoint(beta, nu, float(c + a * mu[:, 1].sum()), log_z, log_z_low, mu,
+                       mu_low)
+
+
+class _SectorVolumes:
+    """ln Omega_R(n, b) of one region: exact counts up to ``exact_sites`` sites, else
+    reweighted from grand-canonical references (module docstring)."""
+
+    def __init__(self, region: _Region, targets, number: float, n_moments: int, bond: int,
+                 exact_sites: int):
+        self.region = region
+        self.exact = region.model.L <= exact_sites
+        self.sector_bins = ([np.floor(w / region.bin_width).astype(np.int64)
+                             for w in _sector_eigenvalues(region.model)] if self.exact else [])
+        self.points = ([] if self.exact else
+                       [_gibbs_point(region, float(e), number, n_moments, bond)
+                        for e in targets])
+
+    def log_volumes(self, numbers, bins, n_moments: int, sub_bins: int,
+                    low: bool = False) -> np.ndarray:
+        """ln Omega(n, b) for the pairs (``numbers``[i], ``bins``[i])."""
+        width = self.region.bin_width
+        if self.exact:
+            counts = np.array([np.sum(self.sector_bins[n] == k)
+                               for n, k in zip(numbers, bins, strict=True)])
+            with np.errstate(divide="ignore"):
+                return np.log(counts.astype(float))
+        out = np.empty(len(bins))
+        for i, (n, k) in enumerate(zip(numbers, bins, strict=True)):
+            edges = (k + np.arange(sub_bins + 1) / sub_bins) * width
+            weights = chebyshev.bin_weights(edges, self.region.centre,
+                                            self.region.half_width, n_moments)
+            centres = (edges[:-1] + edges[1:]) / 2
+            subs = [weights @ (pt.moments_low if low else pt.moments)[n, :n_moments]
+                    for pt in self.points]
+            # the reference that puts the most weight into (n, b) resolves it best
+            best = int(np.argmax([np.clip(sub, 0.0, None).sum() for sub in subs]))
+            pt, p_sub = self.points[best], subs[best]
+            live = p_sub > 0
+            log_z = pt.log_z_low if low else pt.log_z
+            out[i] = (log_z - pt.nu * n + logsumexp(np.log(p_sub[live])
+                                                      + pt.beta * centres[live])
+                      if live.any() else -np.inf)
+        return out
+
+
+def sector_volumes(model: Model, bin_width: float, numbers, bins, *, targets=None,
+                   number: float | None = None, n_moments: int = DEFAULT_MOMENTS,
+                   bond: int = DEFAULT_BOND, sub_bins: int = DEFAULT_SUB_BINS,
+                   exact_sites: int = EXACT_VOLUME_SITES) -> np.ndarray:
+    """ln Omega(n, b) of the whole number-conserving ``model`` taken as a region, for the
+    pairs (``numbers``[i], ``bins``[i]) of number sector and integer bin [k dE,
+    (k + 1) dE): exact counts up to ``exact_sites`` sites, else reweighted from Gibbs
+    references at the ``targets`` energies (default: the middle of the given bins) and
+    mean ``number`` (default: the mean of the given numbers)."""
+    if not model.conserves_number:
+        raise InputError(f"model: {model.name!r} does not conserve the number; number "
+                         f"sectors need a number-conserving model (xxz)")
+    numbers = np.asarray(numbers, dtype=np.int64)
+    bins = np.asarray(bins, dtype=np.int64)
+    region = _region(model, bin_width)
+    if targets is None:
+        targets = [(bins.mean() + 0.5) * bin_width]
+    vol = _SectorVolumes(region, targets, float(numbers.mean() if number is None else number),
+                         n_moments, bond, exact_sites)
+    return vol.log_volumes(numbers, bins, n_moments, sub_bins)
+
+
+# --------------------------------------------------------------------------- entropy
+
+
+def _region_marginals(p: np.ndarray) -> list[np.ndarray]:
+    """P(n_R, b_R) of each region."""
+    return [p.sum(axis=(2, 3)), p.sum(axis=(0, 1))]
+
+
+def _check_settings(cg, moments, bond, sub_bins, exact_sites) -> None:
+    if not isinstance(cg, WideEnergyRegions) or cg.observables == ("energy",):
+        raise InputError("coarse_graining: expected the joint number and energy of wide "
+                         "regions (mpsobs.coarse.sequence of the number and energy blocks of "
+                         "the same regions)")
+    if len(cg.regions) != 2:
+        raise InputError(f"regions: the joint number and energy of wide regions is "
+                         f"evaluated for 2 regions; got {len(cg.regions)} (the energy alone "
+                         f"takes up to 3)")
+    _check_resolution(moments, bond, sub_bins, exact_sites)
+
+
+@limits_threads(lambda call: state_size(call.arguments["state"]))
+def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
+                               moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
+                               sub_bins: int = DEFAULT_SUB_BINS,
+                               exact_sites: int = EXACT_VOLUME_SITES) -> EntropyResult:
+    """S_obs of the joint number and energy of the two regions of ``cg`` in ``state`` (an
+    MPS of definite number, or a purification), with its method error (module docstring).
+
+    Parameters
+    ----------
+    state : normalised MPS or :class:`mpsobs.mps.PurifiedMPS` of cg.L sites.
+    cg : from :func:`mpsobs.coarse.sequence` of the number and the energy blocks (either
+        order) of two regions of which one is wider than
+        :data:`mpsobs.coarse.MAX_BLOCK_SITES`, for a number-conserving model.
+    moments, bond, sub_bins, exact_sites : as
+        :func:`mpsobs.estimators.wide_energy.wide_energy_entropy`.
+
+    Returns
+    -------
+    EntropyResult with method "approximate", ``stderr`` 0, ``method_err`` (and the parts'
+    errors) the error estimate, ``pruned_mass`` the dropped probability; ``distribution``
+    the outcomes with p > 1e-14, columns per region in the order asked ((n_A, b_A, n_B,
+    b_B) for number then energy, (b_A, n_A, b_B, n_B) for energy then number).
+    """
+    _check_settings(cg, moments, bond, sub_bins, exact_sites)
+    mps = canonical_state(state, cg.L)
+    cut = cg.regions[0][1]
+    volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
+                           for x, y in cg.regions)
+    regions = (volume_regions[0], _region(_mirror_model(volume_regions[1].model),
+                                          cg.bin_width))
+    low_bond = max(2, bond // 2)
+    lam, sectors = _state_sectors(mps, cut, regions, moments, bond)
+    lam_low, sectors_low = _state_sectors(mps, cut, regions, moments, low_bond)
+    p = _joint(lam, sectors, regions, moments)
+    volumes = []
+    for vreg, marginal in zip(volume_regions, _region_marginals(p), strict=True):
+        mean_n = float(marginal.sum(axis=1) @ np.arange(len(marginal)))
+        volumes.append(_SectorVolumes(vreg, _targets(vreg, marginal.sum(axis=0)), mean_n,
+                                      moments, bond, exact_sites))
+
+    def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool):
+        log_v = []
+        for vol, marginal in zip(volumes, _region_marginals(probs), strict=True):
+            numbers, bins = np.nonzero(marginal > PROBABILITY_FLOOR)
+            values = np.full(marginal.shape, -np.inf)
+            values[numbers, bins] = vol.log_volumes(numbers, vol.region.bins[bins],
+                                                    n_moments, sub, low)
+            log_v.append(values.ravel())
+        flat = probs.reshape(len(log_v[0]), len(log_v[1]))
+        return _entropy(flat, log_v), log_v
+
+    (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
+    (half, _), _ = evaluate(_joint(lam, sectors, regions, moments // 2), moments // 2,
+                            sub_bins, False)
+    (low, _), _ = evaluate(_joint(lam_low, sectors_low, regions, moments), moments, sub_bins,
+                           True)
+    (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
+    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
+           + main.change(coarse_sub))
+    log_v = functools.reduce(np.add.outer, log_vols).reshape(p.shape)
+    live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    columns = []
+    for axis, reg in enumerate(volume_regions):
+        asked = {"number": live[:, 2 * axis], "energy": reg.bins[live[:, 2 * axis + 1]]}
+        columns += [asked[name] for name in cg.observables]
+    dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live.T)],
+                               np.exp(log_v[tuple(live.T)]))
+    bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
+    return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
+                         shannon_err=float(err[1]), boltzmann=main.boltzmann,
+                         boltzmann_err=float(err[2]), max_entropy=cg.max_entropy,
+                         method="approximate", label=cg.label, distribution=dist,
+                         bond_entropies=bonds, algorithm="mps-chebyshev",
+                         pruned_mass=dropped, method_err=float(err[0]))
