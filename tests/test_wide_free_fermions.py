@@ -219,6 +219,10 @@ def test_reference_refuses_what_it_cannot_do():
                 L, regions, cg.model, 1.0, "test"))
     with pytest.raises(InputError, match="^angles:"):
         fr.characteristic_function(corr, cg, [0.0], [0.0], [0.0])
+    joint = coarse.WideEnergyRegions(L, cg.regions, cg.model, 1.0, "test",
+                                     observables=("number", "energy"))
+    with pytest.raises(InputError, match="^sequence:"):   # the energies alone
+        fr.free_region_energy_entropy(corr, joint)
     wide = 2 * (fr.MAX_MODES + 1)
     with pytest.raises(InputError, match="^regions:"):
         fr.free_region_energy_entropy(

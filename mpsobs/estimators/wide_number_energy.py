@@ -285,13 +285,13 @@ class _GibbsPoint:
     moments_low: np.ndarray
 
 
-def _gibbs_run(region: _Region, beta: float, nu: float, n_moments: int,
-               bond: int) -> tuple[float, np.ndarray]:
+def _gibbs_run(region: _Region, beta: float, nu: float, n_moments: int, bond: int,
+               step: float = chebyshev.GIBBS_STEP) -> tuple[float, np.ndarray]:
     """ln Z and the number-resolved moments (K, N) of Ht in e^(-beta H + nu N) / Z: the
-    Gibbs segment of beta H (:func:`mpsobs.chebyshev.gibbs_segment`) times e^(nu N / 2)
-    (N commutes with H), ln Z = ln Z(beta) + ln <g| e^(nu N) |g>."""
-    mpo = chebyshev.scaled_mpo(region.model, region.centre, region.half_width, 4)
-    seg, log_z = chebyshev.gibbs_segment(mpo, beta, region.centre, region.half_width, bond)
+    Gibbs segment of beta H (:func:`mpsobs.chebyshev.gibbs_segment`, imaginary-time
+    ``step``) times e^(nu N / 2) (N commutes with H), ln Z = ln Z(beta) +
+    ln <g| e^(nu N) |g>."""
+    seg, log_z = chebyshev.gibbs_segment(region.model, beta, bond, step)
     seg, log_weight = _with_fugacity(seg, nu)
     moments = _sector_moments(seg, region, n_moments, bond, region.model.L)
     return log_z + log_weight, moments[:, :, 0, 0].real
@@ -325,8 +325,10 @@ def _gibbs_point(region: _Region, target: float, number: float, n_moments: int,
         # make nu chase the energy)
         dnu = (number - mean_n + cov_h * (new_beta - beta)) / var_n if var_n > 0 else 0.0
         beta, nu = new_beta, float(np.clip(nu + dnu, -MAX_NU, MAX_NU))
-    (log_z, mu), (log_z_low, mu_low) = (_gibbs_run(region, beta, nu, n_moments, b)
-                                        for b in (bond, max(2, bond // 2)))
+    (log_z, mu), (log_z_low, mu_low) = (
+        _gibbs_run(region, beta, nu, n_moments, b, step)
+        for b, step in ((bond, chebyshev.GIBBS_STEP),
+                        (max(2, bond // 2), 2 * chebyshev.GIBBS_STEP)))
     return _GibbsPoint(beta, nu, float(c + a * mu[:, 1].sum()), log_z, log_z_low, mu,
                        mu_low)
 

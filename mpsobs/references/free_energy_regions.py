@@ -385,6 +385,9 @@ def free_region_energy_entropy(corr, cg: WideEnergyRegions, *,
     c = _check_corr(corr)
     if c.shape[0] != cg.L:
         raise InputError(f"corr: shape {c.shape} does not match the chain (L = {cg.L})")
+    if tuple(cg.observables) != ("energy",):
+        raise InputError(f"sequence: the free-fermion reference computes the energies "
+                         f"alone, got {' then '.join(cg.observables)}")
     if len(cg.regions) not in (2, 3):
         raise InputError(f"regions: the free-fermion reference handles two or three regions, "
                          f"got {len(cg.regions)}")
