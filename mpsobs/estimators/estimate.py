@@ -122,8 +122,9 @@ _BASELINE = contextvars.ContextVar("mpsobs_baseline_algorithms", default=False)
 @contextlib.contextmanager
 def baseline_algorithms() -> Iterator[None]:
     """Inside this context the estimators run the algorithms used before the charge
-    blocks: dense chi x chi environments also for number-conserving states, and the
-    automatic choice tries enumeration whatever ``previous_method`` says. For benchmarks
+    blocks: dense chi x chi environments also for number-conserving states, one per path
+    (not one per distinct prefix), and the automatic choice tries enumeration whatever
+    ``previous_method`` says. For benchmarks
     and cross-checks (``scripts/bench_point.py``); the numbers agree with the default
     algorithms within round-off (exact values) or draw for draw (samples, same seed).
     """
@@ -311,7 +312,8 @@ class _Sampling:
                  batch: int | None, bar, charged: Sequence[ChargedBlock] | None = None):
         self.blocks = blocks
         self.algorithm = "mps-conditional" if conditional else "mps-sample"
-        self._vectors = conditional and not _BASELINE.get() and single_rows(blocks)
+        self._share = not _BASELINE.get()
+        self._vectors = conditional and self._share and single_rows(blocks)
         self._charged = charged if conditional and not self._vectors else None
         self._weights = ([outcome_weights(b) for b in blocks] if conditional
                          and charged is None and not self._vectors else None)
@@ -345,7 +347,8 @@ class _Sampling:
                 batch = draw_samples(self.blocks, uniforms)
                 h, b = -batch.log_p, batch.log_v
             else:
-                batch = draw_conditional(self.blocks, self._weights, uniforms)
+                batch = draw_conditional(self.blocks, self._weights, uniforms,
+                                         share=self._share)
                 h, b = batch.shannon, batch.boltzmann
             self.shannon.append(h)
             self.boltzmann.append(b)
