@@ -54,7 +54,7 @@ GRAM_FLOOR = 1e-12
 QR_REDUCTION = 0.75
 #: Gram matrices of at least this size are diagonalised step by step (:class:`GramVectors`);
 #: smaller ones by numpy's eigh (the staged calls cost more than they save there).
-STAGED_MIN = 48
+STAGED_MIN = 16
 _GESDD, _GESDD_LWORK = lapack.zgesdd, lapack.zgesdd_lwork
 _GEQRF, _UNGQR = lapack.zgeqrf, lapack.zungqr
 
