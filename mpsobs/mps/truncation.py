@@ -21,11 +21,12 @@ The Gram matrix is diagonalised in the three steps of LAPACK's zheevd, called on
 decomposition (dstevd, divide and conquer, real), and the back-transformation of the
 eigenvectors by the Householder reflectors (zunmqr), done only for the k vectors the rule
 keeps, after the rule has seen all eigenvalues. Same values and vectors as zheevd to
-round-off; about 0.6 times its cost at m = 256, k = 128.
-Cost for an (m, n) matrix, m <= n: Gram route m^2 n (product) + ~16/3 m^3 (tridiagonal
+round-off.
+Cost for an (m, n) matrix, m <= n: Gram route m^2 n / 2 (zherk) + ~16/3 m^3 (tridiagonal
 reduction) + ~8 m^2 k (back-transformation) + k m n (projection); SVD ~ 20 m^2 n.
-Measured on one core the Gram route is about 2.5 times faster than LAPACK's gesdd at
-m = 256.
+Measured on one core (2026-12-03, loaded machine), a split of a (256, 256) matrix
+keeping 128 values: Gram route 14.0 ms, with one zheevd call instead of the steps
+21.6 ms, SVD (gesdd) 27.6 ms.
 """
 
 from __future__ import annotations
@@ -35,7 +36,7 @@ import logging
 from typing import Literal
 
 import numpy as np
-from scipy.linalg import lapack
+from scipy.linalg import blas, lapack
 
 from mpsobs.mps.tensors import robust_svd
 
@@ -57,6 +58,7 @@ QR_REDUCTION = 0.75
 STAGED_MIN = 16
 _GESDD, _GESDD_LWORK = lapack.zgesdd, lapack.zgesdd_lwork
 _GEQRF, _UNGQR = lapack.zgeqrf, lapack.zungqr
+_HERK = blas.zherk
 
 
 def keep_count(s: np.ndarray, max_bond: int, cutoff: float) -> tuple[int, float]:
@@ -134,7 +136,8 @@ class GramVectors:
     """Eigenvalues (descending) of a Hermitian matrix and, on demand, selected columns
     of its eigenvectors, in the same order.
 
-    The matrix is reduced to a real tridiagonal one T = Q^dagger g Q by zhetrd (Q a
+    ``g`` (n, n): only its lower triangle is read. It is reduced to a real tridiagonal
+    matrix T = Q^dagger g Q by zhetrd (Q a
     product of Householder reflectors, stored); T = Z diag(w) Z^T by dstevd; the selected
     eigenvectors of g are Q Z[:, sel], applied by zunmqr to the selected columns only.
     ``prefix`` (an isometry q) is multiplied on the left of the selected columns (the QR
@@ -171,6 +174,14 @@ class GramVectors:
         return c if self._prefix is None else self._prefix @ c
 
 
+def _gram_lower(m: np.ndarray, side: Side) -> np.ndarray:
+    """The lower triangle of m m^dagger ("left") or m^dagger m ("right"), Fortran-ordered,
+    by BLAS zherk (half the flops of a full product) on m^T, which is m's memory read
+    in Fortran order: m^T (m^T)^dagger = conj(m^dagger m) and (m^T)^dagger m^T =
+    conj(m m^dagger). The upper triangle is not set."""
+    return _HERK(1.0, m.T, trans=2 if side == "left" else 0, lower=1).conj()
+
+
 def decompose(m: np.ndarray, side: Side, gram: bool):
     """All singular values (descending) of m, the singular vectors of ``side`` (as columns:
     u for "left", vh^dagger for "right") and, for the SVD, the other factor (s vh or u s;
@@ -189,11 +200,10 @@ def decompose(m: np.ndarray, side: Side, gram: bool):
         elif side == "right" and rows < QR_REDUCTION * cols:
             prefix, r = qr(m.conj().T)
             m = r.conj().T
-        g = m @ m.conj().T if side == "left" else m.conj().T @ m
-        if g.shape[0] >= STAGED_MIN:
-            vectors = GramVectors(g, prefix)
+        if (m.shape[0] if side == "left" else m.shape[1]) >= STAGED_MIN:
+            vectors = GramVectors(_gram_lower(m, side), prefix)
             return np.sqrt(np.clip(vectors.values, 0.0, None)), vectors, None
-        w, v = np.linalg.eigh(g)
+        w, v = np.linalg.eigh(m @ m.conj().T if side == "left" else m.conj().T @ m)
         v = v[:, ::-1] if prefix is None else prefix @ v[:, ::-1]
         return np.sqrt(np.clip(w[::-1], 0.0, None)), v, None
     u, s, vh = svd(m)
