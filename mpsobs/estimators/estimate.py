@@ -341,7 +341,7 @@ class _Sampling:
                 batch = draw_conditional_vectors(self.blocks, uniforms)
                 h, b = batch.shannon, batch.boltzmann
             elif self._charged is not None:
-                batch = draw_conditional_charged(self._charged, uniforms)
+                batch = draw_conditional_charged(self._charged, uniforms, share=self._share)
                 h, b = batch.shannon, batch.boltzmann
             elif self._weights is None:
                 batch = draw_samples(self.blocks, uniforms)

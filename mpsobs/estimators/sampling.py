@@ -23,7 +23,7 @@ from mpsobs.estimators.blocktensors import (
     transfer,
     transfer_flops,
 )
-from mpsobs.estimators.charges import ChargedBlock, merge, start_group, work_buffer
+from mpsobs.estimators.charges import ChargedBlock, Group, merge, start_group, work_buffer
 
 __all__ = ["draw_samples", "SampleBatch", "draw_conditional", "draw_conditional_vectors",
            "draw_conditional_charged", "ConditionalBatch", "conditional_terms",
@@ -331,41 +331,61 @@ def draw_conditional_vectors(blocks: Sequence[ReadoutBlock],
     return ConditionalBatch(outcomes, shannon, boltzmann, flops)
 
 
-def draw_conditional_charged(blocks: Sequence[ChargedBlock],
-                             uniforms: np.ndarray) -> ConditionalBatch:
+def draw_conditional_charged(blocks: Sequence[ChargedBlock], uniforms: np.ndarray,
+                             share: bool = False) -> ConditionalBatch:
     """:func:`draw_conditional` on the charge blocks of a number-conserving state
     (:mod:`mpsobs.estimators.charges`): the same paths and values up to round-off.
 
-    The samples are kept in groups of equal charges (after number outcomes, one charge
-    per group); per group one matrix product per charge gives the conditionals, and the
-    members that drew the same outcome advance together. Cost per sample and block
-    4 sum_q d_q^2 n_out + sum 8 g d_q d_q' (d_q + d_q') flops over the charges q the
-    sample carries and q' = q + c (rows of count c in the drawn outcome); memory 16 bytes
-    x n x sum_q d_q^2 (twice) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    The environments are kept in groups of equal charges (after number outcomes, one
+    charge per group), one environment per path, or with ``share`` one per distinct
+    outcome prefix (as in :func:`draw_conditional`); per group one matrix product per
+    charge gives the conditionals, and the environments whose paths drew the same
+    outcome advance together. Cost per environment and block 4 sum_q d_q^2 n_out +
+    sum 8 g d_q d_q' (d_q + d_q') flops over the charges q it carries and q' = q + c
+    (rows of count c in the drawn outcome); memory 16 bytes x n x sum_q d_q^2 (twice)
+    plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     """
     n, m = uniforms.shape
     shannon = np.zeros(n)
     boltzmann = np.zeros(n)
     outcomes = np.empty((n, m), dtype=np.int64)
-    groups = [start_group(np.arange(n))]
+    prefix = np.zeros(n, dtype=np.int64) if share else np.arange(n)  # environment of path s
+    groups = [start_group(np.arange(prefix[-1] + 1))]  # members: environment ids
     work = work_buffer(blocks)
     flops = 0.0
     for k, cb in enumerate(blocks):
+        slot = np.empty(sum(g.members.size for g in groups), dtype=np.int64)
+        group_of = np.empty_like(slot)
+        for i, g in enumerate(groups):
+            slot[g.members] = np.arange(g.members.size)
+            group_of[g.members] = i
+        path_group = group_of[prefix]
+        next_prefix = np.empty(n, dtype=np.int64)
         children = []
-        for g in groups:
+        made = 0   # environments made so far at this block
+        for i, g in enumerate(groups):
+            paths = np.flatnonzero(path_group == i)
+            at = slot[prefix[paths]]   # each path's environment within the group
             p = g.probabilities(cb)
             flops += 2.0 * g.members.size * sum(cb.weights[q].size for q in g.envs)
             h, b = conditional_terms(p, cb.block.log_volumes)
-            shannon[g.members] += h
-            boltzmann[g.members] += b
-            drawn = _draw_index(p, uniforms[g.members, k])
-            outcomes[g.members, k] = drawn
-            present = np.unique(drawn)
-            for j in present:
-                select = None if present.size == 1 else drawn == j
+            shannon[paths] += h[at]
+            boltzmann[paths] += b[at]
+            drawn = _draw_index(p[at], uniforms[paths, k])
+            outcomes[paths, k] = drawn
+            for j in np.unique(drawn):
+                chosen = drawn == j
+                rows, inverse = np.unique(at[chosen], return_inverse=True)
+                select = None
+                if rows.size < g.members.size:
+                    select = np.zeros(g.members.size, dtype=bool)
+                    select[rows] = True
                 child, _, cost = g.child(cb, int(j), select, work)
-                children.append(child)
+                next_prefix[paths[chosen]] = made + inverse
+                children.append(Group(child.envs, np.arange(made, made + rows.size)))
+                made += rows.size
                 flops += cost
+        prefix = next_prefix
         groups = merge(children)
     return ConditionalBatch(outcomes, shannon, boltzmann, flops)
 
