@@ -468,8 +468,9 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     Preparation: L chi^3 (canonical form, bond entropies) plus the rotated block tensors,
     16 bytes x sum_k chi_{k-1} R_k chi_k (R_k = 2**b_k readout rows for one observable).
     Conditional sampling: once per state 8 chi^3 R flops per block for the R_{k,i}; per
-    sample and block 4 chi^2 n_out + 16 g chi^3 flops (n_out outcomes, g = readout rows
-    of the drawn outcome); working memory 16 bytes x batch x 2 chi^2. Per-string
+    distinct outcome prefix of a batch (at most one per sample) and block
+    4 chi^2 n_out + 16 g chi^3 flops (n_out outcomes, g = readout rows of the drawn
+    outcome); working memory 16 bytes x batch x 2 chi^2. Per-string
     sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops; working memory 16 bytes
     x batch x (2 chi^2 + R chi). Both plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     Enumeration: per live prefix and block
