@@ -485,6 +485,33 @@ def test_reproducible_from_seed_and_independent_of_batch(method):
                                atol=1e-12)
 
 
+def test_shared_prefix_environments_give_the_same_paths():
+    # Paths with the same outcomes so far share one environment: the same draws and
+    # values as one environment per path (the reference, sharing off), fewer flops.
+    L = 16
+    state = canonical_state(mpsmod.random_mps(L, 8, seed=4), L)
+    blocks = readout_blocks(state, coarse.blocks(L, 4))
+    weights = [outcome_weights(b) for b in blocks]
+    uniforms = np.random.default_rng(8).random((60, len(blocks)))
+    own = draw_conditional(blocks, weights, uniforms)
+    shared = draw_conditional(blocks, weights, uniforms, share=True)
+    np.testing.assert_array_equal(shared.outcomes, own.outcomes)
+    np.testing.assert_allclose(shared.shannon, own.shannon, atol=1e-12)
+    np.testing.assert_allclose(shared.boltzmann, own.boltzmann, atol=1e-12)
+    assert shared.flops < own.flops
+    # the same on the charge blocks of a number-conserving state
+    model, state = xxz_quench_state(12, 1.5, 16)
+    blocks = readout_blocks(state, coarse.blocks(12, 3), number_rows=True)
+    charged = charged_blocks(blocks, bond_charges(state))
+    uniforms = np.random.default_rng(9).random((60, len(blocks)))
+    own = draw_conditional_charged(charged, uniforms)
+    shared = draw_conditional_charged(charged, uniforms, share=True)
+    np.testing.assert_array_equal(shared.outcomes, own.outcomes)
+    np.testing.assert_allclose(shared.shannon, own.shannon, atol=1e-12)
+    np.testing.assert_allclose(shared.boltzmann, own.boltzmann, atol=1e-12)
+    assert shared.flops < own.flops
+
+
 def test_target_stderr_and_automatic_choice():
     L = 40
     state = mpsmod.random_mps(L, 8, seed=2)

@@ -118,6 +118,49 @@ def test_gram_split_agrees_with_the_svd(side, shape):
     assert np.linalg.norm(left @ right - want) < n * eps * s[0] ** 2 / s[k - 1]
 
 
+def test_staged_gram_eigenvectors_agree_with_numpy_eigh():
+    # Reference: numpy's eigh (LAPACK zheevd in one call). The staged route gives the
+    # same descending eigenvalues and, for any selection of columns, the same vectors up
+    # to a phase (a well-separated spectrum, so each vector is defined up to its phase).
+    n = 80
+    a = _with_spectrum(np.linspace(2.0, 0.1, n), (n, n), seed=8)
+    g = a @ a.conj().T
+    w, v = np.linalg.eigh(g)
+    w, v = w[::-1], v[:, ::-1]
+    staged = truncation.GramVectors(g)
+    np.testing.assert_allclose(staged.values, w, rtol=0, atol=1e-12)
+    pick = np.zeros(n, dtype=bool)
+    pick[[0, 3, 40, 79]] = True
+    for cols in (slice(None, 30), pick):
+        got, want = staged[:, cols], v[:, cols]
+        phases = np.sum(want.conj() * got, axis=0)
+        np.testing.assert_allclose(np.abs(phases), 1.0, atol=1e-10)
+        np.testing.assert_allclose(got, want * phases, atol=1e-10)
+    # with an isometry on the left (the QR reduction), the vectors are q times those above
+    q = np.linalg.qr(_with_spectrum(np.ones(n), (n + 20, n), seed=9))[0]
+    np.testing.assert_allclose(truncation.GramVectors(g, q)[:, :5], q @ staged[:, :5],
+                               atol=1e-13)
+
+
+@pytest.mark.parametrize("side", ["left", "right"])
+def test_staged_gram_split_agrees_with_the_svd(side):
+    # Reference: numpy's SVD truncated by the same rule, on matrices large enough for the
+    # staged eigen-decomposition, with and without the QR reduction (tall for "left",
+    # wide for "right").
+    for shape in ((96, 96), (140, 90) if side == "left" else (90, 140)):
+        n = min(shape)
+        m = _with_spectrum(np.logspace(0, -6, n), shape, seed=4)
+        u, s, vh = np.linalg.svd(m, full_matrices=False)
+        k, lost = truncation.keep_count(s, 50, 1e-10)
+        left, right, kept, got_lost = truncation.split(m, side, 50, 1e-10)
+        assert kept.size == k == 50 and got_lost == pytest.approx(lost, rel=1e-8)
+        np.testing.assert_allclose(kept, s[:k], rtol=1e-10)
+        iso = left if side == "left" else right.conj().T
+        np.testing.assert_allclose(iso.conj().T @ iso, np.eye(k), atol=1e-13)
+        want = (u[:, :k] * s[:k]) @ vh[:k]
+        assert np.linalg.norm(left @ right - want) < 1e-11
+
+
 def test_gram_route_falls_back_to_the_svd_below_its_resolution():
     # One large value and 150 near 1e-7 (weights near 1e-14, together above the cutoff
     # 1e-12): the rule keeps values the Gram eigenvalues cannot resolve, so the split

@@ -122,8 +122,9 @@ _BASELINE = contextvars.ContextVar("mpsobs_baseline_algorithms", default=False)
 @contextlib.contextmanager
 def baseline_algorithms() -> Iterator[None]:
     """Inside this context the estimators run the algorithms used before the charge
-    blocks: dense chi x chi environments also for number-conserving states, and the
-    automatic choice tries enumeration whatever ``previous_method`` says. For benchmarks
+    blocks: dense chi x chi environments also for number-conserving states, one per path
+    (not one per distinct prefix), and the automatic choice tries enumeration whatever
+    ``previous_method`` says. For benchmarks
     and cross-checks (``scripts/bench_point.py``); the numbers agree with the default
     algorithms within round-off (exact values) or draw for draw (samples, same seed).
     """
@@ -311,7 +312,8 @@ class _Sampling:
                  batch: int | None, bar, charged: Sequence[ChargedBlock] | None = None):
         self.blocks = blocks
         self.algorithm = "mps-conditional" if conditional else "mps-sample"
-        self._vectors = conditional and not _BASELINE.get() and single_rows(blocks)
+        self._share = not _BASELINE.get()
+        self._vectors = conditional and self._share and single_rows(blocks)
         self._charged = charged if conditional and not self._vectors else None
         self._weights = ([outcome_weights(b) for b in blocks] if conditional
                          and charged is None and not self._vectors else None)
@@ -339,13 +341,14 @@ class _Sampling:
                 batch = draw_conditional_vectors(self.blocks, uniforms)
                 h, b = batch.shannon, batch.boltzmann
             elif self._charged is not None:
-                batch = draw_conditional_charged(self._charged, uniforms)
+                batch = draw_conditional_charged(self._charged, uniforms, share=self._share)
                 h, b = batch.shannon, batch.boltzmann
             elif self._weights is None:
                 batch = draw_samples(self.blocks, uniforms)
                 h, b = -batch.log_p, batch.log_v
             else:
-                batch = draw_conditional(self.blocks, self._weights, uniforms)
+                batch = draw_conditional(self.blocks, self._weights, uniforms,
+                                         share=self._share)
                 h, b = batch.shannon, batch.boltzmann
             self.shannon.append(h)
             self.boltzmann.append(b)
@@ -465,8 +468,9 @@ def mps_observational_entropy(state, coarse_graining: BlockCoarseGraining, *,
     Preparation: L chi^3 (canonical form, bond entropies) plus the rotated block tensors,
     16 bytes x sum_k chi_{k-1} R_k chi_k (R_k = 2**b_k readout rows for one observable).
     Conditional sampling: once per state 8 chi^3 R flops per block for the R_{k,i}; per
-    sample and block 4 chi^2 n_out + 16 g chi^3 flops (n_out outcomes, g = readout rows
-    of the drawn outcome); working memory 16 bytes x batch x 2 chi^2. Per-string
+    distinct outcome prefix of a batch (at most one per sample) and block
+    4 chi^2 n_out + 16 g chi^3 flops (n_out outcomes, g = readout rows of the drawn
+    outcome); working memory 16 bytes x batch x 2 chi^2. Per-string
     sampling: per sample and block ~ 8 chi^2 R + 16 g chi^3 flops; working memory 16 bytes
     x batch x (2 chi^2 + R chi). Both plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     Enumeration: per live prefix and block

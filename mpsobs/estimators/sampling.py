@@ -23,7 +23,7 @@ from mpsobs.estimators.blocktensors import (
     transfer,
     transfer_flops,
 )
-from mpsobs.estimators.charges import ChargedBlock, merge, start_group, work_buffer
+from mpsobs.estimators.charges import ChargedBlock, Group, merge, start_group, work_buffer
 
 __all__ = ["draw_samples", "SampleBatch", "draw_conditional", "draw_conditional_vectors",
            "draw_conditional_charged", "ConditionalBatch", "conditional_terms",
@@ -196,8 +196,56 @@ class ConditionalBatch:
     __repr__ = _batch_repr
 
 
+class _SharedEnvironments:
+    """The unit-trace environments of the distinct outcome prefixes among n paths.
+
+    Paths that drew the same outcomes so far share one environment: ``env`` is the
+    (u, chi, chi) stack of the u distinct prefixes and ``where[s]`` the prefix of path s.
+    With ``share`` False every path starts as a prefix of its own (one environment per
+    path, as before the sharing).
+    At each block a prefix's environment is advanced once per outcome drawn after it
+    (one transfer for every member), the new prefixes grouped by outcome so that each
+    outcome's environments are advanced together by :func:`transfer`.
+    """
+
+    def __init__(self, blocks: Sequence[ReadoutBlock], n: int, share: bool):
+        chi = max(max(b.tensor.shape[0], b.tensor.shape[2]) for b in blocks)
+        self._stack, self._scratch = (np.empty(n * chi * chi, dtype=complex) for _ in range(2))
+        self._work = np.empty(max(WORK_BYTES // 16, max(b.tensor.size for b in blocks)),
+                              dtype=complex)
+        self.where = np.zeros(n, dtype=np.int64) if share else np.arange(n)
+        self.env = self._stack[:self.where[-1] + 1].reshape(-1, 1, 1)
+        self.env[...] = 1.0
+        self.flops = 0.0
+
+    def advance(self, blk: ReadoutBlock, outcome: np.ndarray) -> None:
+        """Extend every path's prefix by its ``outcome`` at ``blk``."""
+        cl, _, cr = blk.tensor.shape
+        key = self.where * blk.n_outcomes + outcome
+        prefixes, self.where = np.unique(key, return_inverse=True)
+        parent, drawn = np.divmod(prefixes, blk.n_outcomes)
+        u = prefixes.size
+        order = np.argsort(drawn, kind="stable")
+        drawn = drawn[order]
+        sorted_env = self._scratch[:u * cl * cl].reshape(u, cl, cl)
+        np.take(self.env, parent[order], axis=0, out=sorted_env, mode="clip")
+        new = self._stack[:u * cr * cr].reshape(u, cr, cr)
+        present = np.flatnonzero(np.bincount(drawn, minlength=blk.n_outcomes))
+        bounds = np.searchsorted(drawn, present)
+        for j, lo, hi in zip(present, bounds, list(bounds[1:]) + [u], strict=True):
+            rows = blk.rows(j)
+            transfer(sorted_env[lo:hi], rows, out=new[lo:hi], work=self._work)
+            self.flops += transfer_flops(hi - lo, rows.shape)
+        new /= np.einsum("nii->n", new).real[:, None, None]
+        self.env = new
+        # prefix i of ``prefixes`` now sits at the position of i in ``order``
+        position = np.empty(u, dtype=np.int64)
+        position[order] = np.arange(u)
+        self.where = position[self.where]
+
+
 def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarray],
-                     uniforms: np.ndarray) -> ConditionalBatch:
+                     uniforms: np.ndarray, share: bool = False) -> ConditionalBatch:
     """Draw coarse outcome paths block by block from their exact conditional
     distributions and add up the exact conditional entropies along each path.
 
@@ -207,35 +255,37 @@ def draw_conditional(blocks: Sequence[ReadoutBlock], weights: Sequence[np.ndarra
     weights : :func:`mpsobs.blocktensors.outcome_weights` of every block (once per state).
     uniforms : (n, blocks) numbers in [0, 1); row s, column k draws sample s at block k
         (so a sample does not depend on which other samples share its batch).
+    share : advance one environment per distinct prefix (below) instead of one per path;
+        the same paths and values up to round-off, fewer flops.
 
-    With the unit-trace environments E of the n paths stacked, all conditionals
-    p(i | i_<k) = Tr[E R_{k,i}] come from one matrix product
+    With the unit-trace environments E of the distinct prefixes i_<k of the n paths
+    stacked, all conditionals p(i | i_<k) = Tr[E R_{k,i}] come from one matrix product
     (:func:`mpsobs.blocktensors.conditional_probabilities`); f_k = sum_i p_i (-ln p_i +
     ln V_{k,i}) is added to the path's value; i_k is drawn from the same p; E is advanced
-    with the rows of i_k only and renormalised. By the chain rule sum_k E[f_k] = S_obs,
-    so the path value is unbiased; it is exact for a product of blocks. Cost per sample
-    and block 4 chi_l^2 n_out + 8 g chi_l chi_r (chi_l + chi_r) flops (n_out outcomes, g
-    rows of the drawn outcome); memory 16 bytes x n x 2 chi^2 plus
+    with the rows of i_k only and renormalised; with ``share`` once for all paths with the
+    same prefix (paths often share their first blocks' outcomes, which have few values).
+    By the chain rule sum_k E[f_k] = S_obs, so the path value is unbiased; it is exact
+    for a product of blocks. Cost per environment and block
+    4 chi_l^2 n_out + 8 g chi_l chi_r (chi_l + chi_r) flops (n_out outcomes, g rows of the
+    drawn outcome), at most that per path; memory 16 bytes x n x 2 chi^2 plus
     :data:`mpsobs.blocktensors.WORK_BYTES`.
     """
     n, m = uniforms.shape
-    envs = _Environments(blocks, n)
+    envs = _SharedEnvironments(blocks, n, share)
     shannon = np.zeros(n)
     boltzmann = np.zeros(n)
     outcomes = np.empty((n, m), dtype=np.int64)
     flops = 0.0
     for k, (blk, w) in enumerate(zip(blocks, weights, strict=True)):
         p = conditional_probabilities(envs.env, w)
-        flops += 2.0 * n * w.size
+        flops += 2.0 * p.shape[0] * w.size
         h, b = conditional_terms(p, blk.log_volumes)
-        shannon += h
-        boltzmann += b
-        outcome = _draw_index(p, uniforms[envs.held, k])
-        _, outcome, (shannon, boltzmann) = envs.advance(blk, outcome, (shannon, boltzmann))
-        outcomes[envs.held, k] = outcome
-    restore = np.argsort(envs.held)
-    return ConditionalBatch(outcomes, shannon[restore], boltzmann[restore],
-                            flops + envs.flops)
+        shannon += h[envs.where]
+        boltzmann += b[envs.where]
+        outcome = _draw_index(p[envs.where], uniforms[:, k])
+        outcomes[:, k] = outcome
+        envs.advance(blk, outcome)
+    return ConditionalBatch(outcomes, shannon, boltzmann, flops + envs.flops)
 
 
 def single_rows(blocks: Sequence[ReadoutBlock]) -> bool:
@@ -281,41 +331,61 @@ def draw_conditional_vectors(blocks: Sequence[ReadoutBlock],
     return ConditionalBatch(outcomes, shannon, boltzmann, flops)
 
 
-def draw_conditional_charged(blocks: Sequence[ChargedBlock],
-                             uniforms: np.ndarray) -> ConditionalBatch:
+def draw_conditional_charged(blocks: Sequence[ChargedBlock], uniforms: np.ndarray,
+                             share: bool = False) -> ConditionalBatch:
     """:func:`draw_conditional` on the charge blocks of a number-conserving state
     (:mod:`mpsobs.estimators.charges`): the same paths and values up to round-off.
 
-    The samples are kept in groups of equal charges (after number outcomes, one charge
-    per group); per group one matrix product per charge gives the conditionals, and the
-    members that drew the same outcome advance together. Cost per sample and block
-    4 sum_q d_q^2 n_out + sum 8 g d_q d_q' (d_q + d_q') flops over the charges q the
-    sample carries and q' = q + c (rows of count c in the drawn outcome); memory 16 bytes
-    x n x sum_q d_q^2 (twice) plus :data:`mpsobs.blocktensors.WORK_BYTES`.
+    The environments are kept in groups of equal charges (after number outcomes, one
+    charge per group), one environment per path, or with ``share`` one per distinct
+    outcome prefix (as in :func:`draw_conditional`); per group one matrix product per
+    charge gives the conditionals, and the environments whose paths drew the same
+    outcome advance together. Cost per environment and block 4 sum_q d_q^2 n_out +
+    sum 8 g d_q d_q' (d_q + d_q') flops over the charges q it carries and q' = q + c
+    (rows of count c in the drawn outcome); memory 16 bytes x n x sum_q d_q^2 (twice)
+    plus :data:`mpsobs.blocktensors.WORK_BYTES`.
     """
     n, m = uniforms.shape
     shannon = np.zeros(n)
     boltzmann = np.zeros(n)
     outcomes = np.empty((n, m), dtype=np.int64)
-    groups = [start_group(np.arange(n))]
+    prefix = np.zeros(n, dtype=np.int64) if share else np.arange(n)  # environment of path s
+    groups = [start_group(np.arange(prefix[-1] + 1))]  # members: environment ids
     work = work_buffer(blocks)
     flops = 0.0
     for k, cb in enumerate(blocks):
+        slot = np.empty(sum(g.members.size for g in groups), dtype=np.int64)
+        group_of = np.empty_like(slot)
+        for i, g in enumerate(groups):
+            slot[g.members] = np.arange(g.members.size)
+            group_of[g.members] = i
+        path_group = group_of[prefix]
+        next_prefix = np.empty(n, dtype=np.int64)
         children = []
-        for g in groups:
+        made = 0   # environments made so far at this block
+        for i, g in enumerate(groups):
+            paths = np.flatnonzero(path_group == i)
+            at = slot[prefix[paths]]   # each path's environment within the group
             p = g.probabilities(cb)
             flops += 2.0 * g.members.size * sum(cb.weights[q].size for q in g.envs)
             h, b = conditional_terms(p, cb.block.log_volumes)
-            shannon[g.members] += h
-            boltzmann[g.members] += b
-            drawn = _draw_index(p, uniforms[g.members, k])
-            outcomes[g.members, k] = drawn
-            present = np.unique(drawn)
-            for j in present:
-                select = None if present.size == 1 else drawn == j
+            shannon[paths] += h[at]
+            boltzmann[paths] += b[at]
+            drawn = _draw_index(p[at], uniforms[paths, k])
+            outcomes[paths, k] = drawn
+            for j in np.unique(drawn):
+                chosen = drawn == j
+                rows, inverse = np.unique(at[chosen], return_inverse=True)
+                select = None
+                if rows.size < g.members.size:
+                    select = np.zeros(g.members.size, dtype=bool)
+                    select[rows] = True
                 child, _, cost = g.child(cb, int(j), select, work)
-                children.append(child)
+                next_prefix[paths[chosen]] = made + inverse
+                children.append(Group(child.envs, np.arange(made, made + rows.size)))
+                made += rows.size
                 flops += cost
+        prefix = next_prefix
         groups = merge(children)
     return ConditionalBatch(outcomes, shannon, boltzmann, flops)
 
