@@ -94,6 +94,15 @@ def test_panel_titles_name_coarse_graining_and_parameter_values():
     assert len(plots.knowledge_figure(results).axes) == 2 * len(LAWS)
 
 
+def test_long_panel_titles_are_wrapped_inside_the_panel():
+    # a wide-region title with its resolution is longer than a panel: wrapped, not cut
+    key = {"coarse_graining": "energy:r0-16,16-32,dE1,N128,D64"}
+    title = plots.panel_title(key, [])
+    assert "\n" in title
+    assert max(len(line) for line in title.splitlines()) <= plots.TITLE_WIDTH
+    assert title.replace("\n", " ") == plots.coarse_graining_title(key["coarse_graining"])
+
+
 def test_missing_column_is_named(tmp_path):
     results = _results().drop(columns=["S_ent_half"])
     with pytest.raises(InputError, match="S_ent_half"):

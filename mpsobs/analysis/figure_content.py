@@ -37,7 +37,8 @@ from mpsobs.pipeline import columns as col
 from mpsobs.pipeline.columns import parameter_columns
 
 __all__ = [
-    "CAPTION_WIDTH", "CAPTION_PARAMETERS", "KINDS", "ENTROPY_COLUMNS", "PARTS_COLUMNS",
+    "CAPTION_WIDTH", "TITLE_WIDTH", "CAPTION_PARAMETERS", "KINDS", "ENTROPY_COLUMNS",
+    "PARTS_COLUMNS",
     "KNOWLEDGE_COLUMNS", "EXTENSIVE", "PER_SITE", "coarse_graining_title", "coarse_order",
     "panel_title", "figure_title", "figure_parameters", "caption", "figure_metadata",
     "figure_data", "select_rows",
@@ -46,6 +47,8 @@ __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Characters per caption line.
 CAPTION_WIDTH = 62
+#: Characters per line of a panel title (longer titles are wrapped, not cut at the panel).
+TITLE_WIDTH = 56
 #: Parameter columns of the model and the initial state: the caption names those that
 #: are fixed in a figure (``pre_<name>`` too); every other setting is in the metadata.
 CAPTION_PARAMETERS = ("model", "J", "delta", "g", "field", "h", "field_seed", "state",
@@ -135,10 +138,11 @@ def _text(value: str) -> str:
 
 
 def panel_title(key: Mapping[str, object], shown: Iterable[str]) -> str:
-    """Panel title: the coarse-graining in words, then the values of ``shown``."""
+    """Panel title: the coarse-graining in words, then the values of ``shown``, wrapped
+    at TITLE_WIDTH characters."""
     others = [f"{k} = {key[k]}" for k in shown if k in key and k != "coarse_graining"]
-    return _text(coarse_graining_title(str(key["coarse_graining"]))
-                 + (f" ({', '.join(others)})" if others else ""))
+    return _text(textwrap.fill(coarse_graining_title(str(key["coarse_graining"]))
+                               + (f" ({', '.join(others)})" if others else ""), TITLE_WIDTH))
 
 
 def figure_parameters(results: pd.DataFrame) -> list[str]:

@@ -55,6 +55,7 @@ from mpsobs.analysis.figure_content import (
     KNOWLEDGE_COLUMNS,
     PARTS_COLUMNS,
     PER_SITE,
+    TITLE_WIDTH,
     caption,
     coarse_graining_title,
     coarse_order,
@@ -73,6 +74,7 @@ from mpsobs.pipeline.store import atomic_write
 __all__ = [
     "PANEL_WIDTH", "PANEL_HEIGHT", "PAPER_STYLE", "KINDS", "CAPTION_PARAMETERS",
     "length_colors", "figure_parameters", "coarse_graining_title", "coarse_order",
+    "panel_title", "TITLE_WIDTH",
     "caption", "figure_data", "figure_metadata", "select_rows", "entropy_figure",
     "parts_figure", "knowledge_figure", "collapse_figure", "figure_files", "save_figure",
     "plot_results",
