@@ -583,12 +583,22 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     (half, _), _ = evaluate(_joint(mu, regions, moments // 2), moments // 2, sub_bins, False)
     (low, _), _ = evaluate(_joint(mu_low, regions, moments), moments, sub_bins, True)
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
-    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
-           + main.change(coarse_sub))
     log_v = _log_volumes(log_vols)
     live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
     outcomes = np.column_stack([reg.bins[live[:, i]] for i, reg in enumerate(regions)])
     dist = OutcomeDistribution(outcomes, p[tuple(live.T)], np.exp(log_v[tuple(live.T)]))
+    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub))
+
+
+def _approximate_result(mps, cg, dist: OutcomeDistribution, dropped: float, main: _Parts,
+                        reruns: tuple[_Parts, _Parts, _Parts]) -> EntropyResult:
+    """The result of a wide-region estimate from its main evaluation and its reruns at
+    half the moments, half the bond and half the sub-bins: the method error (module
+    docstring) is the sum of their changes, the first divided by
+    RESOLUTION_ORDER_FACTOR."""
+    half, low, coarse_sub = reruns
+    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
+           + main.change(coarse_sub))
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
                          shannon_err=float(err[1]), boltzmann=main.boltzmann,

@@ -84,7 +84,7 @@ from mpsobs.estimators.wide_energy import (
     NEWTON_BOND,
     NEWTON_STEPS,
     PROBABILITY_FLOOR,
-    RESOLUTION_ORDER_FACTOR,
+    _approximate_result,
     _check_resolution,
     _entropy,
     _mirror_model,
@@ -96,7 +96,7 @@ from mpsobs.estimators.wide_energy import (
     _targets,
 )
 from mpsobs.mps.charges import block_qr, col_charges, definite_charges, local_charges
-from mpsobs.mps.tensors import PurifiedMPS, bond_entropies, robust_svd
+from mpsobs.mps.tensors import PurifiedMPS, robust_svd
 
 __all__ = ["wide_number_energy_entropy", "sector_volumes", "MAX_NU"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
@@ -475,8 +475,6 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
     (low, _), _ = evaluate(_joint(lam_low, sectors_low, regions, moments), moments, sub_bins,
                            True)
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
-    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
-           + main.change(coarse_sub))
     log_v = functools.reduce(np.add.outer, log_vols).reshape(p.shape)
     live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
     columns = []
@@ -485,10 +483,4 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
         columns += [asked[name] for name in cg.observables]
     dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live.T)],
                                np.exp(log_v[tuple(live.T)]))
-    bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
-    return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
-                         shannon_err=float(err[1]), boltzmann=main.boltzmann,
-                         boltzmann_err=float(err[2]), max_entropy=cg.max_entropy,
-                         method="approximate", label=cg.label, distribution=dist,
-                         bond_entropies=bonds, algorithm="mps-chebyshev",
-                         pruned_mass=dropped, method_err=float(err[0]))
+    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub))
