@@ -235,6 +235,24 @@ def _workers_ignore_sigint() -> Iterator[None]:
         signal.signal(signal.SIGINT, previous)
 
 
+@contextlib.contextmanager
+def _deferred_sigint() -> Iterator[threading.Event]:
+    """While the points run, a SIGINT only sets the yielded flag; the watch loop raises
+    KeyboardInterrupt at its next poll (at most SUBMIT_POLL seconds later). Raised at
+    once, the interrupt could land inside the scheduler client's own code, which may
+    swallow it, and the run would go on to its end. Outside the main thread (where no
+    signal handler can be set) the flag is never set."""
+    flag = threading.Event()
+    if threading.current_thread() is not threading.main_thread():
+        yield flag
+        return
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: flag.set())
+    try:
+        yield flag
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
 def _start_resource_tracker(log_path: Path) -> None:
     """Start this process's multiprocessing resource tracker (if it is not running yet)
     with its stderr on ``log_path``. The worker processes share it; when they are
@@ -454,7 +472,9 @@ def run_sweep(spec: RunSpec, store: RunStore, *, workers: int | None = None,
             with _client(workers, scheduler, store.root / LOG_FILE) as client:
                 if progress:
                     client.subscribe_topic(PROGRESS_TOPIC, bars.on_event)
-                _submit_and_watch(client, spec, store, kernel, todo, bars, outcome)
+                with _deferred_sigint() as interrupted:
+                    _submit_and_watch(client, spec, store, kernel, todo, bars, outcome,
+                                      interrupted)
                 if progress:
                     client.unsubscribe_topic(PROGRESS_TOPIC)
         finally:
@@ -533,10 +553,12 @@ class _Outcome:
 
 
 def _submit_and_watch(client, spec: RunSpec, store: RunStore, kernel: Kernel | None,
-                      todo: list[Point], bars: _Bars, outcome: _Outcome) -> None:
+                      todo: list[Point], bars: _Bars, outcome: _Outcome,
+                      interrupted: threading.Event) -> None:
     """Keep one task per worker thread in flight (dearest points first; the thread count
     is read again every SUBMIT_POLL seconds, as workers join or leave) until every point
-    has ended, or, once the disk is full, until the running ones have."""
+    has ended, or, once the disk is full, until the running ones have. Raises
+    KeyboardInterrupt at the first poll after ``interrupted`` is set."""
     from distributed import wait
 
     queue = sorted(todo, key=_cost, reverse=True)
@@ -557,6 +579,8 @@ def _submit_and_watch(client, spec: RunSpec, store: RunStore, kernel: Kernel | N
     while in_flight:
         with contextlib.suppress(TimeoutError):
             wait(list(in_flight), timeout=SUBMIT_POLL, return_when="FIRST_COMPLETED")
+        if interrupted.is_set():
+            raise KeyboardInterrupt
         for future in [f for f in in_flight if f.done()]:
             point = in_flight.pop(future)
             try:
