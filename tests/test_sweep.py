@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import sys
 import uuid
 from pathlib import Path
@@ -488,3 +489,14 @@ def test_stored_site_fields_rebuild_the_model(tmp_path, scheduler):
         assert len(rebuilt.terms) == len(original.terms)
         for a, b in zip(rebuilt.terms, original.terms, strict=True):
             assert a.start == b.start and np.array_equal(a.matrix, b.matrix)
+
+
+def test_a_sigint_while_the_points_run_only_sets_the_flag():
+    # the interrupt is raised by the watch loop, not wherever the signal lands; the
+    # previous handler is back afterwards
+    before = signal.getsignal(signal.SIGINT)
+    with sweep._deferred_sigint() as interrupted:
+        assert not interrupted.is_set()
+        os.kill(os.getpid(), signal.SIGINT)   # no KeyboardInterrupt here
+        assert interrupted.wait(5.0)
+    assert signal.getsignal(signal.SIGINT) is before
