@@ -221,18 +221,24 @@ def _progress_reporter(point: Point) -> _Reporter | None:
 
 
 @contextlib.contextmanager
-def _workers_ignore_sigint() -> Iterator[None]:
-    """Ignore SIGINT in this process while the worker processes are started: they
-    inherit the disposition, so a Ctrl-C (sent to the whole process group) reaches only
-    the client, which stops the cluster. A Ctrl-C during the start-up itself is lost."""
+def _sigint_handled_by(handler) -> Iterator[None]:
+    """SIGINT goes to ``handler`` (a function or signal.SIG_IGN) inside the block, in the
+    main thread; elsewhere no signal handler can be set and nothing changes."""
     if threading.current_thread() is not threading.main_thread():
         yield
         return
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    previous = signal.signal(signal.SIGINT, handler)
     try:
         yield
     finally:
         signal.signal(signal.SIGINT, previous)
+
+
+def _workers_ignore_sigint():
+    """Ignore SIGINT in this process while the worker processes are started: they
+    inherit the disposition, so a Ctrl-C (sent to the whole process group) reaches only
+    the client, which stops the cluster. A Ctrl-C during the start-up itself is lost."""
+    return _sigint_handled_by(signal.SIG_IGN)
 
 
 @contextlib.contextmanager
@@ -243,14 +249,8 @@ def _deferred_sigint() -> Iterator[threading.Event]:
     swallow it, and the run would go on to its end. Outside the main thread (where no
     signal handler can be set) the flag is never set."""
     flag = threading.Event()
-    if threading.current_thread() is not threading.main_thread():
+    with _sigint_handled_by(lambda signum, frame: flag.set()):
         yield flag
-        return
-    previous = signal.signal(signal.SIGINT, lambda signum, frame: flag.set())
-    try:
-        yield flag
-    finally:
-        signal.signal(signal.SIGINT, previous)
 
 
 def _start_resource_tracker(log_path: Path) -> None:
