@@ -288,16 +288,28 @@ class _RegionVolumes:
         out = np.empty(len(bins))
         for i, k in enumerate(bins):
             pt = self.points[int(np.argmin(np.abs(energies - (k + 0.5) * width)))]
-            edges = (k + np.arange(sub_bins + 1) / sub_bins) * width
-            weights = chebyshev.bin_weights(edges, self.region.centre,
-                                            self.region.half_width, n_moments)
+            weights, centres = _sub_bins(self.region, k, sub_bins, n_moments)
             p_sub = weights @ (pt.moments_low if low else pt.moments)[:n_moments]
-            live = p_sub > 0
-            centres = (edges[:-1] + edges[1:]) / 2
-            log_z = pt.log_z_low if low else pt.log_z
-            out[i] = (log_z + logsumexp(np.log(p_sub[live]) + pt.beta * centres[live])
-                      if live.any() else -np.inf)
+            out[i] = _reweighted(p_sub, centres, pt.log_z_low if low else pt.log_z, pt.beta)
         return out
+
+
+def _sub_bins(region: _Region, k: int, sub_bins: int,
+              n_moments: int) -> tuple[np.ndarray, np.ndarray]:
+    """The weights C (sub_bins, N) of the equal sub-bins of bin k (probabilities = C mu,
+    :func:`mpsobs.chebyshev.bin_weights`) and the sub-bins' centre energies."""
+    edges = (k + np.arange(sub_bins + 1) / sub_bins) * region.bin_width
+    return (chebyshev.bin_weights(edges, region.centre, region.half_width, n_moments),
+            (edges[:-1] + edges[1:]) / 2)
+
+
+def _reweighted(p_sub: np.ndarray, centres: np.ndarray, log_z: float, beta: float) -> float:
+    """ln [Z sum_s p_beta(s) e^(beta E_s)] over the sub-bins s with p_beta > 0 (-inf if
+    none): the log volume of a bin reweighted from a Gibbs reference."""
+    live = p_sub > 0
+    if not live.any():
+        return -np.inf
+    return float(log_z + logsumexp(np.log(p_sub[live]) + beta * centres[live]))
 
 
 def _fingerprint(model: Model) -> str:

@@ -66,7 +66,6 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import logsumexp
 
 from mpsobs.chain.coarse import WideEnergyRegions
 from mpsobs.chain.models import Model
@@ -92,7 +91,9 @@ from mpsobs.estimators.wide_energy import (
     _moments,
     _Region,
     _region,
+    _reweighted,
     _split,
+    _sub_bins,
     _targets,
 )
 from mpsobs.mps.charges import block_qr, col_charges, definite_charges, local_charges
@@ -350,7 +351,6 @@ class _SectorVolumes:
     def log_volumes(self, numbers, bins, n_moments: int, sub_bins: int,
                     low: bool = False) -> np.ndarray:
         """ln Omega(n, b) for the pairs (``numbers``[i], ``bins``[i])."""
-        width = self.region.bin_width
         if self.exact:
             counts = np.array([np.sum(self.sector_bins[n] == k)
                                for n, k in zip(numbers, bins, strict=True)])
@@ -358,20 +358,14 @@ class _SectorVolumes:
                 return np.log(counts.astype(float))
         out = np.empty(len(bins))
         for i, (n, k) in enumerate(zip(numbers, bins, strict=True)):
-            edges = (k + np.arange(sub_bins + 1) / sub_bins) * width
-            weights = chebyshev.bin_weights(edges, self.region.centre,
-                                            self.region.half_width, n_moments)
-            centres = (edges[:-1] + edges[1:]) / 2
+            weights, centres = _sub_bins(self.region, k, sub_bins, n_moments)
             subs = [weights @ (pt.moments_low if low else pt.moments)[n, :n_moments]
                     for pt in self.points]
             # the reference that puts the most weight into (n, b) resolves it best
             best = int(np.argmax([np.clip(sub, 0.0, None).sum() for sub in subs]))
-            pt, p_sub = self.points[best], subs[best]
-            live = p_sub > 0
+            pt = self.points[best]
             log_z = pt.log_z_low if low else pt.log_z
-            out[i] = (log_z - pt.nu * n + logsumexp(np.log(p_sub[live])
-                                                      + pt.beta * centres[live])
-                      if live.any() else -np.inf)
+            out[i] = _reweighted(subs[best], centres, log_z - pt.nu * n, pt.beta)
         return out
 
 
