@@ -190,7 +190,7 @@ def test_exact_volume_regions_against_the_definition_and_both_orders_agree():
     np.testing.assert_array_equal(first.distribution.outcomes,
                                   second.distribution.outcomes[:, [1, 0, 3, 2]])
     # asking the number too refines the energy alone, so S_obs does not rise
-    # (monotonicity: Phys. Rev. A 99, 010101(R) (2019))
+    # (monotonicity: Phys. Rev. A 99, 010101(R) (2019), reference from memory)
     alone = we.wide_energy_entropy(state, coarse.WideEnergyRegions(
         L, ((0, cut), (cut, L)), model, width, "e"), moments=64, bond=32)
     assert first.entropy <= alone.entropy + _total_error(first) + _total_error(alone)
