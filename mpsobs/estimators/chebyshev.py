@@ -36,7 +36,8 @@ from mpsobs.mps.evolution import GateChain, Gates, layer_schedule
 from mpsobs.mps.tensors import robust_svd
 
 __all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "moment_tensor",
-           "commuting_moments", "jackson", "bin_weights", "gibbs_segment", "SPECTRUM_MARGIN"]
+           "commuting_moments", "jackson", "bin_weights", "edge_windows", "gibbs_segment",
+           "SPECTRUM_MARGIN"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Relative margin added to the spectrum bounds so that Ht stays inside (-1, 1).
@@ -258,6 +259,33 @@ def bin_weights(edges: np.ndarray, centre: float, half_width: float,
     out[:, 0] = (phi[:-1] - phi[1:]) / np.pi
     out[:, 1:] = 2 * (sines[:-1] - sines[1:]) / (n * np.pi)
     return out * jackson(n_moments)
+
+
+def edge_windows(edges: np.ndarray, centre: float, half_width: float,
+                 n_moments: int) -> np.ndarray:
+    """W[e, n] such that sum_n W[e, n] mu_n is the weight near energy edge e that the
+    kernel does not resolve at N = ``n_moments`` moments: the mass of the window
+    e +- delta (delta = pi a / N, the kernel resolution, a = ``half_width``) at N moments
+    minus the same window at N / 2, divided by that difference for a single level at e.
+
+    A level at e counts fully, a density smooth on the scale delta counts to second order
+    in delta (zero for a linear density), levels farther than about 2 delta barely. Used
+    for the edge part of the wide-region error estimate
+    (:mod:`mpsobs.estimators.wide_energy`). Rows of edges outside the spectrum are zero.
+    Cost O(E N)."""
+    edges = np.asarray(edges, dtype=float)
+    delta = np.pi * half_width / n_moments
+    half = n_moments // 2
+    out = np.zeros((len(edges), n_moments))
+    for i, e in enumerate(edges):
+        window = [e - delta, e + delta]
+        diff = bin_weights(window, centre, half_width, n_moments)[0]
+        diff[:half] -= bin_weights(window, centre, half_width, half)[0]
+        phi = np.arccos(np.clip((e - centre) / half_width, -1.0, 1.0))
+        level = diff @ np.cos(phi * np.arange(n_moments))   # the same for a level at e
+        if level > 1e-6:
+            out[i] = diff / level
+    return out
 
 
 def gibbs_segment(model: Model, beta: float, max_bond: int,

@@ -41,7 +41,15 @@ the sum of the changes of S_obs when (1) the number of moments is halved (state 
 volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
 least like N^(-1/2)), (2) the compression bond is halved (state; Gibbs references and
 their ln Z, built also with twice the imaginary-time step), (3) the volume sub-bins are
-halved; and, reported apart as ``pruned_mass``, (4) the probability that the smoothed
+halved, and (4) the edge part: at every bin edge of every region, the weight the kernel
+does not resolve there (the mass within one resolution of the edge at N moments minus
+that at N / 2, scaled so that a single level at the edge counts fully,
+:func:`mpsobs.chebyshev.edge_windows`) is half moved to either side, and the larger
+change of S_obs is added. (4) covers the case (1) cannot see: a level closer to an edge
+than the resolution has its weight split about evenly at N and at N / 2 alike, and
+halving N hardly changes S_obs while the true error stays at the split. For a density
+smooth on the resolution scale (large regions) (4) vanishes to second order.
+Reported apart as ``pruned_mass``: (5) the probability that the smoothed
 series puts into bins without eigenvalues (exact-count regions only), whose entropy
 bound the total error adds. The same for the Shannon and Boltzmann parts.
 The smoothing of the kernel (resolution about pi a / N for a spectrum half-width a) makes
@@ -227,15 +235,64 @@ def _state_moments(segments, lam: np.ndarray, regions, n_moments: int,
     return chebyshev.moment_tensor(segments[1], mpo, n_moments, bond, *outer)
 
 
+def _contract(mu: np.ndarray, weights) -> np.ndarray:
+    """sum_n W_R[i, n] ... mu_n... along every axis, one weight matrix (rows, N') per
+    region, with the first N' moments of mu."""
+    p = mu[(slice(weights[0].shape[1]),) * mu.ndim]
+    for axis, c in enumerate(weights):
+        p = np.moveaxis(np.tensordot(c, p, axes=(1, axis)), 0, axis)
+    return p
+
+
+def _bin_weights(regions, n_moments: int) -> list[np.ndarray]:
+    return [chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
+            for r in regions]
+
+
 def _joint(mu: np.ndarray, regions, n_moments: int) -> np.ndarray:
     """Bin probabilities P[b_A, b_B] (or P[b_A, b_C, b_B]) from the first ``n_moments``
     of mu along every axis (clipped >= 0, renormalised)."""
-    p = mu[(slice(n_moments),) * mu.ndim]
-    for axis, r in enumerate(regions):
-        c = chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
-        p = np.moveaxis(np.tensordot(c, p, axes=(1, axis)), 0, axis)
-    p = np.clip(p, 0.0, None)
+    p = np.clip(_contract(mu, _bin_weights(regions, n_moments)), 0.0, None)
     return p / p.sum()
+
+
+def _edge_leakage(p: np.ndarray, log_v: np.ndarray, contract, regions, n_moments: int,
+                  axes) -> np.ndarray:
+    """Edge part (4) of the error (module docstring): |change| of S_obs, of its Shannon and
+    its Boltzmann part, summed over every bin edge of every region (and every bin of the
+    other regions), when half the weight the kernel does not resolve at the edge
+    (:func:`mpsobs.chebyshev.edge_windows`, clipped >= 0) moves to either side.
+
+    ``contract(weights)`` gives the raw bin-probability array of the state for one weight
+    matrix per region; ``axes[i]`` is the axis of region i in ``p`` and ``log_v``."""
+    weights = _bin_weights(regions, n_moments)
+    total = np.zeros(3)
+    for i, (axis, r) in enumerate(zip(axes, regions, strict=True)):
+        edges = chebyshev.edge_windows(r.edges[1:-1], r.centre, r.half_width, n_moments)
+        unresolved = contract([edges if j == i else w for j, w in enumerate(weights)])
+        total += _moved_mass_change(p, log_v, np.clip(unresolved, 0.0, None) / 2, axis)
+    return total
+
+
+def _moved_mass_change(p: np.ndarray, log_v: np.ndarray, moved: np.ndarray,
+                       axis: int) -> np.ndarray:
+    """Summed |change| of (S_obs, Shannon, Boltzmann) when the mass ``moved[..., j, ...]``
+    (at most what the bin holds) goes from bin j + 1 to bin j along ``axis``, or from j
+    to j + 1, whichever changes the part more; pairs with an empty bin are left out."""
+    n = p.shape[axis]
+    a, b = p.take(range(n - 1), axis), p.take(range(1, n), axis)
+    la, lb = log_v.take(range(n - 1), axis), log_v.take(range(1, n), axis)
+    both = np.isfinite(la) & np.isfinite(lb)
+    la, lb = np.where(both, la, 0.0), np.where(both, lb, 0.0)
+
+    def shannon(x):
+        return -x * np.log(np.where(x > 0.0, x, 1.0))
+
+    changes = []
+    for m in (np.minimum(moved, b), -np.minimum(moved, a)):
+        parts = shannon(a + m) + shannon(b - m) - shannon(a) - shannon(b), m * (la - lb)
+        changes.append(np.where(both, np.abs([parts[0] + parts[1], *parts]), 0.0))
+    return np.maximum(*changes).reshape(3, -1).sum(axis=1)
 
 
 def _marginals(p: np.ndarray) -> list[np.ndarray]:
@@ -272,15 +329,18 @@ class _RegionVolumes:
         self.points = ([] if self.exact else
                        [_gibbs_point(region, float(e), n_moments, bond) for e in targets])
 
+    @functools.cached_property
+    def _eigenvalues(self) -> np.ndarray:
+        """The eigenvalues of H_R (exact-count regions; diagonalised once, cost 8^n)."""
+        return np.linalg.eigvalsh(self.region.model.block_hamiltonian(0, self.region.model.L))
+
     def log_volumes(self, bins: np.ndarray, n_moments: int, sub_bins: int,
                     low: bool = False) -> np.ndarray:
         """ln Omega(b) of the integer bins (N = ``n_moments`` of the stored moments;
         ``low``: the references at half the bond)."""
         width = self.region.bin_width
         if self.exact:
-            evals = np.linalg.eigvalsh(self.region.model.block_hamiltonian(
-                0, self.region.model.L))
-            index = np.floor(evals / width).astype(np.int64)
+            index = np.floor(self._eigenvalues / width).astype(np.int64)
             counts = np.array([np.sum(index == k) for k in bins], dtype=float)
             with np.errstate(divide="ignore"):
                 return np.log(counts)
@@ -559,8 +619,8 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     Returns
     -------
     EntropyResult with method "approximate": ``stderr`` 0 (nothing is sampled),
-    ``method_err`` (and the parts' errors) the error estimate (1)-(3) of the module
-    docstring, ``pruned_mass`` the probability of (4), whose entropy bound is added by
+    ``method_err`` (and the parts' errors) the error estimate (1)-(4) of the module
+    docstring, ``pruned_mass`` the probability of (5), whose entropy bound is added by
     the total error (:mod:`mpsobs.analysis.uncertainty`); ``distribution`` the bins
     (b_A, b_B), or (b_A, b_C, b_B), with p > 1e-14.
     """
@@ -599,18 +659,21 @@ def wide_energy_entropy(state, cg: WideEnergyRegions, *, moments: int = DEFAULT_
     live = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
     outcomes = np.column_stack([reg.bins[live[:, i]] for i, reg in enumerate(regions)])
     dist = OutcomeDistribution(outcomes, p[tuple(live.T)], np.exp(log_v[tuple(live.T)]))
-    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub))
+    leak = _edge_leakage(p, log_v, functools.partial(_contract, mu), regions, moments,
+                         range(p.ndim))
+    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)
 
 
 def _approximate_result(mps, cg, dist: OutcomeDistribution, dropped: float, main: _Parts,
-                        reruns: tuple[_Parts, _Parts, _Parts]) -> EntropyResult:
-    """The result of a wide-region estimate from its main evaluation and its reruns at
-    half the moments, half the bond and half the sub-bins: the method error (module
-    docstring) is the sum of their changes, the first divided by
-    RESOLUTION_ORDER_FACTOR."""
+                        reruns: tuple[_Parts, _Parts, _Parts],
+                        leak: np.ndarray) -> EntropyResult:
+    """The result of a wide-region estimate from its main evaluation, its reruns at
+    half the moments, half the bond and half the sub-bins, and the edge part ``leak``
+    (:func:`_edge_leakage`): the method error (module docstring) is the sum of the
+    reruns' changes, the first divided by RESOLUTION_ORDER_FACTOR, and the edge part."""
     half, low, coarse_sub = reruns
     err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
-           + main.change(coarse_sub))
+           + main.change(coarse_sub) + leak)
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
                          shannon_err=float(err[1]), boltzmann=main.boltzmann,

@@ -50,7 +50,8 @@ the smallest); |beta| is capped as in
 Error (``method_err``, an estimate, not a bound): as in
 :mod:`mpsobs.estimators.wide_energy`, the changes of S_obs when the moments are halved
 (divided by sqrt(2) - 1), the compression bond is halved (state and references) and the
-sub-bins are halved; ``pruned_mass`` the probability the smoothed series puts into
+sub-bins are halved, and the edge part of the energy bins in each number sector;
+``pruned_mass`` the probability the smoothed series puts into
 (n, b) without eigenvalues (exact-count regions) or without a positive reweighted
 volume.
 
@@ -84,7 +85,9 @@ from mpsobs.estimators.wide_energy import (
     NEWTON_STEPS,
     PROBABILITY_FLOOR,
     _approximate_result,
+    _bin_weights,
     _check_resolution,
+    _edge_leakage,
     _entropy,
     _mirror_model,
     _mirror_segment,
@@ -223,14 +226,14 @@ def _state_sectors(mps, cut: int, regions, n_moments: int,
     return lam, out
 
 
-def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
-    """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
-    renormalised). A pair of sectors contributes when both hold the same Schmidt indices
-    (charges: n_B = N - n_A; phases: every pair). Cost per pair N^2 chi^2."""
-    weights = [chebyshev.bin_weights(r.edges, r.centre, r.half_width, n_moments)
-               for r in regions]
-    p = np.zeros((regions[0].model.L + 1, len(regions[0].bins),
-                  regions[1].model.L + 1, len(regions[1].bins)))
+def _contract(lam: np.ndarray, sectors, sites: tuple[int, int], weights) -> np.ndarray:
+    """P[n_A, i_A, n_B, i_B] = sum W_A[i_A, n] mu_nm W_B[i_B, m] per pair of sectors (n_A
+    of 0 .. sites[0], n_B of 0 .. sites[1]), with one weight matrix (rows, N') per region
+    and the first N' moments. A pair of sectors
+    contributes when both hold the same Schmidt indices (charges: n_B = N - n_A; phases:
+    every pair). Cost per pair N'^2 chi^2."""
+    n_moments = weights[0].shape[1]
+    p = np.zeros((sites[0] + 1, len(weights[0]), sites[1] + 1, len(weights[1])))
     for sa in sectors[0]:
         ma = (sa.moments[:n_moments] * np.outer(lam[sa.index], lam[sa.index])).reshape(
             n_moments, -1)
@@ -238,7 +241,14 @@ def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
             if np.array_equal(sa.index, sb.index):
                 mu = (ma @ sb.moments[:n_moments].reshape(n_moments, -1).T).real
                 p[sa.number, :, sb.number, :] = weights[0] @ mu @ weights[1].T
-    p = np.clip(p, 0.0, None)
+    return p
+
+
+def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
+    """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
+    renormalised)."""
+    sites = (regions[0].model.L, regions[1].model.L)
+    p = np.clip(_contract(lam, sectors, sites, _bin_weights(regions, n_moments)), 0.0, None)
     return p / p.sum()
 
 
@@ -477,4 +487,7 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
         columns += [asked[name] for name in cg.observables]
     dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live.T)],
                                np.exp(log_v[tuple(live.T)]))
-    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub))
+    sites = (regions[0].model.L, regions[1].model.L)
+    contract = functools.partial(_contract, lam, sectors, sites)
+    leak = _edge_leakage(p, log_v, contract, regions, moments, (1, 3))
+    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)
