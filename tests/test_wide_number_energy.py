@@ -224,6 +224,30 @@ def test_sector_volumes_of_13_sites_match_exact_counts():
     np.testing.assert_allclose(got, np.log(exact), atol=0.1)
 
 
+def test_grand_canonical_references_are_reused_and_do_not_change_the_result(monkeypatch):
+    # a second evaluation takes the references from the memo (no Gibbs build) and gives
+    # the same numbers as one with an empty memo
+    L, cut = 16, 13
+    model, state = _quench(L, 1.0, 8)
+    cg = coarse.sequence(coarse.blocks(L, None, "number", regions=[[0, cut], [cut, L]]),
+                         coarse.blocks(L, None, "energy", model=model, bin_width=1.0,
+                                       regions=[[0, cut], [cut, L]]))
+    options = {"moments": 8, "bond": 4, "sub_bins": 2}
+    monkeypatch.setattr(we, "_MEMO", {})
+    first = wne.wide_number_energy_entropy(state, cg, **options)
+    builds = []
+    original = chebyshev.gibbs_segment
+    monkeypatch.setattr(chebyshev, "gibbs_segment",
+                        lambda *args: builds.append(args) or original(*args))
+    again = wne.wide_number_energy_entropy(state, cg, **options)
+    assert builds == []
+    monkeypatch.setattr(we, "_MEMO", {})
+    fresh = wne.wide_number_energy_entropy(state, cg, **options)
+    assert len(builds) > 0
+    for res in (again, fresh):
+        assert (res.entropy, res.method_err) == (first.entropy, first.method_err)
+
+
 def test_infinite_temperature_gives_the_maximal_entropy():
     # beta = 0: p(n, b) = V(n, b) / 2^L, so S_obs = L ln 2 (definition, DESIGN 3c); the
     # purification's region numbers come from the phases

@@ -45,7 +45,9 @@ whose norm gives the rest of ln Z). (beta, nu) by two-dimensional Newton steps s
 deviations: three references) and <N_R> near the state's mean regional number; each
 (n, b) uses the reference that gives it the most weight (whose relative error is then
 the smallest); |beta| is capped as in
-:mod:`mpsobs.estimators.wide_energy`, |nu| at MAX_NU.
+:mod:`mpsobs.estimators.wide_energy`, |nu| at MAX_NU. As there, (beta, nu) lie on a grid
+(spacings BETA_GRID / sigma_0 of H_R and of N_R at infinite temperature) and the
+references are kept in the memo of the process, so that later output times reuse them.
 
 Error (``method_err``, an estimate, not a bound): as in
 :mod:`mpsobs.estimators.wide_energy`, the changes of S_obs when the moments are halved
@@ -76,6 +78,7 @@ from mpsobs.estimators import chebyshev
 from mpsobs.estimators.estimate import canonical_state
 from mpsobs.estimators.result import EntropyResult, OutcomeDistribution
 from mpsobs.estimators.wide_energy import (
+    BETA_GRID,
     DEFAULT_BOND,
     DEFAULT_MOMENTS,
     DEFAULT_SUB_BINS,
@@ -89,6 +92,8 @@ from mpsobs.estimators.wide_energy import (
     _check_resolution,
     _edge_leakage,
     _entropy,
+    _fingerprint,
+    _memo,
     _mirror_model,
     _mirror_segment,
     _moments,
@@ -308,40 +313,78 @@ def _gibbs_run(region: _Region, beta: float, nu: float, n_moments: int, bond: in
     return log_z + log_weight, moments[:, :, 0, 0].real
 
 
-def _gibbs_point(region: _Region, target: float, number: float, n_moments: int,
-                 bond: int) -> _GibbsPoint:
-    """The region's reference with <H_R> near ``target`` and <N_R> near ``number``:
-    Newton steps in (beta, nu) from (0, 0) (d<H>/dbeta = -Var H, d<H>/dnu = Cov(H, N),
-    d<N>/dbeta = -Cov(H, N), d<N>/dnu = Var N) until both are within half a standard
-    deviation, at most NEWTON_STEPS, |beta| <= MAX_BETA_RESOLUTION / delta (as
-    :mod:`mpsobs.estimators.wide_energy`) and |nu| <= MAX_NU."""
+def _grand_probe(region: _Region, beta: float, nu: float,
+                 bond: int) -> tuple[float, float, float, float, float]:
+    """<H_R>, <N_R>, Var H_R, Var N_R and Cov(H_R, N_R) in e^(-beta H + nu N) / Z
+    (compression ``bond``, four moments)."""
     a, c = region.half_width, region.centre
-    beta_max = MAX_BETA_RESOLUTION * n_moments / (np.pi * a)
-    beta = nu = 0.0
     n = np.arange(region.model.L + 1)
+    _, m = _gibbs_run(region, beta, nu, 4, bond)
+    w, x1, x2 = m[:, 0], m[:, 1], (m[:, 2] + m[:, 0]) / 2   # P(n), <Ht; n>, <Ht^2; n>
+    mean_n, mean_x = w @ n, x1.sum()
+    return (float(c + a * mean_x), float(mean_n), float(a * a * (x2.sum() - mean_x**2)),
+            float(w @ n**2 - mean_n**2), float(a * (x1 @ n - mean_x * mean_n)))
+
+
+def _reference_point(region: _Region, target: float, number: float, n_moments: int,
+                     bond: int, key: str) -> tuple[float, float]:
+    """The grid (beta, nu) of the region's reference for <H_R> near ``target`` and <N_R>
+    near ``number``: Newton steps from (0, 0) (d<H>/dbeta = -Var H, d<H>/dnu = Cov(H, N),
+    d<N>/dbeta = -Cov(H, N), d<N>/dnu = Var N), each rounded to the grid of spacings
+    BETA_GRID / sigma_0 (sigma_0 the spreads of H_R and N_R at (0, 0)), until both are
+    within half a standard deviation or the step rounds to no move, at most NEWTON_STEPS,
+    |beta| <= MAX_BETA_RESOLUTION / delta (as :mod:`mpsobs.estimators.wide_energy`) and
+    |nu| <= MAX_NU. Probes are kept in the memo of the process."""
+    search_bond = min(bond, NEWTON_BOND)
+
+    def probe(beta: float, nu: float) -> tuple[float, float, float, float, float]:
+        return _memo(("grand probe", key, beta, nu, search_bond),
+                     lambda: _grand_probe(region, beta, nu, search_bond))
+
+    _, _, var_h0, var_n0, _ = probe(0.0, 0.0)
+    steps = BETA_GRID / np.sqrt(max(var_h0, 1e-300)), BETA_GRID / np.sqrt(max(var_n0, 1e-300))
+    largest = (int(np.floor(MAX_BETA_RESOLUTION * n_moments / (np.pi * region.half_width)
+                            / steps[0])), int(np.floor(MAX_NU / steps[1])))
+    kb = kn = 0
     for _ in range(NEWTON_STEPS):
-        _, m = _gibbs_run(region, beta, nu, 4, min(bond, NEWTON_BOND))
-        w, x1, x2 = m[:, 0], m[:, 1], (m[:, 2] + m[:, 0]) / 2   # P(n), <Ht; n>, <Ht^2; n>
-        mean_n, mean_x = w @ n, x1.sum()
-        var_n, var_x = w @ n**2 - mean_n**2, x2.sum() - mean_x**2
-        cov = x1 @ n - mean_x * mean_n
-        var_h, cov_h, mean_h = a * a * var_x, a * cov, c + a * mean_x
+        beta, nu = kb * steps[0], kn * steps[1]
+        mean_h, mean_n, var_h, var_n, cov_h = probe(beta, nu)
         if var_h <= 0 or (abs(mean_h - target) <= 0.5 * np.sqrt(var_h)
                           and abs(mean_n - number) <= 0.5 * np.sqrt(max(var_n, 0.0))):
             break
         jac = np.array([[-var_h, cov_h], [-cov_h, var_n]])
         step = np.linalg.lstsq(jac, [target - mean_h, number - mean_n], rcond=None)[0]
-        new_beta = float(np.clip(beta + step[0], -beta_max, beta_max))
+        new_kb = int(np.clip(np.rint((beta + step[0]) / steps[0]), -largest[0], largest[0]))
         # nu from the number's row with the beta step taken (a capped beta must not
         # make nu chase the energy)
-        dnu = (number - mean_n + cov_h * (new_beta - beta)) / var_n if var_n > 0 else 0.0
-        beta, nu = new_beta, float(np.clip(nu + dnu, -MAX_NU, MAX_NU))
-    (log_z, mu), (log_z_low, mu_low) = (
-        _gibbs_run(region, beta, nu, n_moments, b, step)
-        for b, step in ((bond, chebyshev.GIBBS_STEP),
-                        (max(2, bond // 2), 2 * chebyshev.GIBBS_STEP)))
-    return _GibbsPoint(beta, nu, float(c + a * mu[:, 1].sum()), log_z, log_z_low, mu,
-                       mu_low)
+        dnu = ((number - mean_n + cov_h * (new_kb * steps[0] - beta)) / var_n
+               if var_n > 0 else 0.0)
+        new_kn = int(np.clip(np.rint((nu + dnu) / steps[1]), -largest[1], largest[1]))
+        if (new_kb, new_kn) == (kb, kn):
+            break
+        kb, kn = new_kb, new_kn
+    return kb * steps[0], kn * steps[1]
+
+
+def _gibbs_point(region: _Region, target: float, number: float, n_moments: int,
+                 bond: int) -> _GibbsPoint:
+    """The region's grand-canonical reference for ``target`` and ``number``
+    (:func:`_reference_point`), its ln Z and moments at the compression bond and at half
+    of it. Kept in the memo of the process by region, grid (beta, nu) and settings, so
+    that later output times reuse it; the result does not depend on what the memo
+    holds."""
+    key = _fingerprint(region.model)
+    beta, nu = _reference_point(region, target, number, n_moments, bond, key)
+
+    def build() -> _GibbsPoint:
+        (log_z, mu), (log_z_low, mu_low) = (
+            _gibbs_run(region, beta, nu, n_moments, b, step)
+            for b, step in ((bond, chebyshev.GIBBS_STEP),
+                            (max(2, bond // 2), 2 * chebyshev.GIBBS_STEP)))
+        energy = float(region.centre + region.half_width * mu[:, 1].sum())
+        return _GibbsPoint(beta, nu, energy, log_z, log_z_low, mu, mu_low)
+
+    return _memo(("grand reference", key, beta, nu, n_moments, bond), build)
 
 
 class _SectorVolumes:

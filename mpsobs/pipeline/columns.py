@@ -134,7 +134,8 @@ RESULT_COLUMNS: tuple[Column, ...] = (
                               "regions); NaN otherwise"),
     Column(METHOD_ERROR, "nats", "error estimate of an approximate estimator (the energies "
                                  "of wide regions: moments, compression bond and volume "
-                                 "sub-bins halved); an estimate, not a bound; 0 otherwise"),
+                                 "sub-bins halved, weight unresolved at bin edges); an "
+                                 "estimate, not a bound; 0 otherwise"),
     Column(TRUNCATION_ERROR, "nats", "|S_obs(chi_max) - S_obs(chi_check)|, a truncation "
                                      "error estimate (not a bound)" + _NO_CHECK),
     Column(SHANNON_TRUNCATION_ERROR, "nats", "the same for the Shannon part" + _NO_CHECK),
