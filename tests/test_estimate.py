@@ -399,8 +399,13 @@ def test_product_state_is_exact_with_zero_error():
                         for v in block_vectors(state, b))
         sampled = mps_observational_entropy(state, build(L), method="sample", samples=50,
                                             seed=3)
-        assert sampled.entropy == pytest.approx(reference, abs=1e-10)
-        assert sampled.stderr < 1e-12
+        # Dense environments sample in single precision: each conditional probability
+        # carries a relative round-off of a few units u = 2^-24 (float32 weights and the
+        # environment of a bond-1 state), so f_k = sum_i p_i (ln V_i - ln p_i) moves by
+        # at most about 4 u (f_k + 1), and S_obs by 4 u (S_obs + blocks).
+        round_off = 4 * 2.0**-24 * (reference + L // b)
+        assert sampled.entropy == pytest.approx(reference, abs=max(1e-10, round_off))
+        assert sampled.stderr < max(1e-12, round_off)
         for method in (None, "exact"):
             exact = mps_observational_entropy(state, build(L), method=method)
             assert exact.method == "exact" and exact.algorithm == "mps-conditional"
@@ -483,6 +488,25 @@ def test_reproducible_from_seed_and_independent_of_batch(method):
                                   np.concatenate([h.outcomes for h in halves]))
     np.testing.assert_allclose(whole.shannon, np.concatenate([h.shannon for h in halves]),
                                atol=1e-12)
+
+
+def test_single_precision_environments_give_the_same_paths_within_round_off():
+    # The same uniforms through double and single-precision environments: the same
+    # paths, and values within the single-precision round-off of a probability summed
+    # over 2 chi^2 terms (unit u = 2^-24 each, a bound, not an estimate) carried into
+    # f_k = sum_i p_i (ln V_i - ln p_i) as in the product-state test above.
+    L, chi = 16, 8
+    state = canonical_state(mpsmod.random_mps(L, chi, seed=4), L)
+    blocks = readout_blocks(state, coarse.blocks(L, 4))
+    weights = [outcome_weights(b) for b in blocks]
+    uniforms = np.random.default_rng(8).random((60, len(blocks)))
+    double = draw_conditional(blocks, weights, uniforms, share=True)
+    single = draw_conditional(blocks, weights, uniforms, share=True, single=True)
+    np.testing.assert_array_equal(single.outcomes, double.outcomes)
+    values = double.shannon + double.boltzmann
+    round_off = 2 * chi**2 * 2.0**-24 * (values + len(blocks))
+    assert np.all(np.abs(single.shannon + single.boltzmann - values) <= round_off)
+    assert np.any(single.shannon != double.shannon)   # it did run in single precision
 
 
 def test_shared_prefix_environments_give_the_same_paths():

@@ -243,8 +243,10 @@ def conditional_probabilities(envs: np.ndarray, weights: np.ndarray) -> np.ndarr
 
     Parameters
     ----------
-    envs : (n, l, l) C-contiguous complex stack of positive environments E (any trace).
-    weights : (2 l^2, outcomes) from :func:`outcome_weights` of the next block.
+    envs : (n, l, l) complex stack of positive environments E (any trace).
+    weights : (2 l^2, outcomes) from :func:`outcome_weights` of the next block (float32
+        with a complex64 stack: the product is then taken in single precision and
+        returned in double).
 
     Returns
     -------
@@ -253,7 +255,8 @@ def conditional_probabilities(envs: np.ndarray, weights: np.ndarray) -> np.ndarr
     the rows are normalised (their sum is Tr E, since sum_i R_i = 1).
     """
     n = envs.shape[0]
-    p = np.ascontiguousarray(envs).view(np.float64).reshape(n, -1) @ weights
+    envs = np.ascontiguousarray(envs)
+    p = (envs.view(envs.real.dtype).reshape(n, -1) @ weights).astype(np.float64, copy=False)
     np.clip(p, 0.0, None, out=p)
     p /= p.sum(axis=1, keepdims=True)
     return p

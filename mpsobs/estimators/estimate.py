@@ -50,8 +50,11 @@ Estimators (``method``):
   output time came out) enumeration is not tried at all.
 
 Number-conserving states (definite bond charges) are enumerated and sampled on charge
-blocks (:mod:`mpsobs.estimators.charges`), with the same values up to round-off;
-:func:`baseline_algorithms` switches that, and the ``previous_method`` shortcut, off.
+blocks (:mod:`mpsobs.estimators.charges`), with the same values up to round-off; the
+sampler with dense environments (states without definite charges, purifications) works
+in single precision (:func:`mpsobs.estimators.sampling.draw_conditional`), whose
+round-off stays far below the standard error; :func:`baseline_algorithms` switches
+these, and the ``previous_method`` shortcut, off.
 """
 
 from __future__ import annotations
@@ -123,10 +126,11 @@ _BASELINE = contextvars.ContextVar("mpsobs_baseline_algorithms", default=False)
 def baseline_algorithms() -> Iterator[None]:
     """Inside this context the estimators run the algorithms used before the charge
     blocks: dense chi x chi environments also for number-conserving states, one per path
-    (not one per distinct prefix), and the automatic choice tries enumeration whatever
-    ``previous_method`` says. For benchmarks
+    (not one per distinct prefix) and in double precision (not single), and the automatic
+    choice tries enumeration whatever ``previous_method`` says. For benchmarks
     and cross-checks (``scripts/bench_point.py``); the numbers agree with the default
-    algorithms within round-off (exact values) or draw for draw (samples, same seed).
+    algorithms within round-off (exact values) or draw for draw (samples, same seed;
+    within single-precision round-off where the default samples with dense environments).
     """
     token = _BASELINE.set(True)
     try:
@@ -312,7 +316,7 @@ class _Sampling:
                  batch: int | None, bar, charged: Sequence[ChargedBlock] | None = None):
         self.blocks = blocks
         self.algorithm = "mps-conditional" if conditional else "mps-sample"
-        self._share = not _BASELINE.get()
+        self._share = self._single = not _BASELINE.get()
         self._vectors = conditional and self._share and single_rows(blocks)
         self._charged = charged if conditional and not self._vectors else None
         self._weights = ([outcome_weights(b) for b in blocks] if conditional
@@ -348,7 +352,7 @@ class _Sampling:
                 h, b = -batch.log_p, batch.log_v
             else:
                 batch = draw_conditional(self.blocks, self._weights, uniforms,
-                                         share=self._share)
+                                         share=self._share, single=self._single)
                 h, b = batch.shannon, batch.boltzmann
             self.shannon.append(h)
             self.boltzmann.append(b)
