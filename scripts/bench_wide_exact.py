@@ -19,54 +19,19 @@ from __future__ import annotations
 
 import argparse
 import os
+import sys
 import time
-
-import numpy as np
+from pathlib import Path
 
 from mpsobs.chain import coarse, models, states
 from mpsobs.chain import evolution as tebd
 from mpsobs.estimators import wide_energy as we
 
+# the exact reference of the test suite (exact diagonalisation of each half)
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+from test_wide_energy import _sector_eigh, exact_halves_entropy  # noqa: E402
+
 L, CUT = 26, 13
-
-
-def _vectors(segment) -> np.ndarray:
-    """(2^n, chi) matrix of the vectors of a segment with an open right bond."""
-    v = segment[0].reshape(-1, segment[0].shape[2])
-    for t in segment[1:]:
-        v = np.tensordot(v, t, axes=(1, 0)).reshape(-1, t.shape[2])
-    return v
-
-
-def _sector_eigh(model) -> tuple[np.ndarray, np.ndarray]:
-    """Eigenvalues and eigenvectors of a number-conserving model, sector by sector."""
-    h = model.sparse_hamiltonian().tocsr()
-    count = np.array([bin(s).count("1") for s in range(2**model.L)])
-    values, vectors = np.empty(2**model.L), np.zeros((2**model.L, 2**model.L))
-    for k in range(model.L + 1):
-        idx = np.flatnonzero(count == k)
-        values[idx], vectors[np.ix_(idx, idx)] = np.linalg.eigh(h[idx][:, idx].toarray())
-    return values, vectors
-
-
-def exact_entropy(state, model, width: float, spectra) -> float:
-    """S_obs of the halves' energies from the dense eigenvectors of each half."""
-    left, lam, right = we._split(we.canonical_state(state).tensors, CUT)
-    vr = _vectors(we._mirror_segment(right))
-    vr = vr.reshape([2] * CUT + [-1]).transpose([*range(CUT - 1, -1, -1), CUT]).reshape(
-        2**CUT, -1)
-    q, counts = [], []
-    for (values, eig), vecs, scale in zip(spectra, (_vectors(left), vr),
-                                          (lam, np.ones_like(lam)), strict=True):
-        amp = eig.T @ vecs * scale
-        k = np.floor(values / width).astype(int)
-        labels = np.unique(k)
-        q.append(np.array([amp[k == b].conj().T @ amp[k == b] for b in labels]))
-        counts.append(np.array([np.sum(k == b) for b in labels]))
-    p = np.einsum("iab,jab->ij", q[0], q[1]).real
-    v = np.outer(*counts)
-    live = p > 1e-15
-    return float(-np.sum(p[live] * np.log(p[live] / v[live])))
 
 
 def main() -> None:
@@ -101,7 +66,7 @@ def main() -> None:
     exact_sites = CUT if args.exact_volumes else we.EXACT_VOLUME_SITES
     for snap in tebd.evolve(states.neel(L), model, args.times, max_bond=args.chi,
                             cutoff=1e-12, dt=0.05, order=4):
-        exact = exact_entropy(snap.state, model, args.bin_width, spectra)
+        exact = exact_halves_entropy(snap.state, model, CUT, args.bin_width, spectra)
         for n_moments, bond in configs:
             start = time.perf_counter()
             res = we.wide_energy_entropy(snap.state, cg, moments=n_moments, bond=bond,

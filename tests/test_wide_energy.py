@@ -302,23 +302,23 @@ def _sector_eigh(model):
     return values, vectors
 
 
-def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
-    # L = 26: exact p from the Schmidt vectors of the evolved MPS and the eigenvectors of
-    # H_A and H_B (13 sites each, diagonalised sector by sector); exact counts likewise.
-    L, cut, width = 26, 13, 1.0
-    model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
-    snap = next(iter(tebd.evolve(states.neel(L), model, [1.0], max_bond=8, cutoff=1e-12,
-                                 dt=0.05, order=4)))
-    left, lam, right = we._split(we.canonical_state(snap.state).tensors, cut)
+def exact_halves_entropy(state, model, cut: int, width: float, spectra=None) -> float:
+    """S_obs of the binned energies of sites 0 .. cut - 1 and cut .. L - 1 of an MPS: p
+    from its Schmidt vectors at the cut and the eigenvectors of H_A and H_B (diagonalised
+    sector by sector; ``spectra`` to reuse them), eigenvalues counted per bin (the
+    definition, DESIGN 3c). Also used by scripts/bench_wide_exact.py."""
+    L = model.L
+    left, lam, right = we._split(we.canonical_state(state).tensors, cut)
     vl = _dense_vectors(left)
+    n = L - cut
     vr = _dense_vectors(we._mirror_segment(right))
-    vr = vr.reshape([2] * cut + [-1]).transpose([*range(cut - 1, -1, -1), cut]).reshape(
-        2**cut, -1)
+    vr = vr.reshape([2] * n + [-1]).transpose([*range(n - 1, -1, -1), n]).reshape(2**n, -1)
+    spectra = spectra or [_sector_eigh(model.restricted(0, cut)),
+                          _sector_eigh(model.restricted(cut, L))]
     q, counts = [], []
     # p(b_A, b_B) = sum_ab lambda_a lambda_b <L_a|P_A|L_b> <R_a|P_B|R_b>
-    for region, vecs, scale in ((model.restricted(0, cut), vl, lam),
-                                (model.restricted(cut, L), vr, np.ones_like(lam))):
-        values, eig = _sector_eigh(region)
+    for (values, eig), vecs, scale in zip(spectra, (vl, vr), (lam, np.ones_like(lam)),
+                                          strict=True):
         amp = eig.T @ vecs * scale
         k = np.floor(values / width).astype(int)
         labels = np.unique(k)
@@ -327,7 +327,17 @@ def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
     p = np.einsum("iab,jab->ij", q[0], q[1]).real
     v = np.outer(*counts)
     live = p > 1e-15
-    exact = float(-np.sum(p[live] * np.log(p[live] / v[live])))
+    return float(-np.sum(p[live] * np.log(p[live] / v[live])))
+
+
+def test_halves_of_13_sites_against_exact_diagonalisation_of_each_half():
+    # L = 26: exact p from the Schmidt vectors of the evolved MPS and the eigenvectors of
+    # H_A and H_B (13 sites each, diagonalised sector by sector); exact counts likewise.
+    L, cut, width = 26, 13, 1.0
+    model = models.xxz(L, delta=0.5, h=0.1, field="staggered")
+    snap = next(iter(tebd.evolve(states.neel(L), model, [1.0], max_bond=8, cutoff=1e-12,
+                                 dt=0.05, order=4)))
+    exact = exact_halves_entropy(snap.state, model, cut, width)
     cg = coarse.blocks(L, None, "energy", model=model, bin_width=width,
                        regions=[[0, cut], [cut, L]])
     res = we.wide_energy_entropy(snap.state, cg, moments=64, bond=16)
