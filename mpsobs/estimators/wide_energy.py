@@ -37,18 +37,21 @@ capped at MAX_BETA_RESOLUTION / delta (delta = pi a / N the kernel resolution): 
 e^(beta E) would magnify the smoothing of p_beta.
 
 Error (``method_err``, an estimate, not a bound, in the habit of the truncation check):
-the sum of the changes of S_obs when (1) the number of moments is halved (state and
-volumes; divided by sqrt(2) - 1, the remaining error of a series whose error falls at
-least like N^(-1/2)), (2) the compression bond is halved (state; Gibbs references and
-their ln Z, built also with twice the imaginary-time step), (3) the volume sub-bins are
-halved, and (4) the edge part: at every bin edge of every region, the weight the kernel
-does not resolve there (the mass within one resolution of the edge at N moments minus
-that at N / 2, scaled so that a single level at the edge counts fully,
-:func:`mpsobs.chebyshev.edge_windows`) is half moved to either side, and the larger
-change of S_obs is added. (4) covers the case (1) cannot see: a level closer to an edge
-than the resolution has its weight split about evenly at N and at N / 2 alike, and
-halving N hardly changes S_obs while the true error stays at the split. For a density
-smooth on the resolution scale (large regions) (4) vanishes to second order.
+the larger of (1) and (4), plus (2) and (3), where (1)-(3) are the changes of S_obs when
+(1) the number of moments is halved (state and volumes; divided by sqrt(2) - 1, the
+remaining error of a series whose error falls at least like N^(-1/2)), (2) the
+compression bond is halved (state; Gibbs references and their ln Z, built also with
+twice the imaginary-time step), (3) the volume sub-bins are halved, and (4) is the edge
+part: at every bin edge of every region, the weight the kernel does not resolve there
+(the mass within one resolution of the edge at N moments minus that at N / 2, scaled so
+that a single level at the edge counts fully, :func:`mpsobs.chebyshev.edge_windows`)
+is half moved to either side, and the larger changes of S_obs are summed over the
+edges. (4) covers the case (1) cannot see: a level closer to an edge than the resolution
+has its weight split about evenly at N and at N / 2 alike, and halving N hardly changes
+S_obs while the true error stays at the split. Both estimate the error of the
+resolution; where it is coarse against the regional energies' spread they see the same
+smoothing, so the larger one is taken, not their sum. For a density smooth on the
+resolution scale (large regions, fine resolution) (4) vanishes to second order.
 Reported apart as ``pruned_mass``: (5) the probability that the smoothed
 series puts into bins without eigenvalues (exact-count regions only), whose entropy
 bound the total error adds. The same for the Shannon and Boltzmann parts.
@@ -669,11 +672,12 @@ def _approximate_result(mps, cg, dist: OutcomeDistribution, dropped: float, main
                         leak: np.ndarray) -> EntropyResult:
     """The result of a wide-region estimate from its main evaluation, its reruns at
     half the moments, half the bond and half the sub-bins, and the edge part ``leak``
-    (:func:`_edge_leakage`): the method error (module docstring) is the sum of the
-    reruns' changes, the first divided by RESOLUTION_ORDER_FACTOR, and the edge part."""
+    (:func:`_edge_leakage`): the method error (module docstring) is the larger of the
+    change at half the moments (divided by RESOLUTION_ORDER_FACTOR) and the edge part,
+    plus the other two changes."""
     half, low, coarse_sub = reruns
-    err = (main.change(half) / RESOLUTION_ORDER_FACTOR + main.change(low)
-           + main.change(coarse_sub) + leak)
+    err = (np.maximum(main.change(half) / RESOLUTION_ORDER_FACTOR, leak)
+           + main.change(low) + main.change(coarse_sub))
     bonds = None if isinstance(mps, PurifiedMPS) else bond_entropies(mps)
     return EntropyResult(entropy=main.entropy, stderr=0.0, shannon=main.shannon,
                          shannon_err=float(err[1]), boltzmann=main.boltzmann,
