@@ -50,11 +50,11 @@ the smallest); |beta| is capped as in
 references are kept in the memo of the process, so that later output times reuse them.
 
 Error (``method_err``, an estimate, not a bound): as in
-:mod:`mpsobs.estimators.wide_energy`, the changes of S_obs when the moments are halved
-(divided by sqrt(2) - 1), the compression bond is halved (state and references) and the
-sub-bins are halved, and the edge part of the energy bins in each number sector;
-``pruned_mass`` the probability the smoothed series puts into
-(n, b) without eigenvalues (exact-count regions) or without a positive reweighted
+:mod:`mpsobs.estimators.wide_energy`, the larger of the change of S_obs when the moments
+are halved (divided by sqrt(2) - 1) and the edge part (at the energy bin edges of each
+number sector), plus the changes when the compression bond is halved (state and
+references) and the sub-bins are halved; ``pruned_mass`` the probability the smoothed
+series puts into (n, b) without eigenvalues (exact-count regions) or without a positive reweighted
 volume.
 
 Cost: the Chebyshev runs of the energy alone (two per region, bonds D and D / 2, N / 2
