@@ -315,13 +315,21 @@ def test_resumed_point_equals_uninterrupted_point(scheduler):
     assert checkpoints[1][1]["done"] == 2 and checkpoints[1][1]["t"] == 0.3
     drop = ["elapsed_s"]
     pd.testing.assert_frame_equal(again.drop(columns=drop), full.drop(columns=drop))
+    # resumed: the same draws; values within the single-precision round-off of the
+    # dense-environment sampler (4 u S_obs, u = 2^-24; absolute, as differences of such
+    # values like the truncation error carry it too), whose last bits may follow the
+    # memory layout of the restored state
+    round_off = 4 * 2.0**-24
     pd.testing.assert_frame_equal(resumed.drop(columns=drop), full.drop(columns=drop),
-                                  rtol=1e-9)
+                                  rtol=round_off, atol=round_off * full["S_obs"].max())
     # At t = 0 the state is a product over blocks, where the conditional estimator has
-    # no variance; later every row carries a sampling error.
+    # no variance (up to the single-precision round-off of dense environments, bounded
+    # as in test_estimate: 4 u (S_obs + blocks), u = 2^-24); later every row carries a
+    # sampling error.
     assert (full["method"] == "sampled").all()
     assert (full["S_obs_err"][full["t"] > 0] > 0).all()
-    assert (full["S_obs_err"][full["t"] == 0] < 1e-12).all()
+    start = full[full["t"] == 0]
+    assert (start["S_obs_err"] < 4 * 2.0**-24 * (start["S_obs"] + 4)).all()
 
 
 KIND_SPEC = {
