@@ -25,7 +25,7 @@ from mpsobs.core.errors import InputError, finite_number, integer, one_of, seed_
 from mpsobs.mps.tensors import MPS, product_mps, right_canonical
 
 __all__ = ["product_state", "neel", "domain_wall", "gas_in_box", "check_gas_in_box",
-           "random_product_state",
+           "random_product_state", "paired_purification",
            "ground_state", "GasPreparation", "PATTERN_CHARACTERS"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
@@ -117,6 +117,17 @@ def random_product_state(L: int, seed: int | np.random.SeedSequence,
     if kind == "basis":
         return product_state(list(rng.integers(0, 2, size=L)))
     return product_state(rng.normal(size=(L, 2)) + 1j * rng.normal(size=(L, 2)))
+
+
+def paired_purification(L: int, alpha: float = 0.0) -> tuple[list[np.ndarray], float]:
+    """The normalised purification of exp(alpha N) / Z on L sites, prod_i (|00> +
+    e^(alpha / 2) |11>) / sqrt(1 + e^alpha) (local dimension 4, index 2 s + a, bond 1;
+    alpha = 0: the infinite-temperature state), and ln Z = L ln(1 + e^alpha), the start
+    of an imaginary-time run towards a Gibbs state (fact of the trade)."""
+    site = np.zeros((1, 4, 1))
+    site[0, 0, 0], site[0, 3, 0] = 1.0, np.exp(alpha / 2)
+    site /= np.sqrt(1 + np.exp(alpha))
+    return [site.astype(complex) for _ in range(L)], L * float(np.logaddexp(0, alpha))
 
 
 def _box_sites(start: int, stop: int, n: int, layout: str) -> list[int]:

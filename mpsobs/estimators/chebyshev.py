@@ -31,6 +31,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from mpsobs.chain.models import Model, bond_hamiltonians, mpo_tensors
+from mpsobs.chain.states import paired_purification
 from mpsobs.core.errors import InputError
 from mpsobs.mps.evolution import GateChain, Gates, layer_schedule
 from mpsobs.mps.tensors import robust_svd
@@ -307,9 +308,8 @@ def gibbs_segment(model: Model, beta: float, max_bond: int,
     n = model.L
     if n < 2:
         raise InputError(f"model: a Gibbs segment needs at least two sites, got {n}")
-    bell = np.zeros((1, 4, 1), dtype=complex)
-    bell[0, 0, 0] = bell[0, 3, 0] = 1 / np.sqrt(2)
-    chain = GateChain([bell.copy() for _ in range(n)], None, normalize=True)
+    start, log_z = paired_purification(n)
+    chain = GateChain(start, None, normalize=True)
     if beta != 0:
         gates = Gates([np.sign(beta) * h for h in bond_hamiltonians(model)], "imaginary", 4,
                       conserve_charge=False)
@@ -317,4 +317,4 @@ def gibbs_segment(model: Model, beta: float, max_bond: int,
         for parity, tau in layer_schedule(4, [abs(beta) / 2 / m] * m):
             chain.apply_layer(parity, gates.layer(parity, tau), max_bond, GIBBS_CUTOFF)
     chain.move_to(0)
-    return chain.tensors, float(n * np.log(2.0) + chain.log_norm2)
+    return chain.tensors, float(log_z + chain.log_norm2)

@@ -56,6 +56,7 @@ from scipy.interpolate import CubicHermiteSpline, CubicSpline
 from scipy.optimize import brentq
 
 from mpsobs.chain.models import Model, bond_hamiltonians
+from mpsobs.chain.states import paired_purification
 from mpsobs.core.errors import InputError, finite_number, integer
 from mpsobs.core.threads import limits_threads
 from mpsobs.mps.charges import definite_charges
@@ -106,11 +107,7 @@ def _infinite_temperature(model: Model, alpha: float,
     """
     L = model.L
     if number is None:
-        site = np.zeros((1, 4, 1))
-        site[0, 0, 0], site[0, 3, 0] = 1.0, np.exp(alpha / 2)
-        site /= np.sqrt(1 + np.exp(alpha))
-        tensors = [site.astype(complex) for _ in range(L)]
-        log_z = L * float(np.logaddexp(0, alpha))
+        tensors, log_z = paired_purification(L, alpha)
     else:
         raw = []
         for i in range(L):
