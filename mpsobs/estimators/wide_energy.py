@@ -68,7 +68,9 @@ stacked environments, about 2 N n d D^3, and a closing N^2 chi^2: in all about
 wide region three Gibbs references, each a few Newton builds at
 bond NEWTON_BOND and two builds and Chebyshev runs (N moments, d = 4) at bonds D and D / 2.
 They dominate the first call; later calls of a run whose regional energies stay within a
-grid step reuse them (memo of MEMO_SIZE entries per process).
+grid step reuse them (memo of MEMO_SIZE entries per process). The edge part (4) costs
+one more contraction of mu per region, with one window per bin edge (E N^2 for two
+regions, E N^3 for three, E edges).
 """
 
 from __future__ import annotations
