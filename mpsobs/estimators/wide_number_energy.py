@@ -54,8 +54,8 @@ Error (``method_err``, an estimate, not a bound): as in
 are halved (divided by sqrt(2) - 1) and the edge part (at the energy bin edges of each
 number sector), plus the changes when the compression bond is halved (state and
 references) and the sub-bins are halved; ``pruned_mass`` the probability the smoothed
-series puts into (n, b) without eigenvalues (exact-count regions) or without a positive reweighted
-volume.
+series puts into (n, b) without eigenvalues (exact-count regions) or without a positive
+reweighted volume.
 
 Cost: the Chebyshev runs of the energy alone (two per region, bonds D and D / 2, N / 2
 compressions of about 3 n d ((w + 1) D)^3 each), plus for each wide region three Gibbs
@@ -231,14 +231,15 @@ def _state_sectors(mps, cut: int, regions, n_moments: int,
     return lam, out
 
 
-def _contract(lam: np.ndarray, sectors, sites: tuple[int, int], weights) -> np.ndarray:
-    """P[n_A, i_A, n_B, i_B] = sum W_A[i_A, n] mu_nm W_B[i_B, m] per pair of sectors (n_A
-    of 0 .. sites[0], n_B of 0 .. sites[1]), with one weight matrix (rows, N') per region
-    and the first N' moments. A pair of sectors
+def _contract(lam: np.ndarray, sectors, regions, weights) -> np.ndarray:
+    """P[n_A, i_A, n_B, i_B] = sum W_A[i_A, n] mu_nm W_B[i_B, m] per pair of sectors (n_R
+    of 0 .. the sites of region R), with one weight matrix (rows, N') per region and the
+    first N' moments. A pair of sectors
     contributes when both hold the same Schmidt indices (charges: n_B = N - n_A; phases:
     every pair). Cost per pair N'^2 chi^2."""
     n_moments = weights[0].shape[1]
-    p = np.zeros((sites[0] + 1, len(weights[0]), sites[1] + 1, len(weights[1])))
+    p = np.zeros((regions[0].model.L + 1, len(weights[0]), regions[1].model.L + 1,
+                  len(weights[1])))
     for sa in sectors[0]:
         ma = (sa.moments[:n_moments] * np.outer(lam[sa.index], lam[sa.index])).reshape(
             n_moments, -1)
@@ -252,8 +253,8 @@ def _contract(lam: np.ndarray, sectors, sites: tuple[int, int], weights) -> np.n
 def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
     """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
     renormalised)."""
-    sites = (regions[0].model.L, regions[1].model.L)
-    p = np.clip(_contract(lam, sectors, sites, _bin_weights(regions, n_moments)), 0.0, None)
+    p = np.clip(_contract(lam, sectors, regions, _bin_weights(regions, n_moments)), 0.0,
+                None)
     return p / p.sum()
 
 
@@ -530,7 +531,6 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
         columns += [asked[name] for name in cg.observables]
     dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live.T)],
                                np.exp(log_v[tuple(live.T)]))
-    sites = (regions[0].model.L, regions[1].model.L)
-    contract = functools.partial(_contract, lam, sectors, sites)
+    contract = functools.partial(_contract, lam, sectors, regions)
     leak = _edge_leakage(p, log_v, contract, regions, moments, (1, 3))
     return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)
