@@ -123,6 +123,25 @@ def test_wide_energy_regions_are_costed():
     assert 0 < coarser.flops < large.flops
 
 
+def test_wide_region_references_are_counted_once_per_point():
+    # the Gibbs references of wide regions are kept in the memo and reused by later
+    # output times: more output times add Chebyshev runs, not references
+    import tomllib
+
+    data = tomllib.loads((SHIPPED / "two-halves.toml").read_text())
+    costs = []
+    for n_times in (3, 6):
+        data["times"]["n_times"] = n_times
+        costs.append(cost.point_cost(spec.parse(data).points[0]))
+    few, many = costs
+    assert many.references.flops == pytest.approx(few.references.flops, rel=1e-12)
+    assert many.estimators.flops > few.estimators.flops > 0
+    # three more output times cost less than the references (built once: imaginary-time
+    # purifications of both halves and their Chebyshev runs at d = 4); counted at every
+    # output time, they would add three times the references
+    assert many.estimators.flops - few.estimators.flops < few.references.flops
+
+
 def test_check_with_costs_builds_each_point_once(monkeypatch):
     from mpsobs import workflow
 

@@ -513,25 +513,28 @@ class KernelCounts:
 
 def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
                   moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
-                  beta: float | None = None) -> KernelCounts:
+                  beta: float | None = None, runs: bool = True,
+                  references: bool = True) -> KernelCounts:
     """Counted work of :func:`wide_energy_entropy` on a state of bond ``state_bond``
-    (local dimension 2, or 4 for a purification): per region two Chebyshev runs (bonds D
-    and D / 2) of N / 2 compressions, each n - 1 QRs and SVDs at the summed bond
-    (w + 1) D and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
-    region, and a closing 8 N^2 chi^2); per region wider than EXACT_VOLUME_SITES three
-    Gibbs references, each NEWTON_STEPS builds and 4-moment runs at NEWTON_BOND and two
-    builds and runs (d = 4) at D and D / 2, a build at |``beta``| (default: the largest,
-    MAX_BETA_RESOLUTION N / (pi a)) taking |beta| / (2 GIBBS_STEP) imaginary-time steps of
-    about six layers of (n - 1) / 2 splits of (4 D, 4 D) (half the steps at D / 2). Every
-    reference counts at every call (the memo's reuse is not counted). An estimate of the
-    order, not a count of the state's own bonds."""
-    n_moments, calls, gemm = moments, 0.0, 0.0
+    (local dimension 2, or 4 for a purification): with ``runs``, per region two Chebyshev
+    runs on the state (bonds D and D / 2) of N / 2 compressions, each n - 1 QRs of
+    (d (w + 1) D, (w + 1) D) and SVDs of ((w + 1) D, d D) (the summed bond against the
+    compressed one) and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
+    region, and a closing 8 N^2 chi^2); with ``references``, per region wider than
+    EXACT_VOLUME_SITES three Gibbs references, each NEWTON_STEPS builds and 4-moment runs
+    at NEWTON_BOND and two builds and runs (d = 4) at D and D / 2, a build at |``beta``|
+    (default: the largest, MAX_BETA_RESOLUTION N / (pi a)) taking |beta| / (2 GIBBS_STEP)
+    imaginary-time steps of about six layers of (n - 1) / 2 splits of (4 D, 4 D) (half
+    the steps at D / 2). The references are built once and kept in the memo, so a cost
+    model counts them once per point and the runs at every output time. An estimate of
+    the order, not a count of the state's own bonds."""
+    calls, gemm = 0.0, 0.0
     svds, qrs = [], []
 
     def run(n: int, w: int, d: int, compress: int, steps: float, stacked: int = 1) -> None:
         nonlocal gemm, calls
         summed = (w + 1) * compress
-        svds.append((summed, d * summed, steps * (n - 1)))
+        svds.append((summed, d * compress, steps * (n - 1)))
         qrs.append((d * summed, summed, steps * (n - 1)))
         gemm += steps * (8.0 * n * w * w * d * d * compress**2
                          + 2 * stacked * 16.0 * n * d * compress**3)
@@ -547,14 +550,14 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
     for i, (a, b) in enumerate(cg.regions):
         region = cg.model.restricted(a, b)
         n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
-        for compress in (bond, max(2, bond // 2)):
+        for compress in (bond, max(2, bond // 2)) if runs else ():
             middle = 0 < i < len(cg.regions) - 1
-            run(n, w, local_dim, compress, n_moments / 2, n_moments if middle else 1)
+            run(n, w, local_dim, compress, moments / 2, moments if middle else 1)
             if middle:
-                gemm += 8.0 * n_moments**3 * state_bond**2
-        if n > EXACT_VOLUME_SITES:
+                gemm += 8.0 * moments**3 * state_bond**2
+        if references and n > EXACT_VOLUME_SITES:
             half = chebyshev.spectrum_bounds(region)[1]
-            largest = MAX_BETA_RESOLUTION * n_moments / (np.pi * half)
+            largest = MAX_BETA_RESOLUTION * moments / (np.pi * half)
             reached = min(largest, largest if beta is None else abs(beta))
             steps = max(1.0, np.ceil(reached / 2 / chebyshev.GIBBS_STEP))
             for _ in VOLUME_TARGETS:
@@ -563,9 +566,9 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
                     run(n, w, 4, min(bond, NEWTON_BOND), 2)
                 for compress, share in ((bond, 1.0), (max(2, bond // 2), 0.5)):
                     build(n, compress, max(1.0, np.ceil(steps * share)))
-                    run(n, w, 4, compress, n_moments / 2)
-    size = 16.0 * (2 * n_moments ** len(cg.regions) + n_moments * state_bond**2
-                   + n_moments * bond**2 * local_dim * (len(cg.regions) - 2))
+                    run(n, w, 4, compress, moments / 2)
+    size = 16.0 * (2 * moments ** len(cg.regions) + moments * state_bond**2
+                   + moments * bond**2 * local_dim * (len(cg.regions) - 2))
     return KernelCounts(gemm, tuple(svds), tuple(qrs), calls, size)
 
 

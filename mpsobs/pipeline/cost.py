@@ -32,14 +32,16 @@ localization, low energy) costs less; an initial state that is already entangled
   counters carried into region i; "enumerate" and "exact" on other coarse-grainings
   depend on the state and are counted like sampling with ``samples`` (the estimator's
   default where the spec leaves it out); energies of wide regions by
-  :func:`mpsobs.estimators.wide_energy.kernel_counts` (Chebyshev runs and Gibbs
-  references at the estimator's default moments and bond, the references at BETA_GUESS).
+  :func:`mpsobs.estimators.wide_energy.kernel_counts` (the Chebyshev runs on the state
+  at the point's moments and bond).
 - References once per point: Gibbs entropies of free-fermion models (XX, Ising at
   h = 0) are negligible; otherwise the purification in imaginary time
   (:mod:`mpsobs.references.thermo`) to BETA_GUESS (the target temperature is not known
   before the run) at steps 0.05, repeated at twice the step, at bond THERMO_BOND_GUESS
   (local dimension 4: SVDs of (4 chi, 4 chi)), the Gibbs state for S_obs_eq, and per
-  coarse-graining the estimator on that purification (rows x 2**b).
+  coarse-graining the estimator on that purification (rows x 2**b); the Gibbs references
+  of wide energy regions (kept in the memo and reused by later output times and the
+  check state) at BETA_GUESS.
 
 Seconds = gemm flops / GEMM_RATE + lapack flops / LAPACK_RATE + calls x CALL_SECONDS,
 single core; core-hours = seconds / 3600. The rates are effective single-core rates of
@@ -262,12 +264,8 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     canonical = Work(sum(8.0 * float(chi[i]) * d * float(chi[i + 1]) ** 2 for i in range(L)),
                      sum(qr_flops(int(d * chi[i + 1]), int(chi[i])) for i in range(L)), L)
     if isinstance(cg, coarse.WideEnergyRegions):
-        resolution = {k: v for k, v in (options or {}).items() if k in ("moments", "bond")}
-        counts = wide_energy.kernel_counts(cg, int(np.max(chi)), d, beta=BETA_GUESS,
-                                           **resolution)
-        lapack = (sum(svd_flops(m, n) * k for m, n, k in counts.svds)
-                  + sum(qr_flops(m, n) * k for m, n, k in counts.qrs))
-        return canonical + Work(counts.gemm, lapack, counts.calls), counts.size
+        work, size = _wide_work(cg, int(np.max(chi)), d, options, references=False)
+        return canonical + work, size
     if _method(cg, method) == "count":
         carried, gemm = 1.0, 0.0
         for start, stop in cg.regions:
@@ -292,6 +290,19 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
     size = (sum(16.0 * np.prod(b.tensor.shape) for b in blocks) + batch * per_sample
             + WORK_BYTES)
     return canonical + setup + paths, size
+
+
+def _wide_work(cg: coarse.WideEnergyRegions, state_bond: int, local_dim: int,
+               options: dict | None, *, references: bool) -> tuple[Work, float]:
+    """(work, bytes) of the Chebyshev runs of wide energy regions on a state, or (with
+    ``references``) of their Gibbs references alone, at the point's moments and bond."""
+    resolution = {k: v for k, v in (options or {}).items() if k in ("moments", "bond")}
+    counts = wide_energy.kernel_counts(cg, state_bond, local_dim, beta=BETA_GUESS,
+                                       runs=not references, references=references,
+                                       **resolution)
+    lapack = (sum(svd_flops(m, n) * k for m, n, k in counts.svds)
+              + sum(qr_flops(m, n) * k for m, n, k in counts.qrs))
+    return Work(counts.gemm, lapack, counts.calls), counts.size
 
 
 def _free_fermion(model) -> bool:
@@ -353,6 +364,10 @@ def point_cost(point: Point, built: BuiltPoint | None = None) -> PointCost:
                                                   evo["order"], estimates)
         check = check_evolution + check_est
     references, thermo_bytes = _reference_work(model, L, cap, estimates)
+    for c in built.coarse:
+        if isinstance(c.coarse_graining, coarse.WideEnergyRegions):
+            work, size = _wide_work(c.coarse_graining, cap, 2, c.options, references=True)
+            references, thermo_bytes = references + work, max(thermo_bytes, size)
     chi_main = bond_caps(L, cap).astype(float)
     chi_check = bond_caps(L, check_cap).astype(float) if check_cap else np.zeros(L + 1)
     states = 16.0 * 2 * float(np.sum(chi_main[:-1] * chi_main[1:])
