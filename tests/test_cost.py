@@ -26,30 +26,39 @@ from mpsobs.pipeline import cost, spec
 SHIPPED = Path(__file__).resolve().parents[1] / "runs"
 
 
-@pytest.mark.parametrize(("L", "cap", "order"), [(8, 6, 2), (9, 5, 4), (10, 16, 4)])
-def test_tebd_work_matches_the_counted_kernel_calls(monkeypatch, L, cap, order):
-    # the kernel's two-site splits (SVDs at cutoff 0) and its centre-moving QRs
-    calls: dict[str, list] = {"svd": [], "qr": []}
+@pytest.mark.parametrize(("L", "cap", "order", "cutoff"),
+                         [(8, 6, 2, 0.0), (9, 5, 4, 0.0), (10, 16, 4, 0.0), (10, 16, 4, 1e-10)])
+def test_tebd_work_matches_the_counted_kernel_calls(monkeypatch, L, cap, order, cutoff):
+    # the kernel's two-site splits (SVDs at cutoff 0, the Gram route at 1e-10) and its
+    # centre-moving QRs
+    calls: dict[str, list] = {"split": [], "qr": []}
     split, qr = kernel.split, kernel.qr
-    monkeypatch.setattr(kernel, "split",
-                        lambda m, *a: calls["svd"].append(m.shape) or split(m, *a))
+
+    def counted_split(m, *args):
+        result = split(m, *args)
+        calls["split"].append((*m.shape, result[2].size))
+        return result
+
+    monkeypatch.setattr(kernel, "split", counted_split)
     monkeypatch.setattr(kernel, "qr", lambda m: calls["qr"].append(m.shape) or qr(m))
-    # a random state at the bond cap keeps it (no cutoff, full rank): the model's bonds
+    # a random state at the bond cap keeps it (full rank): the model's bonds
     state = random_mps(L, cap, seed=1)
     model = models.ising(L, g=1.0, h=0.3)
-    list(tebd.evolve(state, model, [0.2, 0.4], max_bond=cap, cutoff=0.0, dt=0.1,
+    list(tebd.evolve(state, model, [0.2, 0.4], max_bond=cap, cutoff=cutoff, dt=0.1,
                      order=order))
-    predicted = 2 * cost.tebd_work(L, cap, 2, order, 1)  # two stretches of two steps
+    predicted = 2 * cost.tebd_work(L, cap, 2, order, 1, cutoff=cutoff)  # two stretches
     readout_calls = 2 * 3 * (L - 1)
-    assert len(calls["svd"]) == (predicted.calls - readout_calls) / 4  # one SVD per gate
-    # every SVD is of a (2 chi_l, 2 chi_r) matrix at the caps: its flops exactly
+    assert len(calls["split"]) == (predicted.calls - readout_calls) / 4  # one per gate
+    # every split is of a (2 chi_l, 2 chi_r) matrix keeping chi_m, at the caps
     chi = cost.bond_caps(L, cap)
-    shapes = {(2 * int(chi[b]), 2 * int(chi[b + 2])) for b in range(L - 1)}
-    assert set(calls["svd"]) <= shapes
-    counted = (sum(cost.svd_flops(*s) for s in calls["svd"])
+    shapes = {(2 * int(chi[b]), 2 * int(chi[b + 2]), int(chi[b + 1])) for b in range(L - 1)}
+    assert set(calls["split"]) <= shapes
+    counted = (sum(cost.split_flops(m, n, k, cutoff) for m, n, k in calls["split"])
                + sum(cost.qr_flops(*s) for s in calls["qr"]))
     # the model leaves out the centre moves between layers (a few QRs per layer)
     assert predicted.lapack == pytest.approx(counted, rel=0.05)
+    if cutoff == 0.0:   # below GRAM_FLOOR the splits are SVDs
+        assert cost.split_flops(32, 32, 16, cutoff) == cost.svd_flops(32, 32)
 
 
 def test_layers_merge_inside_a_stretch():

@@ -13,10 +13,10 @@ localization, low energy) costs less; an initial state that is already entangled
 - TEBD (:mod:`mpsobs.chain.evolution`), for the main evolution at chi_max and the
   truncation check at chi_check: the n steps between two output times are even and odd
   layers (order 2: n + 1 even and n odd layers after merging; order 4: 3 n + 1 and
-  3 n). Per two-site
-  gate on bonds (l, m, r): theta 32 l m r, the gate 128 l r, the SVD of a
-  (2 l, 2 r) matrix and a QR of the next site (2 r, r') or (2 l, l'). Per output time
-  the read-out sweep: L QRs and two-site thetas.
+  3 n). Per two-site gate on bonds (l, m, r): theta 32 l m r, the gate 128 l r, the
+  truncated split of a (2 l, 2 r) matrix keeping m (:func:`split_flops`: the Gram route
+  at the spec's cutoff, the SVD below GRAM_FLOOR) and a QR of the next site (2 r, r')
+  or (2 l, l'). Per output time the read-out sweep: L QRs and two-site thetas.
 - SVD and QR counts: thin SVD of an m x n complex matrix (m >= n) 4 (6 m n**2 + 20 n**3)
   (R-SVD with vectors), Householder QR 4 (2 m n**2 - 2 n**3 / 3), doubled for forming Q
   (Golub and Van Loan, Matrix Computations, 4th ed. (2013), Secs. 5.2 and 8.6; the
@@ -26,7 +26,8 @@ localization, low energy) costs less; an initial state that is already entangled
   blocks (:func:`mpsobs.estimators.blocktensors.readout_blocks`: chi**3 2**(b+1) +
   8 chi**2 R**2 per block), then by method: sampling ("sample", and "auto" where the
   coarse-graining is not countable) ``samples`` x
-  :func:`mpsobs.estimators.estimate.conditional_sample_flops` (the automatic choice may
+  :func:`mpsobs.estimators.estimate.conditional_sample_flops` in single precision (the
+  dense environments; charge blocks, in double, need fewer flops) (the automatic choice may
   first try an enumeration of at most that cost: up to twice this); counting ("count",
   and "auto" / "exact" where countable) 32 chi**3 sum_i K_i b_i**2 / 2 with K_i the
   counters carried into region i; "enumerate" and "exact" on other coarse-grainings
@@ -43,13 +44,14 @@ localization, low energy) costs less; an initial state that is already entangled
   of wide energy regions (kept in the memo and reused by later output times and the
   check state) at BETA_GUESS.
 
-Seconds = gemm flops / GEMM_RATE + lapack flops / LAPACK_RATE + calls x CALL_SECONDS,
-single core; core-hours = seconds / 3600. The rates are effective single-core rates of
-numpy/LAPACK on the machine the benchmark ran on (scripts/bench_cost.py); a different
-machine scales them. Peak memory = BASE_BYTES (the interpreter with numpy, scipy,
-pandas and mpsobs loaded) + the states (main and check) + the largest working set of
-one kernel: the estimator's batch (:func:`mpsobs.estimators.estimate.default_batch`
-samples) and block tensors, the counting environments, or the purification.
+Seconds = gemm flops / GEMM_RATE (single-precision ones at twice the rate) + lapack
+flops / LAPACK_RATE + calls x CALL_SECONDS, single core; core-hours = seconds / 3600.
+The rates are effective single-core rates of numpy/LAPACK on the machine the benchmark
+ran on (scripts/bench_cost.py); a different machine scales them. Peak memory =
+BASE_BYTES (the interpreter with numpy, scipy, pandas and mpsobs loaded) + the states
+(main and check) + the largest working set of one kernel: the estimator's batch
+(:func:`mpsobs.estimators.estimate.default_batch` samples) and block tensors, the
+counting environments, or the purification.
 Cost of the estimate itself: the coarse-grainings' block eigendecompositions, as in
 ``mpsobs check``.
 """
@@ -67,14 +69,16 @@ from mpsobs.core.errors import InputError
 from mpsobs.core.printing import number
 from mpsobs.estimators import estimate, wide_energy
 from mpsobs.estimators.blocktensors import WORK_BYTES, ReadoutBlock
+from mpsobs.mps import truncation
 from mpsobs.pipeline import point as points
 from mpsobs.pipeline.build import BuiltPoint, build_point
 from mpsobs.pipeline.spec_points import Point
 from mpsobs.references import gaussian
+from mpsobs.references.thermo import PURIFICATION_CUTOFF
 
 __all__ = ["GEMM_RATE", "LAPACK_RATE", "CALL_SECONDS", "BASE_BYTES", "BETA_GUESS",
            "DOUBLING_TIME", "THERMO_BOND_GUESS", "Work", "PointCost", "grown_bond",
-           "bond_caps", "svd_flops", "qr_flops", "tebd_work", "estimator_work",
+           "bond_caps", "svd_flops", "split_flops", "qr_flops", "tebd_work", "estimator_work",
            "point_cost", "format_costs"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
@@ -104,30 +108,34 @@ _COMPLEX = 4.0  # real flops per complex flop in the LAPACK counts
 
 @dataclass(frozen=True)
 class Work:
-    """Counted work: flops in matrix products (``gemm``) and in factorizations
-    (``lapack``), and kernel ``calls``."""
+    """Counted work: flops in matrix products (``gemm``; ``single``: those done in single
+    precision) and in factorizations (``lapack``), and kernel ``calls``."""
 
     gemm: float = 0.0
     lapack: float = 0.0
     calls: float = 0.0
+    single: float = 0.0
 
     def __add__(self, other: Work) -> Work:
         return Work(self.gemm + other.gemm, self.lapack + other.lapack,
-                    self.calls + other.calls)
+                    self.calls + other.calls, self.single + other.single)
 
     def __mul__(self, factor: float) -> Work:
-        return Work(self.gemm * factor, self.lapack * factor, self.calls * factor)
+        return Work(self.gemm * factor, self.lapack * factor, self.calls * factor,
+                    self.single * factor)
 
     __rmul__ = __mul__
 
     @property
     def flops(self) -> float:
-        return self.gemm + self.lapack
+        return self.gemm + self.lapack + self.single
 
     @property
     def seconds(self) -> float:
-        """Single-core seconds at GEMM_RATE, LAPACK_RATE and CALL_SECONDS."""
-        return self.gemm / GEMM_RATE + self.lapack / LAPACK_RATE + self.calls * CALL_SECONDS
+        """Single-core seconds at GEMM_RATE (twice that in single precision),
+        LAPACK_RATE and CALL_SECONDS."""
+        return ((self.gemm + self.single / 2.0) / GEMM_RATE + self.lapack / LAPACK_RATE
+                + self.calls * CALL_SECONDS)
 
     def __repr__(self) -> str:
         return f"Work({number(self.flops)} flops, {number(self.calls)} calls)"
@@ -178,6 +186,20 @@ def svd_flops(m: int, n: int) -> float:
     return _COMPLEX * (6.0 * m * n * n + 20.0 * n**3)
 
 
+def split_flops(m: int, n: int, k: int, cutoff: float) -> float:
+    """Truncated split of a complex m x n matrix keeping k values
+    (:func:`mpsobs.mps.truncation.split`, route "auto"): below GRAM_FLOOR the SVD;
+    otherwise the Gram route on the smaller side a = min(m, n) (the larger b): a QR of
+    (b, a) first where a < QR_REDUCTION b, the Gram matrix by zherk 4 a^2 b, the
+    tridiagonal reduction 16/3 a^3, the back-transformation of k vectors 8 a^2 k and the
+    projection 8 k a b (real flops; LAPACK's operation counts, from memory)."""
+    if not truncation.use_gram("auto", cutoff):
+        return svd_flops(m, n)
+    a, b = min(m, n), max(m, n)
+    reduction = qr_flops(b, a) if a < truncation.QR_REDUCTION * b else 0.0
+    return reduction + 4.0 * a * a * b + 16.0 / 3.0 * a**3 + 8.0 * a * a * k + 8.0 * k * a * b
+
+
 def qr_flops(m: int, n: int) -> float:
     """Householder QR of a complex m x n matrix and forming its thin Q (Golub and Van
     Loan, Sec. 5.2, from memory)."""
@@ -193,28 +215,30 @@ def _layers(order: int, steps: int) -> tuple[int, int]:
     return per_step * steps + 1, per_step * steps
 
 
-def _gate_work(chi: np.ndarray, b: int, d: int) -> Work:
+def _gate_work(chi: np.ndarray, b: int, d: int, cutoff: float) -> Work:
     """One two-site gate on sites (b, b + 1) with bonds l, m, r = chi[b], chi[b+1],
-    chi[b+2]: theta, gate, SVD of (d l, d r), and one QR that moves the centre on, of
-    the site left behind (shape (d m, r) or (d m, l)), with its product into the next."""
+    chi[b+2]: theta, gate, the split of (d l, d r) keeping m (:func:`split_flops`), and
+    one QR that moves the centre on, of the site left behind (shape (d m, r) or (d m, l)),
+    with its product into the next."""
     left, mid, right = (float(x) for x in chi[b:b + 3])
     gemm = (8.0 * left * d * mid * d * right + 8.0 * d**4 * left * right
             + 8.0 * mid * mid * d * max(left, right))
-    lapack = svd_flops(int(d * left), int(d * right)) + qr_flops(int(d * mid),
-                                                                 int(max(left, right)))
+    lapack = (split_flops(int(d * left), int(d * right), int(mid), cutoff)
+              + qr_flops(int(d * mid), int(max(left, right))))
     return Work(gemm, lapack, 4.0)
 
 
 def tebd_work(L: int, cap: int, steps: int, order: int, n_times: int, *,
-              local_dim: int = 2, sweep: bool = False) -> Work:
-    """Work of ``steps`` TEBD steps at bond cap ``cap`` (one stretch between output
-    times: adjacent half layers merge only inside it) plus ``n_times`` read-out sweeps
-    (L - 1 QRs of (2 chi[i+1], chi[i]) and the two-site energies).
+              local_dim: int = 2, sweep: bool = False, cutoff: float = 0.0) -> Work:
+    """Work of ``steps`` TEBD steps at bond cap ``cap`` and truncation ``cutoff`` (one
+    stretch between output times: adjacent half layers merge only inside it) plus
+    ``n_times`` read-out sweeps (L - 1 QRs of (2 chi[i+1], chi[i]) and the two-site
+    energies).
 
     With ``sweep`` (the purification's symmetric sweep): every step applies all L - 1
     gates twice, no read-out."""
     chi = bond_caps(L, cap, local_dim)
-    gates = [_gate_work(chi, b, local_dim) for b in range(L - 1)]
+    gates = [_gate_work(chi, b, local_dim, cutoff) for b in range(L - 1)]
     if sweep:
         return 2.0 * steps * sum(gates, Work())
     even_layers, odd_layers = _layers(order, steps)
@@ -283,8 +307,9 @@ def estimator_work(cg: coarse.BlockCoarseGraining, L: int, cap: int, method: str
                       + 8.0 * cl * rows * rows * cr / (d // 2) ** b
                       + 8.0 * cl * cl * rows * cr, 0.0, 3.0)
     batch = estimate.default_batch(blocks)
-    paths = Work(samples * estimate.conditional_sample_flops(blocks), 0.0,
-                 2.0 * len(blocks) * math.ceil(samples / batch))
+    # dense environments are advanced in single precision (estimators.sampling)
+    paths = Work(0.0, 0.0, 2.0 * len(blocks) * math.ceil(samples / batch),
+                 single=samples * estimate.conditional_sample_flops(blocks))
     per_sample = max(16 * (2 * b.tensor.shape[0] ** 2 + 2 * b.tensor.shape[2] ** 2
                            + b.tensor.shape[1] * b.tensor.shape[2]) for b in blocks)
     size = (sum(16.0 * np.prod(b.tensor.shape) for b in blocks) + batch * per_sample
@@ -323,16 +348,17 @@ def grown_bond(t: float, cap: int) -> int:
     return int(min(cap, max(1.0, round(2.0 ** (t / DOUBLING_TIME)))))
 
 
-def _time_series(L: int, cap: int, times: np.ndarray, dt: float, order: int,
+def _time_series(L: int, cap: int, times: np.ndarray, evo: dict,
                  estimates) -> tuple[Work, Work]:
     """(evolution work, estimator work) of the output ``times`` at a bond that grows as
-    :func:`grown_bond` up to ``cap``: each interval's steps at the bond of its end."""
+    :func:`grown_bond` up to ``cap``: each interval's steps at the bond of its end
+    (``evo``: the point's evolution keys dt, order and cutoff)."""
     evolution, estimators, done = Work(), Work(), 0
     for t in times:
-        steps = max(0, math.ceil(float(t) / dt - 1e-9) - done) if t > 0 else 0
+        steps = max(0, math.ceil(float(t) / evo["dt"] - 1e-9) - done) if t > 0 else 0
         done += steps
         bond = grown_bond(float(t), cap)
-        evolution += tebd_work(L, bond, steps, order, 1)
+        evolution += tebd_work(L, bond, steps, evo["order"], 1, cutoff=evo["cutoff"])
         estimators += estimates(bond)[0]
     return evolution, estimators
 
@@ -356,12 +382,11 @@ def point_cost(point: Point, built: BuiltPoint | None = None) -> PointCost:
         return sum((w for w, _ in parts), Work()), max(s for _, s in parts)
 
     main_est, main_bytes = estimates(cap)
-    evolution, estimators = _time_series(L, cap, times, evo["dt"], evo["order"], estimates)
+    evolution, estimators = _time_series(L, cap, times, evo, estimates)
     check, check_bytes = Work(), 0.0
     if check_cap > 0:
         _, check_bytes = estimates(check_cap)
-        check_evolution, check_est = _time_series(L, check_cap, times, evo["dt"],
-                                                  evo["order"], estimates)
+        check_evolution, check_est = _time_series(L, check_cap, times, evo, estimates)
         check = check_evolution + check_est
     references, thermo_bytes = _reference_work(model, L, cap, estimates)
     for c in built.coarse:
@@ -383,9 +408,11 @@ def _reference_work(model, L: int, cap: int, estimates) -> tuple[Work, float]:
     if _free_fermion(model):
         return Work(float(L) ** 3 * 8.0, 0.0, 10.0), 16.0 * L * L
     steps = 2 * math.ceil(BETA_GUESS / _THERMO_DBETA / 2)
-    sweep = tebd_work(L, THERMO_BOND_GUESS, steps, 2, 0, local_dim=4, sweep=True)
+    sweep = tebd_work(L, THERMO_BOND_GUESS, steps, 2, 0, local_dim=4, sweep=True,
+                      cutoff=PURIFICATION_CUTOFF)
     eq_bond = min(cap, points.EQ_MAX_BOND, THERMO_BOND_GUESS)
-    eq_sweep = tebd_work(L, eq_bond, steps, 2, 0, local_dim=4, sweep=True)
+    eq_sweep = tebd_work(L, eq_bond, steps, 2, 0, local_dim=4, sweep=True,
+                         cutoff=PURIFICATION_CUTOFF)
     eq_est, eq_bytes = estimates(eq_bond, ancilla=True)
     chi = bond_caps(L, THERMO_BOND_GUESS, 4).astype(float)
     thermo_bytes = 16.0 * 4 * 3 * float(np.sum(chi[:-1] * chi[1:]))
