@@ -401,3 +401,23 @@ def test_gibbs_references_are_reused_and_do_not_change_the_result(monkeypatch):
     assert len(builds) > 0
     for res in (again, fresh):
         assert (res.entropy, res.method_err) == (first.entropy, first.method_err)
+
+
+def test_a_state_bond_of_half_the_compression_bond_is_warned_about(caplog, monkeypatch):
+    # the rerun at D / 2 of the error estimate cannot hold chi Schmidt vectors at a cut
+    # once chi >= D / 2; the warning names the cut and a bond that avoids it, once
+    monkeypatch.setattr(we, "_WARNED", set())
+    cg, _ = _hot_and_cold_halves()
+    state = we.canonical_state(random_mps(cg.L, 4, seed=3), cg.L)
+    chi = state.tensors[13].shape[0]
+    assert chi == 4
+    with caplog.at_level("WARNING", logger=we.__name__):
+        we.warn_if_rerun_bond_low(state, cg, 2 * chi + 2)
+    assert caplog.records == []
+    with caplog.at_level("WARNING", logger=we.__name__):
+        we.warn_if_rerun_bond_low(state, cg, 2 * chi)
+    assert len(caplog.records) == 1
+    assert "before site 13" in caplog.text and f"above {2 * chi}" in caplog.text
+    with caplog.at_level("WARNING", logger=we.__name__):
+        we.warn_if_rerun_bond_low(state, cg, 2 * chi)
+    assert len(caplog.records) == 1

@@ -103,6 +103,7 @@ from mpsobs.estimators.wide_energy import (
     _split,
     _sub_bins,
     _targets,
+    warn_if_rerun_bond_low,
 )
 from mpsobs.mps.charges import block_qr, col_charges, definite_charges, local_charges
 from mpsobs.mps.tensors import PurifiedMPS, robust_svd
@@ -491,6 +492,7 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
     """
     _check_settings(cg, moments, bond, sub_bins, exact_sites)
     mps = canonical_state(state, cg.L)
+    warn_if_rerun_bond_low(mps, cg, bond)
     cut = cg.regions[0][1]
     volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
                            for x, y in cg.regions)
