@@ -29,6 +29,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
+from scipy.linalg import get_blas_funcs
 
 from mpsobs.chain.models import Model, bond_hamiltonians, mpo_tensors
 from mpsobs.chain.states import paired_purification
@@ -121,26 +122,51 @@ def _combine(x: Sequence[np.ndarray], y: Sequence[np.ndarray], cx: float,
     return out
 
 
+def _triangular_times(r: np.ndarray, m: np.ndarray) -> np.ndarray:
+    """r @ m for an upper-triangular factor r of a QR decomposition: by BLAS trmm (half
+    the flops of a product) when r is square, else a plain product."""
+    m = np.ascontiguousarray(m)
+    if r.shape[0] != r.shape[1]:
+        return r @ m
+    trmm = get_blas_funcs("trmm", (r, m))
+    return trmm(1.0, r.T, m.T, side=1, lower=1).T   # (m^T r^T)^T, C-ordered
+
+
 def _compress(seg: Sequence[np.ndarray], max_bond: int) -> list[np.ndarray]:
-    """The same vectors with inner bonds at most ``max_bond``: a QR sweep to the right
-    (left-canonical), then SVD truncation sweeping left (singular values below
-    COMPRESSION_CUTOFF relative weight dropped too). Cost n d (w chi)^3."""
+    """The same vectors with inner bonds at most ``max_bond`` (singular values below
+    COMPRESSION_CUTOFF relative weight dropped too), right-canonical with the norm on the
+    first tensor.
+
+    The SVD truncation in mixed-canonical form without forming the left-canonical
+    tensors: a sweep to the right keeps only the triangular factors R_i of the QR
+    decompositions of the left blocks (R_i from R_(i-1) A_i; the blocks are Q_i R_i with
+    Q_i orthonormal), and the sweep to the left takes at site i the SVD of R_(i-1) A_i C_i,
+    whose singular values and right vectors are those of the whole left block times the
+    already truncated right part (C_i maps the original bond at i to the kept one). Cost
+    per site (chi the summed bond (w + 1) D) a QR of (d chi, chi) without its Q and a
+    triangular product, about 12 d chi^3 real flops (a QR with its Q and a full product,
+    as a left-canonical sweep needs, take twice that), then an SVD of (chi, d D)."""
     tensors = list(seg)
     n = len(tensors)
-    for i in range(n - 1):
-        t = tensors[i]
-        dl, d, dr = t.shape
-        q, r = np.linalg.qr(t.reshape(dl * d, dr))
-        tensors[i] = q.reshape(dl, d, -1)
-        tensors[i + 1] = np.tensordot(r, tensors[i + 1], axes=(1, 0))
+    if n == 1:
+        return tensors
+    factors = [np.linalg.qr(tensors[0].reshape(-1, tensors[0].shape[2]), mode="r")]
+    for t in tensors[1:-1]:
+        block = _triangular_times(factors[-1], t.reshape(t.shape[0], -1))
+        factors.append(np.linalg.qr(block.reshape(-1, t.shape[2]), mode="r"))
+    carried = tensors[-1]
     for i in range(n - 1, 0, -1):
-        t = tensors[i]
-        dl, d, dr = t.shape
-        u, s, vh = robust_svd(t.reshape(dl, d * dr))
+        dl, d, dr = carried.shape
+        _, s, vh = robust_svd(np.tensordot(factors[i - 1], carried, axes=(1, 0))
+                              .reshape(-1, d * dr))
         weight = s**2
         keep = max(1, min(max_bond, int(np.sum(weight > COMPRESSION_CUTOFF * weight.sum()))))
         tensors[i] = vh[:keep].reshape(keep, d, dr)
-        tensors[i - 1] = np.tensordot(tensors[i - 1], u[:, :keep] * s[:keep], axes=(2, 0))
+        projector = vh[:keep].conj().T.reshape(d, dr, keep)
+        carried = np.tensordot(tensors[i - 1], np.tensordot(carried, projector,
+                                                            axes=([1, 2], [0, 1])),
+                               axes=(2, 0))
+    tensors[0] = carried
     return tensors
 
 

@@ -500,8 +500,9 @@ def region_volumes(model: Model, bin_width: float, bins, *, targets=None,
 @dataclass(frozen=True)
 class KernelCounts:
     """The kernel calls of one :func:`wide_energy_entropy`, for a cost model: flops in
-    matrix products, the shapes (m, n) and counts of the SVDs and QRs, the number of
-    calls and the largest working set in bytes."""
+    matrix products, the shapes (m, n) and counts of the SVDs and of the QRs (counted as
+    thin QRs with their Q; a triangular factor alone counts half), the number of calls
+    and the largest working set in bytes."""
 
     gemm: float
     svds: tuple[tuple[int, int, float], ...]
@@ -521,8 +522,9 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
                   references: bool = True) -> KernelCounts:
     """Counted work of :func:`wide_energy_entropy` on a state of bond ``state_bond``
     (local dimension 2, or 4 for a purification): with ``runs``, per region two Chebyshev
-    runs on the state (bonds D and D / 2) of N / 2 compressions, each n - 1 QRs of
-    (d (w + 1) D, (w + 1) D) and SVDs of ((w + 1) D, d D) (the summed bond against the
+    runs on the state (bonds D and D / 2) of N / 2 compressions, each n - 1 triangular
+    factors of (d (w + 1) D, (w + 1) D) (half a QR with its Q, and a triangular product of
+    4 d ((w + 1) D)^3 flops) and SVDs of ((w + 1) D, d D) (the summed bond against the
     compressed one) and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
     region, and a closing 8 N^2 chi^2); with ``references``, per region wider than
     EXACT_VOLUME_SITES three Gibbs references, each NEWTON_STEPS builds and 4-moment runs
@@ -539,8 +541,8 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
         nonlocal gemm, calls
         summed = (w + 1) * compress
         svds.append((summed, d * compress, steps * (n - 1)))
-        qrs.append((d * summed, summed, steps * (n - 1)))
-        gemm += steps * (8.0 * n * w * w * d * d * compress**2
+        qrs.append((d * summed, summed, steps * (n - 1) / 2))
+        gemm += steps * (8.0 * n * w * w * d * d * compress**2 + 4.0 * (n - 1) * d * summed**3
                          + 2 * stacked * 16.0 * n * d * compress**3)
         calls += steps * 6.0 * n
 
