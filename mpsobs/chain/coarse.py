@@ -496,7 +496,7 @@ def sequence(first, second, *more):
     Block coarse-grainings must share L and the partition; projector coarse-grainings
     must share the dimension. The outcome labels are tuples with one value per stage.
     Energy regions wider than MAX_BLOCK_SITES take part only with the number blocks of
-    the same two regions, in either order (:data:`WIDE_SEQUENCES`), for a model that
+    the same regions (two or three), in either order (:data:`WIDE_SEQUENCES`), for a model that
     conserves the number: a :class:`WideEnergyRegions` asking both.
     """
     parts = (first, second, *more)
@@ -550,11 +550,6 @@ def _wide_number_energy(parts) -> WideEnergyRegions:
     if counted.L != energy.L or counted.regions != energy.regions:
         raise InputError(f"sequence: the number blocks {list(counted.regions)} are not the "
                          f"energy regions {list(energy.regions)}; ask both on the same regions")
-    if len(energy.regions) != 2:
-        raise InputError(f"regions: the joint number and energy of regions wider than "
-                         f"{MAX_BLOCK_SITES} sites is evaluated for 2 regions; got "
-                         f"{len(energy.regions)} (the energy alone takes up to "
-                         f"{MAX_WIDE_REGIONS})")
     if not energy.model.conserves_number:
         raise InputError(f"sequence: the number and energy of regions wider than "
                          f"{MAX_BLOCK_SITES} sites are asked jointly only for a model that "

@@ -38,8 +38,8 @@ from mpsobs.mps.evolution import GateChain, Gates, layer_schedule
 from mpsobs.mps.tensors import robust_svd
 
 __all__ = ["spectrum_bounds", "scaled_mpo", "moment_matrices", "moment_tensor",
-           "commuting_moments", "jackson", "bin_weights", "edge_windows", "gibbs_segment",
-           "SPECTRUM_MARGIN"]
+           "commuting_moments", "chebyshev_series", "jackson", "bin_weights", "edge_windows",
+           "gibbs_segment", "SPECTRUM_MARGIN"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Relative margin added to the spectrum bounds so that Ht stays inside (-1, 1).
@@ -244,25 +244,33 @@ def _sandwich(x: Sequence[np.ndarray], y: Sequence[np.ndarray], left: np.ndarray
 
 def _chebyshev_overlaps(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moments: int,
                         max_bond: int, overlap) -> np.ndarray:
-    """out[n] = overlap(|v>, T_n(Ht) |v>) for the segment's vectors v, n = 0 .. N - 1,
-    ``overlap`` linear in its second argument and antilinear in its first (module
-    docstring: moments 2k and 2k + 1 from the vectors of order k)."""
+    """out[n] = overlap(|v>, T_n(Ht) |v>) for the segment's vectors v, n = 0 .. N - 1, as
+    one array (:func:`chebyshev_series`)."""
+    return np.array(list(chebyshev_series(seg, mpo, n_moments, max_bond, overlap)))
+
+
+def chebyshev_series(seg: Sequence[np.ndarray], mpo: Sequence[np.ndarray], n_moments: int,
+                     max_bond: int, overlap):
+    """Yields overlap(|v>, T_n(Ht) |v>) for the segment's vectors v, n = 0 .. N - 1 in
+    order, ``overlap`` linear in its second argument and antilinear in its first (module
+    docstring: moments 2k and 2k + 1 from the vectors of order k), so that a caller can
+    reduce the moments as they come instead of holding all N. Cost N / 2 compressions
+    (:func:`_compress`) and N calls of ``overlap``."""
     if n_moments < 2:
         raise InputError(f"moments: expected at least 2, got {n_moments}")
     prev = list(seg)
     cur = _compress(_apply(mpo, prev), max_bond)
     m0, m1 = overlap(prev, prev), overlap(prev, cur)
-    out = np.zeros((n_moments, *m0.shape), dtype=complex)
-    out[0], out[1] = m0, m1
+    yield m0
+    yield m1
     k = 1
     while 2 * k < n_moments:
-        out[2 * k] = 2 * overlap(cur, cur) - m0
+        yield 2 * overlap(cur, cur) - m0
         if 2 * k + 1 >= n_moments:
             break
         nxt = _compress(_combine(_apply(mpo, cur), prev, 2.0, -1.0), max_bond)
-        out[2 * k + 1] = 2 * overlap(cur, nxt) - m1
+        yield 2 * overlap(cur, nxt) - m1
         prev, cur, k = cur, nxt, k + 1
-    return out
 
 
 def jackson(n_moments: int) -> np.ndarray:

@@ -1,4 +1,5 @@
-"""Observational entropy of the joint number and energy of two large regions of an MPS.
+"""Observational entropy of the joint number and energy of two or three large regions of
+an MPS.
 
 The coarse-graining (:class:`mpsobs.coarse.WideEnergyRegions` with ``observables``
 ("number", "energy") or ("energy", "number"), for a number-conserving model) asks of the
@@ -60,7 +61,29 @@ reweighted volume.
 Cost: the Chebyshev runs of the energy alone (two per region, bonds D and D / 2, N / 2
 compressions of about 3 n d ((w + 1) D)^3 each), plus for each wide region three Gibbs
 references with Newton builds at NEWTON_BOND and two builds and phase-resolved runs
-(K phases, d = 4) at D and D / 2. Two regions only (three are refused).
+(K phases, d = 4) at D and D / 2.
+
+Three regions A, C, B (cuts c, e): outcomes (n_A, b_A, n_C, b_C, n_B, b_B), V the product
+of the three Omega_R(n, b). With psi = sum_ab |L_a> |X_ab> |R_b> (L_a, R_b orthonormal,
+X_ab the middle block with both bonds open, as :mod:`mpsobs.estimators.wide_energy`):
+- a pure state of definite number N is split charge block by charge block at c, and the
+  right-canonical basis at e has definite charges, so L_a has a definite n_A, R_b a
+  definite n_B and X_ab the number n_C = N - n_A - n_B;
+- a purification resolves n_A and n_B by the phases of its outer regions as above and
+  n_C by n_C + 1 phases e^(i t N_C) inside the middle sweep.
+The outer regions' sector moment matrices are contracted with their bin weights first,
+on the grid of the sectors and bins where the region's marginal P(n, b) (from its moments
+and the Gram matrix of the vectors at its open bond) exceeds PROBABILITY_FLOOR: one
+matrix per (n, b) for the weights at N, at N / 2 and for the edge windows at N ("main",
+"half", "edge"). These stacks start the middle sweep of
+:func:`mpsobs.chebyshev.moment_tensor` (K phases x rows environments), closed with the
+right stack for the pairs main-main, half-half, edge-main and main-edge; the middle's
+Chebyshev orders are summed with its bin weights (at N, N / 2 and its edge windows) as
+they come (:func:`mpsobs.chebyshev.chebyshev_series`), so that the N^3 moments are never
+held. Memory about 16 K (rows_C) (rows_A) (rows_B) bytes per pair; cost per middle
+overlap 2 K rows_A n_C d D^3 (rows_A = 3 x the live (n_A, b_A) pairs), N of them, plus
+the Chebyshev runs of the outer regions and the references of every wide region. The
+error is that of two regions with the edge part summed over the three regions' edges.
 """
 
 from __future__ import annotations
@@ -97,6 +120,7 @@ from mpsobs.estimators.wide_energy import (
     _mirror_model,
     _mirror_segment,
     _moments,
+    _moved_mass_change,
     _Region,
     _region,
     _reweighted,
@@ -162,11 +186,12 @@ def _sector_moments(segment, region: _Region, n_moments: int, bond: int,
 # --------------------------------------------------------------------------- the state
 
 
-def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarray, int]:
+def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarray, int, dict]:
     """Mixed-canonical form at the bond before ``cut`` with a definite number per Schmidt
     vector: (left-canonical tensors of 0 .. cut - 1, Schmidt values, right-canonical
-    tensors of cut .. L - 1, the number of A of each Schmidt vector, the total number).
-    InputError if the state has no definite number. Cost L chi^3 d."""
+    tensors of cut .. L - 1, the number of A of each Schmidt vector, the total number,
+    and for every bond i > cut the number left of it of each vector of the right-canonical
+    basis there). InputError if the state has no definite number. Cost L chi^3 d."""
     found = definite_charges(list(tensors))
     if found is None:
         raise InputError("state: it has no definite particle number (a bond basis of "
@@ -175,13 +200,14 @@ def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarra
                          "needs a state of definite number (or a purification)")
     out, charges = found
     out, local = list(out), local_charges(2)
-    centre, right_q = np.eye(1), charges[-1]
+    centre, right_q, inner = np.eye(1), charges[-1], {}
     for i in range(len(out) - 1, cut - 1, -1):   # right-canonical, charge block by block
         t = np.tensordot(out[i], centre, axes=(2, 0))
         chl, d, chr_ = t.shape
         q, r, right_q = block_qr(t.reshape(chl, d * chr_).T, col_charges(right_q, local),
                                  charges[i])
         out[i], centre = q.T.reshape(-1, d, chr_), r.T
+        inner[i] = right_q
     left_q = charges[cut]
     us, ss, vhs, numbers = [], [], [], []
     for c in np.unique(left_q):
@@ -198,7 +224,8 @@ def _charged_split(tensors, cut: int) -> tuple[list, np.ndarray, list, np.ndarra
     lam = np.concatenate(ss)
     left = [*out[:cut - 1], np.tensordot(out[cut - 1], np.hstack(us), axes=(2, 0))]
     right = [np.tensordot(np.vstack(vhs), out[cut], axes=(1, 0)), *out[cut + 1:]]
-    return left, lam, right, np.concatenate(numbers), int(charges[-1][0])
+    inner.pop(cut)
+    return left, lam, right, np.concatenate(numbers), int(charges[-1][0]), inner
 
 
 @dataclass(frozen=True)
@@ -222,7 +249,7 @@ def _state_sectors(mps, cut: int, regions, n_moments: int,
         return lam, [[_Sector(n, everyone, m) for n, m in
                       enumerate(_sector_moments(seg, r, n_moments, bond, size))]
                      for seg, r, size in zip(segments, regions, sizes, strict=True)]
-    left, lam, right, numbers, total = _charged_split(mps.tensors, cut)
+    left, lam, right, numbers, total, _ = _charged_split(mps.tensors, cut)
     out = []
     for seg, r, own in ((left, regions[0], numbers),
                         (_mirror_segment(right), regions[1], total - numbers)):
@@ -459,10 +486,9 @@ def _check_settings(cg, moments, bond, sub_bins, exact_sites) -> None:
         raise InputError("coarse_graining: expected the joint number and energy of wide "
                          "regions (mpsobs.coarse.sequence of the number and energy blocks of "
                          "the same regions)")
-    if len(cg.regions) != 2:
+    if len(cg.regions) not in (2, 3):
         raise InputError(f"regions: the joint number and energy of wide regions is "
-                         f"evaluated for 2 regions; got {len(cg.regions)} (the energy alone "
-                         f"takes up to 3)")
+                         f"evaluated for 2 or 3 regions; got {len(cg.regions)}")
     _check_resolution(moments, bond, sub_bins, exact_sites)
 
 
@@ -471,14 +497,15 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
                                moments: int = DEFAULT_MOMENTS, bond: int = DEFAULT_BOND,
                                sub_bins: int = DEFAULT_SUB_BINS,
                                exact_sites: int = EXACT_VOLUME_SITES) -> EntropyResult:
-    """S_obs of the joint number and energy of the two regions of ``cg`` in ``state`` (an
-    MPS of definite number, or a purification), with its method error (module docstring).
+    """S_obs of the joint number and energy of the two or three regions of ``cg`` in
+    ``state`` (an MPS of definite number, or a purification), with its method error
+    (module docstring).
 
     Parameters
     ----------
     state : normalised MPS or :class:`mpsobs.mps.PurifiedMPS` of cg.L sites.
     cg : from :func:`mpsobs.coarse.sequence` of the number and the energy blocks (either
-        order) of two regions of which one is wider than
+        order) of two or three regions of which one is wider than
         :data:`mpsobs.coarse.MAX_BLOCK_SITES`, for a number-conserving model.
     moments, bond, sub_bins, exact_sites : as
         :func:`mpsobs.estimators.wide_energy.wide_energy_entropy`.
@@ -488,11 +515,14 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
     EntropyResult with method "approximate", ``stderr`` 0, ``method_err`` (and the parts'
     errors) the error estimate, ``pruned_mass`` the dropped probability; ``distribution``
     the outcomes with p > 1e-14, columns per region in the order asked ((n_A, b_A, n_B,
-    b_B) for number then energy, (b_A, n_A, b_B, n_B) for energy then number).
+    b_B) for number then energy, (b_A, n_A, b_B, n_B) for energy then number; with a
+    middle region C its two columns between A's and B's).
     """
     _check_settings(cg, moments, bond, sub_bins, exact_sites)
     mps = canonical_state(state, cg.L)
     warn_if_rerun_bond_low(mps, cg, bond)
+    if len(cg.regions) == 3:
+        return _three_region_entropy(mps, cg, moments, bond, sub_bins, exact_sites)
     cut = cg.regions[0][1]
     volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
                            for x, y in cg.regions)
@@ -535,4 +565,242 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
                                np.exp(log_v[tuple(live.T)]))
     contract = functools.partial(_contract, lam, sectors, regions)
     leak = _edge_leakage(p, log_v, contract, regions, moments, (1, 3))
+    return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)
+
+
+# --------------------------------------------------------------------------- three regions
+
+
+@dataclass(frozen=True)
+class _Stack:
+    """An outer region's moment matrices contracted with bin weights, one matrix per row
+    (number sector n, weight row i) of the live grid: sets "main" (bins, N moments),
+    "half" (bins, N / 2) and "edge" (the kernel's unresolved weight at the bins' inner
+    edges), stacked in that order for the middle sweep."""
+
+    numbers: np.ndarray    # the live sectors n (ascending, contiguous)
+    bins: np.ndarray       # the live bins (integer indices, contiguous)
+    matrices: np.ndarray   # (rows, chi, chi): main, half, edge rows
+    sizes: tuple[int, int, int]
+
+    def rows(self, name: str) -> slice:
+        start = {"main": 0, "half": 1, "edge": 2}[name]
+        return slice(sum(self.sizes[:start]), sum(self.sizes[:start + 1]))
+
+
+def _live_range(marginal: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The contiguous ranges of sectors and bins that hold every (n, b) with probability
+    above PROBABILITY_FLOOR in ``marginal`` (n, b)."""
+    n, b = np.nonzero(marginal > PROBABILITY_FLOOR)
+    return np.arange(n.min(), n.max() + 1), np.arange(b.min(), b.max() + 1)
+
+
+def _weight_sets(region: _Region, bins: np.ndarray, n_moments: int) -> list[np.ndarray]:
+    """(main, half, edge) weight matrices (rows, N) for the bins ``bins`` (positions in
+    region.bins) of a region: Jackson-damped bin integrals at N and at N / 2 (padded
+    with zero columns) and the edge windows at N of the inner edges."""
+    edges = region.edges[bins[0]:bins[-1] + 2]
+    main = chebyshev.bin_weights(edges, region.centre, region.half_width, n_moments)
+    half = np.zeros_like(main)
+    half[:, :n_moments // 2] = chebyshev.bin_weights(edges, region.centre,
+                                                     region.half_width, n_moments // 2)
+    inner = chebyshev.edge_windows(edges[1:-1], region.centre, region.half_width, n_moments)
+    return [main, half, inner.reshape(-1, n_moments)]
+
+
+def _stack(sectors, region: _Region, numbers: np.ndarray, bins: np.ndarray, chi: int,
+           n_moments: int) -> _Stack:
+    """The stack of an outer region for the live ``numbers`` and ``bins`` (positions)."""
+    by_number = {s.number: s for s in sectors}
+    sets = _weight_sets(region, bins, n_moments)
+    parts = []
+    for weights in sets:
+        block = np.zeros((len(numbers), len(weights), chi, chi), dtype=complex)
+        for i, n in enumerate(numbers):
+            sector = by_number.get(int(n))
+            if sector is not None:
+                idx = np.ix_(sector.index, sector.index)
+                block[i][(slice(None), *idx)] = np.tensordot(weights, sector.moments, axes=1)
+        parts.append(block.reshape(-1, chi, chi))
+    return _Stack(numbers, bins, np.concatenate(parts), tuple(len(p) for p in parts))
+
+
+def _outer_marginal(sectors, weights: np.ndarray, n_sites: int, gram: np.ndarray) -> np.ndarray:
+    """P(n, b) of an outer region: sum over its sectors of W mu_n with mu_n[k] = sum
+    gram[a, b] M_n[k, a, b] (``gram`` the weights of its open-bond vectors)."""
+    out = np.zeros((n_sites + 1, len(weights)))
+    for s in sectors:
+        mu = np.einsum("kab,ab->k", s.moments, gram[np.ix_(s.index, s.index)]).real
+        out[s.number] = weights @ mu
+    return out
+
+
+def _middle_gram(middle) -> np.ndarray:
+    """G[b, b'] = sum_a <X_ab | X_ab'> of the middle segment (both bonds open)."""
+    env = np.eye(middle[0].shape[0], dtype=complex)
+    for t in middle:
+        env = np.tensordot(np.tensordot(env, t.conj(), axes=(0, 0)), t, axes=([0, 1], [0, 1]))
+    return env
+
+
+_PAIRS = {"main": ("main", "main", 0), "half": ("half", "half", 1), "edge A": ("edge", "main", 0),
+          "edge C": ("main", "main", 2), "edge B": ("main", "edge", 0)}
+
+
+def _middle_overlap(left: _Stack, right: _Stack, phases: np.ndarray):
+    """overlap(x, y) = sum left_l[a, a'] <x_ab| e^(i t_k N_C) |y_a'b'> right_r[b, b'] (k, l,
+    r) for the stacks' rows of each pair of :data:`_PAIRS`, raveled and concatenated in
+    that order (a flat vector, so that the Chebyshev series can combine overlaps; K
+    phases, the sweep of
+    :func:`mpsobs.chebyshev.moment_tensor` on a stack of K x rows environments). Cost
+    per call 2 K rows n d D^3 + K rows_l rows_r chi_b^2."""
+    def overlap(x, y):
+        env = np.broadcast_to(left.matrices, (len(phases), *left.matrices.shape))
+        for a, b in zip(x, y, strict=True):
+            w = phases[:, None] ** _spin_numbers(a.shape[1])[None, :]          # (K, d)
+            t = np.tensordot(env, a.conj(), axes=(2, 0)) * w[:, None, None, :, None]
+            env = np.einsum("ksmdr,mdq->ksrq", t, b, optimize=True)
+        flat = env.reshape(*env.shape[:2], -1)
+        closing = right.matrices.reshape(len(right.matrices), -1)
+        return np.concatenate([np.einsum("kle,re->klr", flat[:, left.rows(lset)],
+                                         closing[right.rows(rset)], optimize=True).ravel()
+                               for lset, rset, _ in _PAIRS.values()])
+    return overlap
+
+
+def _three_parts(mps, cg, regions, n_moments: int, bond: int):
+    """The stacks of A and B, the middle segment and its phases, and the map of the
+    middle's number: for a pure state of definite number by charges (n_C = N - n_A -
+    n_B, one phase), for a purification by n_C + 1 phases."""
+    (_, c1), (_, c2) = cg.regions[0], cg.regions[1]
+    width = c2 - c1
+    sizes = [r.model.L for r in regions]
+    if isinstance(mps, PurifiedMPS):
+        left, lam, rest = _split(mps.tensors, c1)
+        right = _mirror_segment(rest[width:])
+        everyone = (np.arange(lam.size), np.arange(right[-1].shape[2]))
+        sectors = [[_Sector(n, idx, m) for n, m in
+                    enumerate(_sector_moments(seg, r, n_moments, bond, size))]
+                   for seg, r, size, idx in ((left, regions[0], sizes[0], everyone[0]),
+                                             (right, regions[2], sizes[2], everyone[1]))]
+        total, phases = None, _phases(sizes[1])
+    else:
+        left, lam, rest, n_a, total, inner = _charged_split(mps.tensors, c1)
+        right = _mirror_segment(rest[width:])
+        n_b = total - inner[c2]
+        sectors = []
+        for seg, r, own in ((left, regions[0], n_a), (right, regions[2], n_b)):
+            m = _moments(seg, r, n_moments, bond)
+            sectors.append([_Sector(int(n), idx, m[:, idx][:, :, idx])
+                            for n in np.unique(own) for idx in [np.flatnonzero(own == n)]])
+        phases = np.ones(1, dtype=complex)
+    middle = [lam[:, None, None] * rest[0], *rest[1:width]]
+    return sectors, middle, phases, total, lam
+
+
+def _three_joint(mps, cg, regions, n_moments: int, bond: int, live=None):
+    """P[n_A, b_A, n_C, b_C, n_B, b_B] on the live grid (raw, main set) and the arrays of
+    the half-moment and edge sets, keyed as :data:`_PAIRS`; ``live`` the grid of the
+    outer regions ((numbers, bins) of A and B; default: from their marginals at N)."""
+    sectors, middle, phases, total, lam = _three_parts(mps, cg, regions, n_moments, bond)
+    chis = (middle[0].shape[0], middle[-1].shape[2])
+    if live is None:
+        grams = (np.diag(lam**2), _middle_gram(middle))
+        live = [_live_range(_outer_marginal(s, _bin_weights([r], n_moments)[0], r.model.L, g))
+                for s, r, g in zip(sectors, (regions[0], regions[2]), grams, strict=True)]
+    stacks = [_stack(s, r, n, b, chi, n_moments) for s, r, (n, b), chi in
+              zip(sectors, (regions[0], regions[2]), live, chis, strict=True)]
+    mid = regions[1]
+    mpo = chebyshev.scaled_mpo(mid.model, mid.centre, mid.half_width, middle[0].shape[1])
+    middle_sets = _weight_sets(mid, np.arange(len(mid.bins)), n_moments)
+    shapes = {name: (len(phases), stacks[0].rows(lset).stop - stacks[0].rows(lset).start,
+                     stacks[1].rows(rset).stop - stacks[1].rows(rset).start)
+              for name, (lset, rset, _) in _PAIRS.items()}
+    offsets = np.cumsum([0, *(np.prod(x) for x in shapes.values())])
+    acc = {name: np.zeros((len(middle_sets[_PAIRS[name][2]]), *shape), dtype=complex)
+           for name, shape in shapes.items()}
+    series = chebyshev.chebyshev_series(middle, mpo, n_moments, bond,
+                                        _middle_overlap(*stacks, phases))
+    for k, flat in enumerate(series):
+        for (name, shape), start, stop in zip(shapes.items(), offsets[:-1], offsets[1:],
+                                              strict=True):
+            weights = middle_sets[_PAIRS[name][2]][:, k]
+            acc[name] += np.multiply.outer(weights, flat[start:stop].reshape(shape))
+    n_c = regions[1].model.L + 1
+    out = {}
+    for name, a in acc.items():
+        ls, rs = stacks
+        if total is None:                                        # phases -> sectors
+            sec = _to_sectors(a, 1).real                         # (n_C, rows_C, l, r)
+        else:                                                    # n_C = N - n_A - n_B
+            sec = np.zeros((n_c, a.shape[0], a.shape[2], a.shape[3]))
+            nl = np.repeat(ls.numbers, a.shape[2] // len(ls.numbers))
+            nr = np.repeat(rs.numbers, a.shape[3] // len(rs.numbers))
+            nc = total - nl[:, None] - nr[None, :]
+            li, ri = np.nonzero((nc >= 0) & (nc < n_c))
+            sec[nc[li, ri], :, li, ri] = a[:, 0, li, ri].real.T
+        sec = sec.reshape(n_c, sec.shape[1], len(ls.numbers), -1, len(rs.numbers),
+                          sec.shape[3] // len(rs.numbers))
+        out[name] = sec.transpose(2, 3, 0, 1, 4, 5)              # (nA, a, nC, c, nB, b)
+    return out, live
+
+
+def _normalised(raw: np.ndarray) -> np.ndarray:
+    p = np.clip(raw, 0.0, None)
+    return p / p.sum()
+
+
+def _three_marginals(p: np.ndarray) -> list[np.ndarray]:
+    """P(n_R, b_R) of each of the three regions from P[n_A, b_A, n_C, b_C, n_B, b_B]."""
+    return [p.sum(axis=(2, 3, 4, 5)), p.sum(axis=(0, 1, 4, 5)), p.sum(axis=(0, 1, 2, 3))]
+
+
+def _three_region_entropy(mps, cg: WideEnergyRegions, moments: int, bond: int,
+                          sub_bins: int, exact_sites: int) -> EntropyResult:
+    """S_obs of the joint number and energy of three regions (module docstring)."""
+    volume_regions = tuple(_region(cg.model.restricted(x, y), cg.bin_width)
+                           for x, y in cg.regions)
+    regions = (*volume_regions[:2], _region(_mirror_model(volume_regions[2].model),
+                                            cg.bin_width))
+    raw, live = _three_joint(mps, cg, regions, moments, bond)
+    raw_low, _ = _three_joint(mps, cg, regions, moments, max(2, bond // 2), live)
+    p = _normalised(raw["main"])
+    grids = [(live[0][0], live[0][1]),
+             (np.arange(volume_regions[1].model.L + 1), np.arange(len(volume_regions[1].bins))),
+             (live[1][0], live[1][1])]
+    volumes = []
+    for vreg, marginal, (numbers, bins) in zip(volume_regions, _three_marginals(p), grids,
+                                               strict=True):
+        energy = np.zeros(len(vreg.bins))
+        energy[bins] = marginal.sum(axis=0)
+        volumes.append(_SectorVolumes(vreg, _targets(vreg, energy),
+                                      float(marginal.sum(axis=1) @ numbers), moments, bond,
+                                      exact_sites))
+
+    def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool):
+        log_v = []
+        for vol, marginal, (numbers, bins) in zip(volumes, _three_marginals(probs), grids,
+                                                  strict=True):
+            i, j = np.nonzero(marginal > PROBABILITY_FLOOR)
+            values = np.full(marginal.shape, -np.inf)
+            values[i, j] = vol.log_volumes(numbers[i], vol.region.bins[bins[j]], n_moments,
+                                           sub, low)
+            log_v.append(values)
+        return _entropy(probs, log_v), log_v
+
+    (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
+    (half, _), _ = evaluate(_normalised(raw["half"]), moments // 2, sub_bins, False)
+    (low, _), _ = evaluate(_normalised(raw_low["main"]), moments, sub_bins, True)
+    (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
+    log_v = functools.reduce(np.add.outer, log_vols)
+    leak = sum(_moved_mass_change(p, log_v, np.clip(raw[name], 0.0, None) / 2, axis)
+               for name, axis in (("edge A", 1), ("edge C", 3), ("edge B", 5)))
+    live_cells = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    columns = []
+    for axis, (vreg, (numbers, bins)) in enumerate(zip(volume_regions, grids, strict=True)):
+        asked = {"number": numbers[live_cells[:, 2 * axis]],
+                 "energy": vreg.bins[bins[live_cells[:, 2 * axis + 1]]]}
+        columns += [asked[name] for name in cg.observables]
+    dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live_cells.T)],
+                               np.exp(log_v[tuple(live_cells.T)]))
     return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)
