@@ -291,10 +291,20 @@ def _three_regions(model, where):
     return volume, (*volume[:2], we._region(we._mirror_model(volume[2].model), 1.0))
 
 
-def _on_live_grid(p, live, regions):
+def _on_live_grid(p, live, regions, total=None):
+    """The dense P on the estimator's grid: live outer sectors and bins, every n_C (or,
+    for a pure state of number ``total``, its one slot n_C = total - n_A - n_B)."""
     (na, ba), (nb, bb) = live
-    return p[np.ix_(na, ba, np.arange(regions[1].model.L + 1), np.arange(len(regions[1].bins)),
-                    nb, bb)]
+    grid = p[np.ix_(na, ba, np.arange(regions[1].model.L + 1),
+                    np.arange(len(regions[1].bins)), nb, bb)]
+    if total is None:
+        return grid
+    fixed = total - na[:, None] - nb[None, :]
+    valid = (fixed >= 0) & (fixed <= regions[1].model.L)
+    i, j = np.indices(fixed.shape)
+    slot = grid[i, :, np.clip(fixed, 0, regions[1].model.L), :, j, :] * valid[:, :, None, None,
+                                                                              None]
+    return slot.transpose(0, 2, 3, 1, 4)[:, :, None]
 
 
 def test_three_region_charge_resolved_probabilities_match_the_dense_moments():
@@ -305,10 +315,11 @@ def test_three_region_charge_resolved_probabilities_match_the_dense_moments():
     model, state = _quench(L, 1.0, 64)
     cg = coarse.WideEnergyRegions(L, THREE, model, 1.0, "t", JOINT)
     volume, mirrored = _three_regions(model, THREE)
-    raw, live = wne._three_joint(canonical_state(state), cg, mirrored, n_moments, 256)
+    raw, live, middle = wne._three_joint(canonical_state(state), cg, mirrored, n_moments, 256)
     psi = to_dense(state)
     want = _dense_three(np.outer(psi, psi.conj()), volume, n_moments)
-    grid = _on_live_grid(want, live, volume)
+    grid = _on_live_grid(want, live, volume, total=L // 2)
+    assert middle.total == L // 2
     assert grid.sum() == pytest.approx(want.sum(), abs=1e-12)
     np.testing.assert_allclose(raw["main"], grid, atol=1e-8)
 
@@ -319,7 +330,7 @@ def test_three_region_phase_resolved_probabilities_of_a_purification_match_the_d
     rho = canonical_state(thermo.gibbs_state(model, 0.7, max_bond=64))
     cg = coarse.WideEnergyRegions(L, where, model, 1.0, "t", JOINT)
     volume, mirrored = _three_regions(model, where)
-    raw, live = wne._three_joint(rho, cg, mirrored, n_moments, 256)
+    raw, live, _ = wne._three_joint(rho, cg, mirrored, n_moments, 256)
     order = [*range(0, 2 * L, 2), *range(1, 2 * L, 2)]   # spins, then ancillas
     vector = _purification_dense(rho, L).transpose(order).reshape(2**L, 2**L)
     want = _dense_three(vector @ vector.conj().T, volume, n_moments)
@@ -402,6 +413,30 @@ def test_three_regions_at_infinite_temperature_give_the_maximal_entropy():
     # every (n, b) of every region is live, so the exact counts add up to 2^L
     assert res.distribution.outcomes.shape[1] == 6
     assert res.distribution.volumes.sum() == pytest.approx(2.0**L, rel=1e-12)
+
+
+def test_a_three_region_grid_beyond_the_memory_limit_is_refused_and_gives_nan_equilibrium(
+        monkeypatch, caplog):
+    # the same exact-volume case with the limit set below its working set: a TooLargeError
+    # naming the setting that shrinks it, and in a run's equilibrium reference NaN with a
+    # warning (the other coarse-graining of the point keeps its value)
+    from mpsobs.core.errors import TooLargeError
+    from mpsobs.pipeline import point
+    from mpsobs.pipeline.build import BuiltCoarse
+
+    L = 10
+    model, state = _quench(L, 1.0, 64)
+    cg = coarse.WideEnergyRegions(L, THREE, model, 1.0, "t", JOINT)
+    monkeypatch.setattr(wne, "MAX_THREE_REGION_BYTES", 1000)
+    with pytest.raises(TooLargeError, match=r"^bin_width: .* GiB here"):
+        wne.wide_number_energy_entropy(state, cg, moments=16, bond=16)
+    small = coarse.WideEnergyRegions(L, ((0, 5), (5, L)), model, 1.0, "h", JOINT)
+    built = [BuiltCoarse(c.label, 0, JOINT, c, {"moments": 16, "bond": 16}, "coarse[0]")
+             for c in (cg, small)]
+    values, errors = point._equilibrium_values(state, 0.0, built, [1, 2])
+    assert np.isnan(values[0]) and np.isnan(errors[0])
+    assert np.isfinite(values[1]) and np.isfinite(errors[1])
+    assert "S_obs_eq of t: bin_width:" in caplog.text
 
 
 def test_refusals_name_the_field():

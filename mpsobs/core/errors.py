@@ -7,7 +7,7 @@ from collections.abc import Collection
 
 import numpy as np
 
-__all__ = ["InputError", "finite_number", "integer", "one_of", "seed_value"]
+__all__ = ["InputError", "TooLargeError", "finite_number", "integer", "one_of", "seed_value"]
 __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 
@@ -17,6 +17,12 @@ class InputError(ValueError):
     The message always names the offending argument (or spec key path) and, where they
     are few, the allowed values. The command line turns it into exit code 2.
     """
+
+
+class TooLargeError(InputError):
+    """Input whose evaluation would need more memory than the library allows itself (the
+    message names the setting that shrinks it). A run's equilibrium reference turns it
+    into NaN with a warning instead of failing the point."""
 
 
 def finite_number(value, name: str) -> float:

@@ -80,7 +80,10 @@ matrix per (n, b) for the weights at N, at N / 2 and for the edge windows at N (
 right stack for the pairs main-main, half-half, edge-main and main-edge; the middle's
 Chebyshev orders are summed with its bin weights (at N, N / 2 and its edge windows) as
 they come (:func:`mpsobs.chebyshev.chebyshev_series`), so that the N^3 moments are never
-held. Memory about 16 K (rows_C) (rows_A) (rows_B) bytes per pair; cost per middle
+held. The outcome grid is (live n_A, b_A) x (n_C, b_C) x (live n_B, b_B), with one n_C
+slot for a pure state (:class:`_MiddleNumbers`); an evaluation whose arrays would exceed
+MAX_THREE_REGION_BYTES raises TooLargeError. Memory about 16 K (rows_C) (rows_A)
+(rows_B) bytes per pair; cost per middle
 overlap 2 K rows_A n_C d D^3 (rows_A = 3 x the live (n_A, b_A) pairs), N of them, plus
 the Chebyshev runs of the outer regions and the references of every wide region. The
 error is that of two regions with the edge part summed over the three regions' edges.
@@ -95,7 +98,7 @@ import numpy as np
 
 from mpsobs.chain.coarse import WideEnergyRegions
 from mpsobs.chain.models import Model
-from mpsobs.core.errors import InputError
+from mpsobs.core.errors import InputError, TooLargeError
 from mpsobs.core.threads import limits_threads, state_size
 from mpsobs.estimators import chebyshev
 from mpsobs.estimators.estimate import canonical_state
@@ -137,6 +140,8 @@ __dir__ = list(__all__).copy  # dir() lists the public names, not the imports
 
 #: Largest |nu| = |beta mu| of a volume reference (e^(nu) per particle).
 MAX_NU = 20.0
+#: Largest working set (bytes) of the joint number and energy of three regions.
+MAX_THREE_REGION_BYTES = 4 * 2**30
 
 
 # --------------------------------------------------------------------------- phases
@@ -698,16 +703,39 @@ def _three_parts(mps, cg, regions, n_moments: int, bond: int):
     return sectors, middle, phases, total, lam
 
 
+def _check_three_region_size(live, regions, phases: int, chis: tuple[int, int],
+                             width: int) -> None:
+    """TooLargeError when the three-region arrays would exceed MAX_THREE_REGION_BYTES:
+    the outcome grid (live n_A, b_A) x (n_C, b_C) x (live n_B, b_B) (one n_C slot for a
+    pure state, ``phases`` = 1) in about eight arrays, the four accumulators (K phases)
+    and the K x 3 rows_A environments of the middle sweep (``width`` the widest bond
+    times the local dimension)."""
+    rows = [len(n) * len(b) for n, b in live]
+    middle = (regions[1].model.L + 1 if phases > 1 else 1) * len(regions[1].bins)
+    grid = rows[0] * middle * rows[1]
+    need = 8.0 * 8 * grid + 16.0 * 4 * rows[0] * len(regions[1].bins) * rows[1] * phases \
+        + 16.0 * phases * 3 * rows[0] * max(chis[0], width) ** 2
+    if need > MAX_THREE_REGION_BYTES:
+        raise TooLargeError(
+            f"bin_width: the joint number and energy of three regions would need about "
+            f"{need / 2**30:.1f} GiB here ({rows[0]} x {middle} x {rows[1]} outcome cells, "
+            f"{phases} phases of the middle; at most {MAX_THREE_REGION_BYTES / 2**30:.0f} "
+            f"GiB); wider bins, two regions or the energy alone need less")
+
+
 def _three_joint(mps, cg, regions, n_moments: int, bond: int, live=None):
-    """P[n_A, b_A, n_C, b_C, n_B, b_B] on the live grid (raw, main set) and the arrays of
-    the half-moment and edge sets, keyed as :data:`_PAIRS`; ``live`` the grid of the
-    outer regions ((numbers, bins) of A and B; default: from their marginals at N)."""
+    """P[n_A, b_A, n_C, b_C, n_B, b_B] on the live grid (raw; "main" and the half-moment
+    and edge sets, keyed as :data:`_PAIRS`), the grid ``live`` of the outer regions
+    ((numbers, bins) of A and B; default: from their marginals at N) and the
+    :class:`_MiddleNumbers` of the n_C axis (one slot for a pure state, n_C fixed by
+    charge)."""
     sectors, middle, phases, total, lam = _three_parts(mps, cg, regions, n_moments, bond)
     chis = (middle[0].shape[0], middle[-1].shape[2])
     if live is None:
         grams = (np.diag(lam**2), _middle_gram(middle))
         live = [_live_range(_outer_marginal(s, _bin_weights([r], n_moments)[0], r.model.L, g))
                 for s, r, g in zip(sectors, (regions[0], regions[2]), grams, strict=True)]
+    _check_three_region_size(live, regions, len(phases), chis, bond * middle[0].shape[1])
     stacks = [_stack(s, r, n, b, chi, n_moments) for s, r, (n, b), chi in
               zip(sectors, (regions[0], regions[2]), live, chis, strict=True)]
     mid = regions[1]
@@ -726,23 +754,15 @@ def _three_joint(mps, cg, regions, n_moments: int, bond: int, live=None):
                                               strict=True):
             weights = middle_sets[_PAIRS[name][2]][:, k]
             acc[name] += np.multiply.outer(weights, flat[start:stop].reshape(shape))
-    n_c = regions[1].model.L + 1
+    ls, rs = stacks
     out = {}
     for name, a in acc.items():
-        ls, rs = stacks
-        if total is None:                                        # phases -> sectors
-            sec = _to_sectors(a, 1).real                         # (n_C, rows_C, l, r)
-        else:                                                    # n_C = N - n_A - n_B
-            sec = np.zeros((n_c, a.shape[0], a.shape[2], a.shape[3]))
-            nl = np.repeat(ls.numbers, a.shape[2] // len(ls.numbers))
-            nr = np.repeat(rs.numbers, a.shape[3] // len(rs.numbers))
-            nc = total - nl[:, None] - nr[None, :]
-            li, ri = np.nonzero((nc >= 0) & (nc < n_c))
-            sec[nc[li, ri], :, li, ri] = a[:, 0, li, ri].real.T
-        sec = sec.reshape(n_c, sec.shape[1], len(ls.numbers), -1, len(rs.numbers),
+        # (K, rows_C, l, r) -> (n_C, ...) by the phases, or the one charge-fixed slot
+        sec = _to_sectors(a, 1).real if total is None else a.real.transpose(1, 0, 2, 3)
+        sec = sec.reshape(sec.shape[0], sec.shape[1], len(ls.numbers), -1, len(rs.numbers),
                           sec.shape[3] // len(rs.numbers))
         out[name] = sec.transpose(2, 3, 0, 1, 4, 5)              # (nA, a, nC, c, nB, b)
-    return out, live
+    return out, live, _MiddleNumbers(total, ls.numbers, rs.numbers, regions[1].model.L)
 
 
 def _normalised(raw: np.ndarray) -> np.ndarray:
@@ -750,9 +770,52 @@ def _normalised(raw: np.ndarray) -> np.ndarray:
     return p / p.sum()
 
 
-def _three_marginals(p: np.ndarray) -> list[np.ndarray]:
+@dataclass(frozen=True)
+class _MiddleNumbers:
+    """The n_C axis of the three-region arrays: n_C = 0 .. n_sites for a purification
+    (``total`` None), or one slot for a pure state of definite number ``total``, where
+    n_C = total - n_A - n_B follows from the outer regions' live ``left`` and ``right``
+    sectors (outcomes with n_C outside 0 .. n_sites have no volume)."""
+
+    total: int | None
+    left: np.ndarray
+    right: np.ndarray
+    n_sites: int
+
+    def _fixed(self) -> np.ndarray:
+        return self.total - self.left[:, None] - self.right[None, :]   # (nA, nB)
+
+    def marginal(self, p: np.ndarray) -> np.ndarray:
+        """P(n_C, b_C), n_C = 0 .. n_sites."""
+        if self.total is None:
+            return p.sum(axis=(0, 1, 4, 5))
+        out = np.zeros((self.n_sites + 1, p.shape[3]))
+        fixed, q = self._fixed(), p.sum(axis=(1, 5))[:, 0]             # (nA, c, nB)
+        ok = (fixed >= 0) & (fixed <= self.n_sites)
+        np.add.at(out, fixed[ok], q.transpose(0, 2, 1)[ok])
+        return out
+
+    def log_volumes(self, values: np.ndarray) -> np.ndarray:
+        """ln Omega_C(n_C, b_C) (``values``, n_C = 0 .. n_sites) broadcast to the axes
+        (nA, a, nC, c, nB, b)."""
+        if self.total is None:
+            return values[None, None, :, :, None, None]
+        fixed = self._fixed()
+        ok = (fixed >= 0) & (fixed <= self.n_sites)
+        out = np.full((*fixed.shape, values.shape[1]), -np.inf)
+        out[ok] = values[fixed[ok]]
+        return out.transpose(0, 2, 1)[:, None, None, :, :, None]
+
+    def column(self, cells: np.ndarray, left: np.ndarray, right: np.ndarray) -> np.ndarray:
+        """n_C of the outcome cells (rows of indices into the six axes)."""
+        if self.total is None:
+            return cells[:, 2]
+        return self.total - left[cells[:, 0]] - right[cells[:, 4]]
+
+
+def _three_marginals(p: np.ndarray, middle: _MiddleNumbers) -> list[np.ndarray]:
     """P(n_R, b_R) of each of the three regions from P[n_A, b_A, n_C, b_C, n_B, b_B]."""
-    return [p.sum(axis=(2, 3, 4, 5)), p.sum(axis=(0, 1, 4, 5)), p.sum(axis=(0, 1, 2, 3))]
+    return [p.sum(axis=(2, 3, 4, 5)), middle.marginal(p), p.sum(axis=(0, 1, 2, 3))]
 
 
 def _three_region_entropy(mps, cg: WideEnergyRegions, moments: int, bond: int,
@@ -762,15 +825,14 @@ def _three_region_entropy(mps, cg: WideEnergyRegions, moments: int, bond: int,
                            for x, y in cg.regions)
     regions = (*volume_regions[:2], _region(_mirror_model(volume_regions[2].model),
                                             cg.bin_width))
-    raw, live = _three_joint(mps, cg, regions, moments, bond)
-    raw_low, _ = _three_joint(mps, cg, regions, moments, max(2, bond // 2), live)
+    raw, live, middle = _three_joint(mps, cg, regions, moments, bond)
+    raw_low, _, _ = _three_joint(mps, cg, regions, moments, max(2, bond // 2), live)
     p = _normalised(raw["main"])
-    grids = [(live[0][0], live[0][1]),
-             (np.arange(volume_regions[1].model.L + 1), np.arange(len(volume_regions[1].bins))),
-             (live[1][0], live[1][1])]
+    grids = [live[0], (np.arange(middle.n_sites + 1), np.arange(len(volume_regions[1].bins))),
+             live[1]]
     volumes = []
-    for vreg, marginal, (numbers, bins) in zip(volume_regions, _three_marginals(p), grids,
-                                               strict=True):
+    for vreg, marginal, (numbers, bins) in zip(volume_regions, _three_marginals(p, middle),
+                                               grids, strict=True):
         energy = np.zeros(len(vreg.bins))
         energy[bins] = marginal.sum(axis=0)
         volumes.append(_SectorVolumes(vreg, _targets(vreg, energy),
@@ -778,29 +840,31 @@ def _three_region_entropy(mps, cg: WideEnergyRegions, moments: int, bond: int,
                                       exact_sites))
 
     def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool):
-        log_v = []
-        for vol, marginal, (numbers, bins) in zip(volumes, _three_marginals(probs), grids,
-                                                  strict=True):
+        log_vs = []
+        for vol, marginal, (numbers, bins) in zip(volumes, _three_marginals(probs, middle),
+                                                  grids, strict=True):
             i, j = np.nonzero(marginal > PROBABILITY_FLOOR)
             values = np.full(marginal.shape, -np.inf)
             values[i, j] = vol.log_volumes(numbers[i], vol.region.bins[bins[j]], n_moments,
                                            sub, low)
-            log_v.append(values)
-        return _entropy(probs, log_v), log_v
+            log_vs.append(values)
+        log_v = (log_vs[0][:, :, None, None, None, None] + middle.log_volumes(log_vs[1])
+                 + log_vs[2][None, None, None, None]) + np.zeros(probs.shape)
+        return _entropy(probs, [log_v]), log_v
 
-    (main, dropped), log_vols = evaluate(p, moments, sub_bins, False)
+    (main, dropped), log_v = evaluate(p, moments, sub_bins, False)
     (half, _), _ = evaluate(_normalised(raw["half"]), moments // 2, sub_bins, False)
     (low, _), _ = evaluate(_normalised(raw_low["main"]), moments, sub_bins, True)
     (coarse_sub, _), _ = evaluate(p, moments, max(1, sub_bins // 2), False)
-    log_v = functools.reduce(np.add.outer, log_vols)
     leak = sum(_moved_mass_change(p, log_v, np.clip(raw[name], 0.0, None) / 2, axis)
                for name, axis in (("edge A", 1), ("edge C", 3), ("edge B", 5)))
-    live_cells = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    cells = np.argwhere((p > PROBABILITY_FLOOR) & np.isfinite(log_v))
+    numbers = [live[0][0][cells[:, 0]], middle.column(cells, live[0][0], live[1][0]),
+               live[1][0][cells[:, 4]]]
     columns = []
-    for axis, (vreg, (numbers, bins)) in enumerate(zip(volume_regions, grids, strict=True)):
-        asked = {"number": numbers[live_cells[:, 2 * axis]],
-                 "energy": vreg.bins[bins[live_cells[:, 2 * axis + 1]]]}
+    for axis, (vreg, (_, bins)) in enumerate(zip(volume_regions, grids, strict=True)):
+        asked = {"number": numbers[axis], "energy": vreg.bins[bins[cells[:, 2 * axis + 1]]]}
         columns += [asked[name] for name in cg.observables]
-    dist = OutcomeDistribution(np.column_stack(columns), p[tuple(live_cells.T)],
-                               np.exp(log_v[tuple(live_cells.T)]))
+    dist = OutcomeDistribution(np.column_stack(columns), p[tuple(cells.T)],
+                               np.exp(log_v[tuple(cells.T)]))
     return _approximate_result(mps, cg, dist, dropped, main, (half, low, coarse_sub), leak)

@@ -65,7 +65,7 @@ import numpy as np
 import pandas as pd
 
 from mpsobs.chain import coarse, models
-from mpsobs.core.errors import InputError
+from mpsobs.core.errors import InputError, TooLargeError
 from mpsobs.core.version import __version__
 from mpsobs.estimators.entropy import observational_entropy
 from mpsobs.estimators.estimate import PREVIOUS_METHODS, countable, pruned_entropy_bound
@@ -174,8 +174,13 @@ def _reference(model: models.Model, state: MPS, energy: float,
 def _equilibrium_values(state, trace_distance: float, cgs: Sequence[BuiltCoarse],
                         seeds: list[int]) -> tuple[tuple[float, ...], tuple[float, ...]]:
     """(S_obs per coarse-graining, their errors) of an equilibrium state (:func:`_estimate`)."""
-    eq = [_estimate(state, c.coarse_graining, c.options, seed, trace_distance)
-          for c, seed in zip(cgs, seeds, strict=True)]
+    eq = []
+    for c, seed in zip(cgs, seeds, strict=True):
+        try:
+            eq.append(_estimate(state, c.coarse_graining, c.options, seed, trace_distance))
+        except TooLargeError as exc:
+            log.warning("S_obs_eq of %s: %s; NaN", c.label, exc)
+            eq.append((math.nan, math.nan))
     values, errors = zip(*eq, strict=True)
     return tuple(values), tuple(errors)
 
