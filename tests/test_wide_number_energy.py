@@ -492,3 +492,21 @@ def test_a_spec_entry_builds_the_joint_coarse_graining():
                       cheap_only=True).coarse[0].coarse_graining
     assert cg3.regions == ((0, 13), (13, 15), (15, 28))
     assert cg3.observables == ("energy", "number")
+
+
+def test_the_cost_model_counts_the_sector_stacks_of_three_regions():
+    # the middle sweep runs on 3 (n_A + 1) x bins_A stacked environments (an upper bound)
+    # instead of N, times n_C + 1 phases for a purification: more work than the energy
+    # alone, and more for the purification than for the pure state
+    L = 30
+    model = models.xxz(L, delta=0.5)
+    where = ((0, 13), (13, 17), (17, L))
+    energy = coarse.WideEnergyRegions(L, where, model, 1.0, "e")
+    joint = coarse.WideEnergyRegions(L, where, model, 1.0, "j", JOINT)
+    counts = {(cg.label, d): we.kernel_counts(cg, 16, d, moments=32, bond=16,
+                                              references=False)
+              for cg in (energy, joint) for d in (2, 4)}
+    bins_a = len(we._region(model.restricted(0, 13), 1.0).bins)
+    assert 3 * 14 * bins_a > 32
+    assert counts[("j", 2)].gemm > counts[("e", 2)].gemm
+    assert counts[("j", 4)].gemm > 4 * counts[("j", 2)].gemm

@@ -526,7 +526,10 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
     factors of (d (w + 1) D, (w + 1) D) (half a QR with its Q, and a triangular product of
     4 d ((w + 1) D)^3 flops) and SVDs of ((w + 1) D, d D) (the summed bond against the
     compressed one) and 2 overlaps of 16 n d D^3 (times N stacked environments for the middle
-    region, and a closing 8 N^2 chi^2); with ``references``, per region wider than
+    region, and a closing 8 N^2 chi^2; for the joint number and energy of three regions
+    the stack is 3 (n_A + 1) x the bins of A instead of N, times n_C + 1 phases for a
+    purification: an upper bound, the live grid being smaller); with ``references``, per
+    region wider than
     EXACT_VOLUME_SITES three Gibbs references, each NEWTON_STEPS builds and 4-moment runs
     at NEWTON_BOND and two builds and runs (d = 4) at D and D / 2, a build at |``beta``|
     (default: the largest, MAX_BETA_RESOLUTION N / (pi a)) taking |beta| / (2 GIBBS_STEP)
@@ -553,12 +556,17 @@ def kernel_counts(cg: WideEnergyRegions, state_bond: int, local_dim: int = 2, *,
         gemm += splits * 16.0 * (4 * compress) ** 2 * compress
         calls += splits * 4
 
+    stack = moments
+    if cg.observables != ("energy",) and len(cg.regions) == 3:   # joint: sector stacks
+        (a0, a1), (c0, c1) = cg.regions[:2]
+        first = _region(cg.model.restricted(a0, a1), cg.bin_width)
+        stack = 3 * (a1 - a0 + 1) * len(first.bins) * (c1 - c0 + 1 if local_dim == 4 else 1)
     for i, (a, b) in enumerate(cg.regions):
         region = cg.model.restricted(a, b)
         n, w = b - a, max(x.shape[1] for x in mpo_tensors(region))
         for compress in (bond, max(2, bond // 2)) if runs else ():
             middle = 0 < i < len(cg.regions) - 1
-            run(n, w, local_dim, compress, moments / 2, moments if middle else 1)
+            run(n, w, local_dim, compress, moments / 2, stack if middle else 1)
             if middle:
                 gemm += 8.0 * moments**3 * state_bond**2
         if references and n > EXACT_VOLUME_SITES:
