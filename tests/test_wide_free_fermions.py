@@ -179,11 +179,12 @@ def test_reference_matches_dense_diagonalisation_of_a_quench(L, regions, width, 
                                       [c.get(b, 0) for b in ref.bins[region]])
 
 
-@pytest.mark.parametrize("regions", [[[0, 14], [14, 28]], [[0, 13], [13, 17], [17, 24]]],
-                         ids=["two", "three"])
-def test_chebyshev_method_against_the_free_fermion_reference(regions):
-    # Two halves of 14 sites, or 13 + 4 + 7 sites: a region wider than 12 sites, so its
-    # volumes are reweighted (not exact inside the method); Neel quench to t = 1; the MPS
+@pytest.mark.parametrize("regions, moments, bond", [
+    ([[0, 14], [14, 28]], 32, 8), ([[0, 13], [13, 17], [17, 24]], 32, 8),
+    ([[0, 32], [32, 64]], 64, 16)], ids=["two", "three", "halves-of-64"])
+def test_chebyshev_method_against_the_free_fermion_reference(regions, moments, bond):
+    # Two halves of 14 or 32 sites, or 13 + 4 + 7 sites: a region wider than 12 sites, so
+    # its volumes are reweighted (not exact inside the method); Neel quench to t = 1; the MPS
     # from TEBD, the reference (Klich's trace formula, I. Klich, arXiv:cond-mat/0209642
     # (2003)) from the exact C(t).
     L, width, t = regions[-1][1], 1.0, 1.0
@@ -197,7 +198,7 @@ def test_chebyshev_method_against_the_free_fermion_reference(regions):
     np.testing.assert_allclose(ga.correlation_matrix(snap.state), corr, atol=1e-4)
     ref = fr.free_region_energy_entropy(corr, cg)
     assert ref.error < 0.05 and ref.leaked_mass == 0.0
-    res = we.wide_energy_entropy(snap.state, cg, moments=32, bond=8)
+    res = we.wide_energy_entropy(snap.state, cg, moments=moments, bond=bond)
     total = res.method_err + pruned_entropy_bound(res.pruned_mass, res.max_entropy)
     assert abs(res.entropy - ref.entropy) <= total + ref.error, (res, ref)
 
