@@ -1,4 +1,5 @@
-"""The project's one error type for bad input, and the checks of plain arguments."""
+"""The project's one error type for bad input (and its kind for work beyond a memory
+limit), and the checks of plain arguments."""
 
 from __future__ import annotations
 
