@@ -258,11 +258,17 @@ def _bin_weights(regions, n_moments: int) -> list[np.ndarray]:
             for r in regions]
 
 
+def _normalised(raw: np.ndarray) -> np.ndarray:
+    """Probabilities from a damped series: negative values (from the compression) set to
+    zero, the rest renormalised."""
+    p = np.clip(raw, 0.0, None)
+    return p / p.sum()
+
+
 def _joint(mu: np.ndarray, regions, n_moments: int) -> np.ndarray:
     """Bin probabilities P[b_A, b_B] (or P[b_A, b_C, b_B]) from the first ``n_moments``
-    of mu along every axis (clipped >= 0, renormalised)."""
-    p = np.clip(_contract(mu, _bin_weights(regions, n_moments)), 0.0, None)
-    return p / p.sum()
+    of mu along every axis (:func:`_normalised`)."""
+    return _normalised(_contract(mu, _bin_weights(regions, n_moments)))
 
 
 def _edge_leakage(p: np.ndarray, log_v: np.ndarray, contract, regions, n_moments: int,

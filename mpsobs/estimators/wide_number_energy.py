@@ -124,6 +124,7 @@ from mpsobs.estimators.wide_energy import (
     _mirror_segment,
     _moments,
     _moved_mass_change,
+    _normalised,
     _Region,
     _region,
     _reweighted,
@@ -242,26 +243,35 @@ class _Sector:
     moments: np.ndarray   # (N, len(index), len(index))
 
 
+def _phase_sectors(segment, region: _Region, n_moments: int, bond: int) -> list[_Sector]:
+    """The sectors of a segment's vectors by phases: every sector n = 0 .. n_R holds all
+    vectors, with the number-projected moments (a purification)."""
+    everyone = np.arange(segment[-1].shape[2])
+    return [_Sector(n, everyone, m) for n, m in
+            enumerate(_sector_moments(segment, region, n_moments, bond, region.model.L))]
+
+
+def _charge_sectors(segment, region: _Region, own: np.ndarray, n_moments: int,
+                    bond: int) -> list[_Sector]:
+    """The sectors of a segment's vectors by their definite numbers ``own``: the blocks
+    of the (block-diagonal) moment matrices (a pure state of definite number)."""
+    m = _moments(segment, region, n_moments, bond)
+    return [_Sector(int(n), idx, m[:, idx][:, :, idx])
+            for n in np.unique(own) for idx in [np.flatnonzero(own == n)]]
+
+
 def _state_sectors(mps, cut: int, regions, n_moments: int,
                    bond: int) -> tuple[np.ndarray, list[list[_Sector]]]:
     """The Schmidt values at the cut and the number-resolved moment matrices of A and B
     (B mirrored): by charges for a pure state, by phases for a purification."""
-    sizes = [r.model.L for r in regions]
     if isinstance(mps, PurifiedMPS):
         left, lam, right = _split(mps.tensors, cut)
-        segments = (left, _mirror_segment(right))
-        everyone = np.arange(lam.size)
-        return lam, [[_Sector(n, everyone, m) for n, m in
-                      enumerate(_sector_moments(seg, r, n_moments, bond, size))]
-                     for seg, r, size in zip(segments, regions, sizes, strict=True)]
+        return lam, [_phase_sectors(seg, r, n_moments, bond) for seg, r in
+                     zip((left, _mirror_segment(right)), regions, strict=True)]
     left, lam, right, numbers, total, _ = _charged_split(mps.tensors, cut)
-    out = []
-    for seg, r, own in ((left, regions[0], numbers),
-                        (_mirror_segment(right), regions[1], total - numbers)):
-        m = _moments(seg, r, n_moments, bond)
-        out.append([_Sector(int(n), idx, m[:, idx][:, :, idx])
-                    for n in np.unique(own) for idx in [np.flatnonzero(own == n)]])
-    return lam, out
+    return lam, [_charge_sectors(left, regions[0], numbers, n_moments, bond),
+                 _charge_sectors(_mirror_segment(right), regions[1], total - numbers,
+                                 n_moments, bond)]
 
 
 def _contract(lam: np.ndarray, sectors, regions, weights) -> np.ndarray:
@@ -286,9 +296,7 @@ def _contract(lam: np.ndarray, sectors, regions, weights) -> np.ndarray:
 def _joint(lam: np.ndarray, sectors, regions, n_moments: int) -> np.ndarray:
     """P[n_A, b_A, n_B, b_B] from the first ``n_moments`` moments (clipped >= 0,
     renormalised)."""
-    p = np.clip(_contract(lam, sectors, regions, _bin_weights(regions, n_moments)), 0.0,
-                None)
-    return p / p.sum()
+    return _normalised(_contract(lam, sectors, regions, _bin_weights(regions, n_moments)))
 
 
 # --------------------------------------------------------------------------- volumes
@@ -435,6 +443,28 @@ class _SectorVolumes:
                        [_gibbs_point(region, float(e), number, n_moments, bond)
                         for e in targets])
 
+    @classmethod
+    def for_marginal(cls, region: _Region, marginal: np.ndarray, numbers: np.ndarray,
+                     bins: np.ndarray, n_moments: int, bond: int,
+                     exact_sites: int) -> _SectorVolumes:
+        """The volumes for a state whose P(n, b) of the region is ``marginal`` on the grid
+        ``numbers`` x ``bins`` (positions in region.bins): references at its mean regional
+        energy +- 2 standard deviations and its mean number."""
+        energy = np.zeros(len(region.bins))
+        energy[bins] = marginal.sum(axis=0)
+        return cls(region, _targets(region, energy), float(marginal.sum(axis=1) @ numbers),
+                   n_moments, bond, exact_sites)
+
+    def on_grid(self, marginal: np.ndarray, numbers: np.ndarray, bins: np.ndarray,
+                n_moments: int, sub_bins: int, low: bool) -> np.ndarray:
+        """ln Omega on the grid of ``marginal`` (``numbers`` x ``bins``, positions in
+        region.bins) where it exceeds PROBABILITY_FLOOR, -inf elsewhere."""
+        i, j = np.nonzero(marginal > PROBABILITY_FLOOR)
+        values = np.full(marginal.shape, -np.inf)
+        values[i, j] = self.log_volumes(numbers[i], self.region.bins[bins[j]], n_moments,
+                                        sub_bins, low)
+        return values
+
     def log_volumes(self, numbers, bins, n_moments: int, sub_bins: int,
                     low: bool = False) -> np.ndarray:
         """ln Omega(n, b) for the pairs (``numbers``[i], ``bins``[i])."""
@@ -537,20 +567,15 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
     lam, sectors = _state_sectors(mps, cut, regions, moments, bond)
     lam_low, sectors_low = _state_sectors(mps, cut, regions, moments, low_bond)
     p = _joint(lam, sectors, regions, moments)
-    volumes = []
-    for vreg, marginal in zip(volume_regions, _region_marginals(p), strict=True):
-        mean_n = float(marginal.sum(axis=1) @ np.arange(len(marginal)))
-        volumes.append(_SectorVolumes(vreg, _targets(vreg, marginal.sum(axis=0)), mean_n,
-                                      moments, bond, exact_sites))
+    grids = [(np.arange(r.model.L + 1), np.arange(len(r.bins))) for r in volume_regions]
+    volumes = [_SectorVolumes.for_marginal(vreg, marginal, *grid, moments, bond, exact_sites)
+               for vreg, marginal, grid in zip(volume_regions, _region_marginals(p), grids,
+                                               strict=True)]
 
     def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool):
-        log_v = []
-        for vol, marginal in zip(volumes, _region_marginals(probs), strict=True):
-            numbers, bins = np.nonzero(marginal > PROBABILITY_FLOOR)
-            values = np.full(marginal.shape, -np.inf)
-            values[numbers, bins] = vol.log_volumes(numbers, vol.region.bins[bins],
-                                                    n_moments, sub, low)
-            log_v.append(values.ravel())
+        log_v = [vol.on_grid(marginal, *grid, n_moments, sub, low).ravel()
+                 for vol, marginal, grid in zip(volumes, _region_marginals(probs), grids,
+                                                strict=True)]
         flat = probs.reshape(len(log_v[0]), len(log_v[1]))
         return _entropy(flat, log_v), log_v
 
@@ -576,6 +601,10 @@ def wide_number_energy_entropy(state, cg: WideEnergyRegions, *,
 # --------------------------------------------------------------------------- three regions
 
 
+#: The weight sets of a stack, in their order: bins at N, at N / 2, edge windows at N.
+_SETS = ("main", "half", "edge")
+
+
 @dataclass(frozen=True)
 class _Stack:
     """An outer region's moment matrices contracted with bin weights, one matrix per row
@@ -584,13 +613,15 @@ class _Stack:
     edges), stacked in that order for the middle sweep."""
 
     numbers: np.ndarray    # the live sectors n (ascending, contiguous)
-    bins: np.ndarray       # the live bins (integer indices, contiguous)
     matrices: np.ndarray   # (rows, chi, chi): main, half, edge rows
     sizes: tuple[int, int, int]
 
+    def size(self, name: str) -> int:
+        return self.sizes[_SETS.index(name)]
+
     def rows(self, name: str) -> slice:
-        start = {"main": 0, "half": 1, "edge": 2}[name]
-        return slice(sum(self.sizes[:start]), sum(self.sizes[:start + 1]))
+        start = sum(self.sizes[:_SETS.index(name)])
+        return slice(start, start + self.size(name))
 
 
 def _live_range(marginal: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -627,7 +658,7 @@ def _stack(sectors, region: _Region, numbers: np.ndarray, bins: np.ndarray, chi:
                 idx = np.ix_(sector.index, sector.index)
                 block[i][(slice(None), *idx)] = np.tensordot(weights, sector.moments, axes=1)
         parts.append(block.reshape(-1, chi, chi))
-    return _Stack(numbers, bins, np.concatenate(parts), tuple(len(p) for p in parts))
+    return _Stack(numbers, np.concatenate(parts), tuple(len(p) for p in parts))
 
 
 def _outer_marginal(sectors, weights: np.ndarray, n_sites: int, gram: np.ndarray) -> np.ndarray:
@@ -679,25 +710,17 @@ def _three_parts(mps, cg, regions, n_moments: int, bond: int):
     n_B, one phase), for a purification by n_C + 1 phases."""
     (_, c1), (_, c2) = cg.regions[0], cg.regions[1]
     width = c2 - c1
-    sizes = [r.model.L for r in regions]
     if isinstance(mps, PurifiedMPS):
         left, lam, rest = _split(mps.tensors, c1)
         right = _mirror_segment(rest[width:])
-        everyone = (np.arange(lam.size), np.arange(right[-1].shape[2]))
-        sectors = [[_Sector(n, idx, m) for n, m in
-                    enumerate(_sector_moments(seg, r, n_moments, bond, size))]
-                   for seg, r, size, idx in ((left, regions[0], sizes[0], everyone[0]),
-                                             (right, regions[2], sizes[2], everyone[1]))]
-        total, phases = None, _phases(sizes[1])
+        sectors = [_phase_sectors(left, regions[0], n_moments, bond),
+                   _phase_sectors(right, regions[2], n_moments, bond)]
+        total, phases = None, _phases(regions[1].model.L)
     else:
         left, lam, rest, n_a, total, inner = _charged_split(mps.tensors, c1)
         right = _mirror_segment(rest[width:])
-        n_b = total - inner[c2]
-        sectors = []
-        for seg, r, own in ((left, regions[0], n_a), (right, regions[2], n_b)):
-            m = _moments(seg, r, n_moments, bond)
-            sectors.append([_Sector(int(n), idx, m[:, idx][:, :, idx])
-                            for n in np.unique(own) for idx in [np.flatnonzero(own == n)]])
+        sectors = [_charge_sectors(left, regions[0], n_a, n_moments, bond),
+                   _charge_sectors(right, regions[2], total - inner[c2], n_moments, bond)]
         phases = np.ones(1, dtype=complex)
     middle = [lam[:, None, None] * rest[0], *rest[1:width]]
     return sectors, middle, phases, total, lam
@@ -741,8 +764,7 @@ def _three_joint(mps, cg, regions, n_moments: int, bond: int, live=None):
     mid = regions[1]
     mpo = chebyshev.scaled_mpo(mid.model, mid.centre, mid.half_width, middle[0].shape[1])
     middle_sets = _weight_sets(mid, np.arange(len(mid.bins)), n_moments)
-    shapes = {name: (len(phases), stacks[0].rows(lset).stop - stacks[0].rows(lset).start,
-                     stacks[1].rows(rset).stop - stacks[1].rows(rset).start)
+    shapes = {name: (len(phases), stacks[0].size(lset), stacks[1].size(rset))
               for name, (lset, rset, _) in _PAIRS.items()}
     offsets = np.cumsum([0, *(np.prod(x) for x in shapes.values())])
     acc = {name: np.zeros((len(middle_sets[_PAIRS[name][2]]), *shape), dtype=complex)
@@ -763,11 +785,6 @@ def _three_joint(mps, cg, regions, n_moments: int, bond: int, live=None):
                           sec.shape[3] // len(rs.numbers))
         out[name] = sec.transpose(2, 3, 0, 1, 4, 5)              # (nA, a, nC, c, nB, b)
     return out, live, _MiddleNumbers(total, ls.numbers, rs.numbers, regions[1].model.L)
-
-
-def _normalised(raw: np.ndarray) -> np.ndarray:
-    p = np.clip(raw, 0.0, None)
-    return p / p.sum()
 
 
 @dataclass(frozen=True)
@@ -830,24 +847,14 @@ def _three_region_entropy(mps, cg: WideEnergyRegions, moments: int, bond: int,
     p = _normalised(raw["main"])
     grids = [live[0], (np.arange(middle.n_sites + 1), np.arange(len(volume_regions[1].bins))),
              live[1]]
-    volumes = []
-    for vreg, marginal, (numbers, bins) in zip(volume_regions, _three_marginals(p, middle),
-                                               grids, strict=True):
-        energy = np.zeros(len(vreg.bins))
-        energy[bins] = marginal.sum(axis=0)
-        volumes.append(_SectorVolumes(vreg, _targets(vreg, energy),
-                                      float(marginal.sum(axis=1) @ numbers), moments, bond,
-                                      exact_sites))
+    volumes = [_SectorVolumes.for_marginal(vreg, marginal, *grid, moments, bond, exact_sites)
+               for vreg, marginal, grid in zip(volume_regions, _three_marginals(p, middle),
+                                               grids, strict=True)]
 
     def evaluate(probs: np.ndarray, n_moments: int, sub: int, low: bool):
-        log_vs = []
-        for vol, marginal, (numbers, bins) in zip(volumes, _three_marginals(probs, middle),
-                                                  grids, strict=True):
-            i, j = np.nonzero(marginal > PROBABILITY_FLOOR)
-            values = np.full(marginal.shape, -np.inf)
-            values[i, j] = vol.log_volumes(numbers[i], vol.region.bins[bins[j]], n_moments,
-                                           sub, low)
-            log_vs.append(values)
+        log_vs = [vol.on_grid(marginal, *grid, n_moments, sub, low)
+                  for vol, marginal, grid in zip(volumes, _three_marginals(probs, middle),
+                                                 grids, strict=True)]
         log_v = (log_vs[0][:, :, None, None, None, None] + middle.log_volumes(log_vs[1])
                  + log_vs[2][None, None, None, None]) + np.zeros(probs.shape)
         return _entropy(probs, [log_v]), log_v
