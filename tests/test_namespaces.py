@@ -31,6 +31,7 @@ SPLIT = {
     "mpsobs.analysis.scaling": ("mpsobs.analysis.curves", "mpsobs.analysis.plateaus",
                                 "mpsobs.analysis.fits"),
     "mpsobs.analysis.plots": ("mpsobs.analysis.figure_content",),
+    "mpsobs.estimators.wide_number_energy": ("mpsobs.estimators.wide_number_sectors",),
     "mpsobs.pipeline.spec": ("mpsobs.pipeline.spec_schema", "mpsobs.pipeline.spec_points"),
     "mpsobs.references.thermo": ("mpsobs.references.gibbs_result",
                                  "mpsobs.references.free_fermion_gibbs",
